@@ -1,0 +1,46 @@
+"""The ``harmony`` command line: a thin layer that parses options, calls the library and prints.
+
+Each command lives in a module of this package and registers itself on :data:`main`; the modules
+are listed in :data:`COMMAND_MODULES`. Errors derived from :class:`harmony.errors.HarmonyError`
+become one line ``error: ...`` on stderr and exit status 2; no traceback reaches the user.
+"""
+
+import importlib
+import sys
+
+import click
+
+from ..errors import HarmonyError
+
+__all__ = ["main", "fail", "COMMAND_MODULES"]
+
+#: Modules of this package that define commands (each decorates its commands with ``@main.command``).
+COMMAND_MODULES = (
+    "palette_cmd",
+)
+
+
+def fail(message, code=2):
+    """Print ``error: message`` on stderr and exit with ``code``."""
+    click.echo(f"error: {message}", err=True)
+    sys.exit(code)
+
+
+class _Group(click.Group):
+    def invoke(self, ctx):
+        try:
+            return super().invoke(ctx)
+        except HarmonyError as exc:
+            fail(str(exc))
+        except KeyboardInterrupt:
+            fail("interrupted", code=130)
+
+
+@click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(package_name="harmony")
+def main():
+    """Colour palettes from product photos, cross-category harmony, and room sets under a budget."""
+
+
+for _name in COMMAND_MODULES:
+    importlib.import_module(f"{__name__}.{_name}")
