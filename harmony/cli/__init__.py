@@ -1,11 +1,12 @@
 """The ``harmony`` command line: a thin layer that parses options, calls the library and prints.
 
-Each command lives in a module of this package and registers itself on :data:`main`; the modules
-are listed in :data:`COMMAND_MODULES`. Errors derived from :class:`harmony.errors.HarmonyError`
+Each command lives in a module ``*_cmd.py`` of this package and registers itself on :data:`main`
+with ``@main.command``; every such module is imported when the package loads. Errors derived from :class:`harmony.errors.HarmonyError`
 become one line ``error: ...`` on stderr and exit status 2; no traceback reaches the user.
 """
 
 import importlib
+import pkgutil
 import sys
 
 import click
@@ -14,10 +15,6 @@ from ..errors import HarmonyError
 
 __all__ = ["main", "fail", "COMMAND_MODULES"]
 
-#: Modules of this package that define commands (each decorates its commands with ``@main.command``).
-COMMAND_MODULES = (
-    "palette_cmd",
-)
 
 
 def fail(message, code=2):
@@ -41,6 +38,9 @@ class _Group(click.Group):
 def main():
     """Colour palettes from product photos, cross-category harmony, and room sets under a budget."""
 
+
+#: Modules of this package that define commands, in name order.
+COMMAND_MODULES = tuple(sorted(m.name for m in pkgutil.iter_modules(__path__) if m.name.endswith("_cmd")))
 
 for _name in COMMAND_MODULES:
     importlib.import_module(f"{__name__}.{_name}")
