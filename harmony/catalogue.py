@@ -1,0 +1,342 @@
+"""Product catalogues: CSV or JSON Lines files listing products, prices, stock and photos.
+
+Required fields are ``id``, ``category``, ``price`` and ``image``; ``title``, ``stock`` and
+``currency`` are optional; every other field is kept as a string attribute. Image paths are
+relative to the catalogue file. In CSV several images are separated by ``|``; in JSON Lines
+``image`` is a list (a single string is accepted too).
+
+Validation never stops at the first problem: every bad row is reported as
+``FILE:ROW: field: reason`` (ROW is the line number in the file, the CSV header being line 1),
+skipped and counted. A file that cannot be read at all raises :class:`CatalogueError`.
+"""
+
+import csv
+import io
+import json
+import math
+import unicodedata
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from .errors import CatalogueError
+
+__all__ = [
+    "Product",
+    "Problem",
+    "Catalogue",
+    "REQUIRED_FIELDS",
+    "IMAGE_SEPARATOR",
+    "normalise_category",
+    "read_catalogue",
+]
+
+#: Fields every product row must carry.
+REQUIRED_FIELDS = ("id", "category", "price", "image")
+#: Optional fields with a meaning of their own; every other field becomes an attribute.
+_KNOWN_FIELDS = REQUIRED_FIELDS + ("title", "stock", "currency")
+#: Separator of several image paths in one CSV cell.
+IMAGE_SEPARATOR = "|"
+
+_SUFFIXES = {".csv": "csv", ".jsonl": "jsonl", ".ndjson": "jsonl"}
+
+
+def normalise_category(name):
+    """The form of a category name used for every comparison.
+
+    Unicode NFKC, case folded, runs of whitespace collapsed to one space, ends stripped, so
+    ``" Dining  Chair"`` and ``"dining chair"`` are the same category.
+
+    >>> normalise_category("  Dining\\tCHAIR ")
+    'dining chair'
+    """
+    return " ".join(unicodedata.normalize("NFKC", str(name)).casefold().split())
+
+
+@dataclass(frozen=True)
+class Product:
+    """One product of a catalogue.
+
+    Attributes
+    ----------
+    id : str
+        Unique within the catalogue.
+    category : str
+        As written in the catalogue; compare through :func:`normalise_category`.
+    price : float
+        Non-negative, in ``currency``.
+    stock : int or None
+        Units in stock; None means in stock with the quantity unknown (the field was empty).
+    title, currency : str
+        Empty when the catalogue does not give them.
+    images : tuple of str
+        Image paths as written, relative to the catalogue file, in catalogue order.
+    attributes : dict of str to str
+        Every other field of the row.
+    """
+
+    id: str
+    category: str
+    price: float
+    stock: int | None = None
+    title: str = ""
+    currency: str = ""
+    images: tuple = ()
+    attributes: dict = field(default_factory=dict, hash=False)
+
+    @property
+    def category_key(self):
+        """The normalised category (see :func:`normalise_category`)."""
+        return normalise_category(self.category)
+
+    def in_stock(self, quantity=1):
+        """Whether ``quantity`` units can be sold (unknown stock counts as available)."""
+        return self.stock is None or self.stock >= quantity
+
+
+@dataclass(frozen=True)
+class Problem:
+    """One problem found in a catalogue row; ``str()`` gives ``FILE:ROW: field: reason``."""
+
+    path: str
+    row: int
+    field: str
+    reason: str
+
+    def __str__(self):
+        return f"{self.path}:{self.row}: {self.field}: {self.reason}"
+
+
+@dataclass(frozen=True)
+class Catalogue:
+    """The valid products of a catalogue file and the problems of the rows that were skipped.
+
+    Attributes
+    ----------
+    products : tuple of Product
+        Valid rows in file order.
+    problems : tuple of Problem
+        Every problem found, in file order (a row may have several).
+    path : pathlib.Path
+        The catalogue file, absolute.
+    skipped_rows : int
+        Number of rows left out because of at least one problem.
+    """
+
+    products: tuple
+    problems: tuple
+    path: Path
+    skipped_rows: int = 0
+
+    @property
+    def root(self):
+        """The folder image paths are relative to."""
+        return self.path.parent
+
+    def image_path(self, image):
+        """Absolute path of an image path as written in the catalogue."""
+        return (self.root / image).resolve()
+
+
+def read_catalogue(path):
+    """Read and validate a CSV or JSON Lines catalogue.
+
+    Parameters
+    ----------
+    path : str or pathlib.Path
+        A ``.csv``, ``.jsonl`` or ``.ndjson`` file (UTF-8, a byte-order mark is allowed).
+
+    Returns
+    -------
+    Catalogue
+        The valid products and every problem; rows with problems are skipped.
+
+    Raises
+    ------
+    CatalogueError
+        The file is missing, unreadable, of an unknown kind, or (CSV) lacks a required column.
+
+    Notes
+    -----
+    Problems reported per row: duplicate id (the first row with that id is kept), missing
+    required field, non-numeric or negative price, stock that is not a non-negative whole
+    number, image file not found.
+    """
+    path = Path(path)
+    kind = _SUFFIXES.get(path.suffix.lower())
+    if kind is None:
+        raise CatalogueError(f"{path}: unknown catalogue format {path.suffix!r} (use .csv or .jsonl)")
+    try:
+        text = path.read_text(encoding="utf-8-sig")
+    except FileNotFoundError:
+        raise CatalogueError(f"{path}: catalogue not found") from None
+    except UnicodeDecodeError as exc:
+        raise CatalogueError(f"{path}: not UTF-8 text (byte {exc.start})") from None
+    except OSError as exc:
+        raise CatalogueError(f"{path}: cannot read: {exc.strerror or exc}") from None
+    rows = _csv_rows(path, text) if kind == "csv" else _jsonl_rows(path, text)
+    root = path.resolve().parent
+    products, problems, seen = [], [], set()
+    skipped = 0
+    for line, record, early in rows:
+        found = list(early)
+        product = None
+        if record is not None:
+            product, more = _validate(record, root)
+            found.extend(more)
+            if product is not None and product.id in seen:
+                found.append(("id", f"duplicate id {product.id!r}"))
+        if found or product is None:
+            skipped += 1
+            problems.extend(Problem(str(path), line, name, reason) for name, reason in found)
+            continue
+        seen.add(product.id)
+        products.append(product)
+    return Catalogue(tuple(products), tuple(problems), path.resolve(), skipped)
+
+
+def _csv_rows(path, text):
+    """Yield (line, record or None, early problems) for each data row of a CSV text."""
+    reader = csv.reader(io.StringIO(text, newline=""), strict=True)
+    try:
+        header = next(reader)
+    except StopIteration:
+        raise CatalogueError(f"{path}: empty catalogue (no header row)") from None
+    except csv.Error as exc:
+        raise CatalogueError(f"{path}:1: header: {exc}") from None
+    header = [h.strip() for h in header]
+    missing = [name for name in REQUIRED_FIELDS if name not in header]
+    if missing:
+        names = ", ".join(repr(m) for m in missing)
+        raise CatalogueError(f"{path}:1: header: missing required column(s) {names}")
+    dupes = sorted({h for h in header if header.count(h) > 1})
+    if dupes:
+        raise CatalogueError(f"{path}:1: header: column {dupes[0]!r} appears twice")
+    while True:
+        start = reader.line_num + 1
+        try:
+            cells = next(reader)
+        except StopIteration:
+            return
+        except csv.Error as exc:
+            yield start, None, [("row", f"not valid CSV: {exc}")]
+            return
+        if not any(c.strip() for c in cells):
+            continue  # blank line
+        early = []
+        if len(cells) != len(header):
+            early.append(("row", f"{len(cells)} cells, the header has {len(header)}"))
+        record = {name: value for name, value in zip(header, cells)}
+        images = record.get("image", "")
+        record["image"] = [p.strip() for p in images.split(IMAGE_SEPARATOR) if p.strip()]
+        yield start, record, early
+
+
+def _jsonl_rows(path, text):
+    """Yield (line, record or None, early problems) for each non-blank line of a JSONL text."""
+    for line, raw in enumerate(text.splitlines(), start=1):
+        if not raw.strip():
+            continue
+        try:
+            record = json.loads(raw)
+        except json.JSONDecodeError as exc:
+            yield line, None, [("row", f"not JSON: {exc.msg} (column {exc.colno})")]
+            continue
+        if not isinstance(record, dict):
+            yield line, None, [("row", "must be a JSON object")]
+            continue
+        early = []
+        images = record.get("image")
+        if isinstance(images, str):
+            images = [images]
+        if images is None:
+            images = []
+        if not isinstance(images, list) or not all(isinstance(p, str) for p in images):
+            early.append(("image", "must be a path or a list of paths"))
+            images = None  # reported already
+        record["image"] = None if images is None else [p.strip() for p in images if p.strip()]
+        yield line, record, early
+
+
+def _text(value):
+    """A field value as a stripped string ('' for missing / null)."""
+    if value is None:
+        return ""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, (dict, list)):
+        return json.dumps(value, sort_keys=True)
+    return str(value).strip()
+
+
+def _validate(record, root):
+    """Check one record; return (Product or None, [(field, reason), ...])."""
+    problems = []
+    pid = _text(record.get("id"))
+    if not pid:
+        problems.append(("id", "missing required field"))
+    category = _text(record.get("category"))
+    if not normalise_category(category):
+        problems.append(("category", "missing required field"))
+
+    price = None
+    raw_price = record.get("price")
+    if _text(raw_price) == "":
+        problems.append(("price", "missing required field"))
+    else:
+        try:
+            price = float(_text(raw_price))
+        except ValueError:
+            problems.append(("price", f"not a number: {_text(raw_price)!r}"))
+        else:
+            if not math.isfinite(price):
+                problems.append(("price", f"not a finite number: {_text(raw_price)!r}"))
+                price = None
+            elif price < 0:
+                problems.append(("price", f"negative price {price:g}"))
+                price = None
+
+    stock = None
+    raw_stock = record.get("stock")
+    if raw_stock is not None and _text(raw_stock) != "":
+        stock, reason = _whole(raw_stock)
+        if reason:
+            problems.append(("stock", reason))
+
+    images = record.get("image")
+    if images is not None and not images:
+        problems.append(("image", "missing required field"))
+    images = tuple(images or ())
+    for image in images:
+        if not (root / image).is_file():
+            problems.append(("image", f"file not found: {image}"))
+
+    if problems:
+        return None, problems
+    attributes = {k: _text(v) for k, v in record.items() if k not in _KNOWN_FIELDS and k}
+    product = Product(
+        id=pid,
+        category=category,
+        price=price,
+        stock=stock,
+        title=_text(record.get("title")),
+        currency=_text(record.get("currency")),
+        images=images,
+        attributes=attributes,
+    )
+    return product, []
+
+
+def _whole(raw):
+    """Parse a stock value: (int, None) or (None, reason)."""
+    if isinstance(raw, bool):
+        return None, f"not a whole number: {_text(raw)!r}"
+    text = _text(raw)
+    try:
+        value = float(text)
+    except ValueError:
+        return None, f"not a whole number: {text!r}"
+    if not math.isfinite(value) or value != int(value):
+        return None, f"not a whole number: {text!r}"
+    if value < 0:
+        return None, f"negative stock {int(value)}"
+    return int(value), None

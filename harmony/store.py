@@ -1,0 +1,490 @@
+"""The palette store: one SQLite file holding products, images and their palettes.
+
+Images are keyed by the SHA-256 of their bytes, palettes by (image hash, extraction settings
+key), so a re-run extracts only new or changed images, and a change of settings re-extracts
+only under the new key. Products are replaced by each run's catalogue; removed products go.
+
+Every write is one transaction. The file runs in SQLite's write-ahead-log mode, so readers
+(feeds, reports) can open it while an extraction writes, and a process killed at any moment
+leaves the last committed state: the next run continues from there.
+
+A product's *chosen* palette is that of its first studio (non-scene) image that has one; a
+room-scene image is used only when the product has no studio palette at all, and its confidence
+is then capped at :data:`SCENE_CONFIDENCE`.
+"""
+
+import dataclasses
+import difflib
+import json
+import sqlite3
+from pathlib import Path
+
+import numpy as np
+
+from .catalogue import Product, normalise_category
+from .errors import StoreError
+from .palette import Palette
+
+__all__ = ["Store", "SCHEMA_VERSION", "SCENE_CONFIDENCE", "FileHash"]
+
+#: Version of the table layout below; a store of another version is refused with a message.
+SCHEMA_VERSION = 1
+
+#: Highest confidence a palette chosen from a room-scene photo may carry (this project's
+#: convention: below one half means "guessed, look at it").
+SCENE_CONFIDENCE = 0.4
+
+_SCHEMA = """
+CREATE TABLE schema_version (version INTEGER NOT NULL);
+CREATE TABLE meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
+CREATE TABLE products (
+    id TEXT PRIMARY KEY,
+    category TEXT NOT NULL,
+    category_key TEXT NOT NULL,
+    price REAL NOT NULL,
+    stock INTEGER,
+    title TEXT NOT NULL,
+    currency TEXT NOT NULL,
+    attributes TEXT NOT NULL,
+    row INTEGER NOT NULL
+);
+CREATE INDEX products_category ON products (category_key);
+CREATE TABLE images (
+    sha256 TEXT PRIMARY KEY,
+    size INTEGER NOT NULL
+);
+CREATE TABLE product_images (
+    product_id TEXT NOT NULL REFERENCES products (id) ON DELETE CASCADE,
+    position INTEGER NOT NULL,
+    path TEXT NOT NULL,
+    abs_path TEXT NOT NULL,
+    sha256 TEXT REFERENCES images (sha256),
+    size INTEGER,
+    mtime_ns INTEGER,
+    error TEXT,
+    PRIMARY KEY (product_id, position)
+);
+CREATE INDEX product_images_sha ON product_images (sha256);
+CREATE TABLE palettes (
+    sha256 TEXT NOT NULL REFERENCES images (sha256) ON DELETE CASCADE,
+    settings_key TEXT NOT NULL,
+    k INTEGER NOT NULL,
+    jab BLOB NOT NULL,
+    weights BLOB NOT NULL,
+    width INTEGER NOT NULL,
+    height INTEGER NOT NULL,
+    background BLOB,
+    background_share REAL NOT NULL,
+    scene INTEGER NOT NULL,
+    confidence REAL NOT NULL,
+    PRIMARY KEY (sha256, settings_key)
+);
+CREATE TABLE failures (
+    sha256 TEXT NOT NULL REFERENCES images (sha256) ON DELETE CASCADE,
+    settings_key TEXT NOT NULL,
+    reason TEXT NOT NULL,
+    PRIMARY KEY (sha256, settings_key)
+);
+"""
+
+
+@dataclasses.dataclass(frozen=True)
+class FileHash:
+    """What the store knows of one image file: its content hash and the stat it was taken at.
+
+    ``sha256`` is None and ``error`` says why when the file could not be read.
+    """
+
+    abs_path: str
+    sha256: str | None
+    size: int | None = None
+    mtime_ns: int | None = None
+    error: str | None = None
+
+
+def _blob(arr):
+    return np.ascontiguousarray(arr, dtype="<f8").tobytes()
+
+
+def _unblob(data, shape):
+    return np.frombuffer(data, dtype="<f8").reshape(shape)
+
+
+class Store:
+    """A palette store in one SQLite file.
+
+    Parameters
+    ----------
+    path : str or pathlib.Path
+        The database file.
+    create : bool
+        Make an empty store when the file does not exist (otherwise that is an error).
+
+    Raises
+    ------
+    StoreError
+        The file is missing (and ``create`` is false), is not a harmony store, or has another
+        schema version.
+
+    Notes
+    -----
+    Use as a context manager, or call :meth:`close`. Reading methods return products sorted
+    by id and palettes of the settings used by the last extraction (:attr:`settings_key`).
+    """
+
+    def __init__(self, path, create=False):
+        self.path = Path(path)
+        exists = self.path.exists()
+        if not exists and not create:
+            raise StoreError(
+                f"{self.path}: no palette store here (make one with 'harmony extract CATALOGUE --db {self.path}')"
+            )
+        if exists and self.path.is_dir():
+            raise StoreError(f"{self.path}: is a folder, not a palette store")
+        try:
+            self._db = sqlite3.connect(self.path, timeout=60.0, isolation_level=None)
+        except sqlite3.Error as exc:
+            raise StoreError(f"{self.path}: cannot open: {exc}") from None
+        try:
+            self._open()
+        except sqlite3.DatabaseError as exc:
+            self._db.close()
+            raise StoreError(f"{self.path}: not a palette store ({exc})") from None
+        except StoreError:
+            self._db.close()
+            raise
+
+    @classmethod
+    def create(cls, path):
+        """Open the store at ``path``, making an empty one if there is none."""
+        return cls(path, create=True)
+
+    def _open(self):
+        db = self._db
+        db.execute("PRAGMA foreign_keys = ON")
+        tables = {r[0] for r in db.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+        if not tables:
+            # WAL: readers never block the writer; a killed writer loses only its open transaction.
+            db.execute("PRAGMA journal_mode = WAL")
+            with self._transaction():
+                for statement in _SCHEMA.split(";"):
+                    if statement.strip():
+                        db.execute(statement)
+                db.execute("INSERT INTO schema_version (version) VALUES (?)", (SCHEMA_VERSION,))
+            tables = {"schema_version"}
+        if "schema_version" not in tables:
+            raise StoreError(f"{self.path}: an SQLite file, but not a palette store (no schema_version table)")
+        row = db.execute("SELECT version FROM schema_version").fetchone()
+        version = None if row is None else row[0]
+        if version != SCHEMA_VERSION:
+            raise StoreError(
+                f"{self.path}: store schema version {version}, this harmony reads version {SCHEMA_VERSION}; "
+                f"extract again into a new --db file"
+            )
+        db.execute("PRAGMA journal_mode = WAL")
+        # NORMAL is safe in WAL mode against a killed process (only power loss may drop the
+        # last commits), and much faster than FULL (SQLite documentation, "PRAGMA synchronous").
+        db.execute("PRAGMA synchronous = NORMAL")
+
+    # -- plumbing ------------------------------------------------------------------------------
+
+    class _Tx:
+        def __init__(self, db):
+            self.db = db
+
+        def __enter__(self):
+            self.db.execute("BEGIN IMMEDIATE")
+            return self.db
+
+        def __exit__(self, kind, value, tb):
+            self.db.execute("COMMIT" if kind is None else "ROLLBACK")
+            return False
+
+    def _transaction(self):
+        return Store._Tx(self._db)
+
+    def close(self):
+        """Close the database connection."""
+        self._db.close()
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+        return False
+
+    def _meta(self, key, default=None):
+        row = self._db.execute("SELECT value FROM meta WHERE key = ?", (key,)).fetchone()
+        return default if row is None else row[0]
+
+    # -- reading -------------------------------------------------------------------------------
+
+    @property
+    def settings_key(self):
+        """Key of the extraction settings of the last run ('' before the first run)."""
+        return self._meta("settings_key", "")
+
+    @property
+    def catalogue_path(self):
+        """Absolute path of the catalogue of the last run, or None."""
+        value = self._meta("catalogue_path")
+        return None if value is None else Path(value)
+
+    def _product_from_row(self, row, images):
+        pid, category, _key, price, stock, title, currency, attributes, _row = row
+        return Product(
+            id=pid,
+            category=category,
+            price=float(price),
+            stock=None if stock is None else int(stock),
+            title=title,
+            currency=currency,
+            images=tuple(images),
+            attributes=json.loads(attributes),
+        )
+
+    def _images_by_product(self, category_key=None, product_id=None):
+        sql = "SELECT pi.product_id, pi.path FROM product_images pi JOIN products p ON p.id = pi.product_id"
+        where, args = self._filter(category_key, product_id)
+        out = {}
+        for pid, path in self._db.execute(f"{sql}{where} ORDER BY pi.product_id, pi.position", args):
+            out.setdefault(pid, []).append(path)
+        return out
+
+    @staticmethod
+    def _filter(category_key, product_id):
+        if product_id is not None:
+            return " WHERE p.id = ?", (product_id,)
+        if category_key is not None:
+            return " WHERE p.category_key = ?", (category_key,)
+        return "", ()
+
+    def products(self, category=None):
+        """Products (all, or of one category, compared normalised), sorted by id."""
+        key = None if category is None else normalise_category(category)
+        images = self._images_by_product(category_key=key)
+        where, args = self._filter(key, None)
+        rows = self._db.execute(f"SELECT * FROM products p{where} ORDER BY p.id", args)
+        return [self._product_from_row(r, images.get(r[0], ())) for r in rows]
+
+    def product(self, product_id):
+        """One product by id.
+
+        Raises
+        ------
+        StoreError
+            No such id; the message suggests close ids.
+        """
+        row = self._db.execute("SELECT * FROM products p WHERE p.id = ?", (str(product_id),)).fetchone()
+        if row is None:
+            ids = [r[0] for r in self._db.execute("SELECT id FROM products")]
+            close = difflib.get_close_matches(str(product_id), ids, n=3)
+            hint = f" (did you mean {', '.join(repr(c) for c in close)}?)" if close else ""
+            raise StoreError(f"{self.path}: unknown product id {str(product_id)!r}{hint}")
+        images = self._images_by_product(product_id=row[0])
+        return self._product_from_row(row, images.get(row[0], ()))
+
+    def categories(self):
+        """The normalised categories present, sorted."""
+        return [r[0] for r in self._db.execute("SELECT DISTINCT category_key FROM products ORDER BY 1")]
+
+    def __len__(self):
+        return int(self._db.execute("SELECT COUNT(*) FROM products").fetchone()[0])
+
+    def _chosen(self, category_key=None, product_id=None):
+        """{product id: (Palette, abs image path, image as written)} of the chosen palettes."""
+        where, args = self._filter(category_key, product_id)
+        sql = (
+            "SELECT pi.product_id, pi.path, pi.abs_path, pi.sha256, pal.k, pal.jab, pal.weights, pal.width,"
+            " pal.height, pal.background, pal.background_share, pal.scene, pal.confidence"
+            " FROM product_images pi JOIN products p ON p.id = pi.product_id"
+            " JOIN palettes pal ON pal.sha256 = pi.sha256 AND pal.settings_key = ?"
+            f"{where} ORDER BY pi.product_id, pi.position"
+        )
+        studio, scene = {}, {}
+        for row in self._db.execute(sql, (self.settings_key, *args)):
+            pid, is_scene = row[0], bool(row[11])
+            target = scene if is_scene else studio
+            if pid not in target:
+                target[pid] = row
+        chosen = {}
+        for pid in sorted(set(studio) | set(scene)):
+            row = studio.get(pid) or scene[pid]
+            chosen[pid] = (self._palette_from_row(row), Path(row[2]), row[1])
+        return chosen
+
+    @staticmethod
+    def _palette_from_row(row):
+        _pid, _path, abs_path, sha, k, jab, weights, width, height, bg, share, scene, conf = row
+        confidence = float(conf)
+        if scene:
+            confidence = min(confidence, SCENE_CONFIDENCE)
+        return Palette(
+            jab=_unblob(jab, (k, 3)),
+            weights=_unblob(weights, (k,)),
+            sha256=sha,
+            width=int(width),
+            height=int(height),
+            background_jab=None if bg is None else _unblob(bg, (3,)),
+            background_share=float(share),
+            scene=bool(scene),
+            confidence=confidence,
+            source=abs_path,
+        )
+
+    def palette(self, product_id):
+        """The product's chosen palette, or None when it has none (yet, or all images failed).
+
+        Raises
+        ------
+        StoreError
+            Unknown product id.
+        """
+        pid = self.product(product_id).id
+        found = self._chosen(product_id=pid).get(pid)
+        return None if found is None else found[0]
+
+    def palettes(self, category=None):
+        """{product id: chosen Palette} for every product (of ``category``) that has one."""
+        key = None if category is None else normalise_category(category)
+        return {pid: found[0] for pid, found in self._chosen(category_key=key).items()}
+
+    def image_path(self, product_id):
+        """Absolute path of the image the product's chosen palette came from, or None."""
+        pid = self.product(product_id).id
+        found = self._chosen(product_id=pid).get(pid)
+        return None if found is None else found[1]
+
+    def chosen_images(self, category=None):
+        """{product id: image path as written in the catalogue} of the chosen palettes."""
+        key = None if category is None else normalise_category(category)
+        return {pid: found[2] for pid, found in self._chosen(category_key=key).items()}
+
+    def scene_only(self):
+        """Ids of products whose chosen palette comes from a room-scene photo, sorted."""
+        return sorted(pid for pid, found in self._chosen().items() if found[0].scene)
+
+    def failures(self):
+        """Images that yielded no palette: a list of (product id, image as written, reason).
+
+        Covers files that could not be read and extraction failures under the current settings,
+        sorted by product id and image position.
+        """
+        sql = (
+            "SELECT pi.product_id, pi.position, pi.path, COALESCE(pi.error, f.reason) FROM product_images pi"
+            " LEFT JOIN failures f ON f.sha256 = pi.sha256 AND f.settings_key = ?"
+            " WHERE pi.error IS NOT NULL OR f.reason IS NOT NULL ORDER BY pi.product_id, pi.position"
+        )
+        return [(pid, path, reason) for pid, _pos, path, reason in self._db.execute(sql, (self.settings_key,))]
+
+    def counts(self):
+        """Row counts: products, images, palettes (all settings), failures (all settings)."""
+        q = self._db.execute
+        return {
+            name: int(q(f"SELECT COUNT(*) FROM {name}").fetchone()[0])
+            for name in ("products", "images", "palettes", "failures")
+        }
+
+    # -- writing (used by harmony.engine) ------------------------------------------------------
+
+    def file_hashes(self):
+        """{absolute image path: FileHash} remembered from earlier runs (for the stat cache)."""
+        rows = self._db.execute(
+            "SELECT abs_path, sha256, size, mtime_ns, error FROM product_images WHERE sha256 IS NOT NULL"
+        )
+        return {r[0]: FileHash(*r) for r in rows}
+
+    def done(self, settings_key):
+        """Image hashes that already have a palette or a recorded failure under ``settings_key``."""
+        q = self._db.execute
+        have = {r[0] for r in q("SELECT sha256 FROM palettes WHERE settings_key = ?", (settings_key,))}
+        have |= {r[0] for r in q("SELECT sha256 FROM failures WHERE settings_key = ?", (settings_key,))}
+        return have
+
+    def sync_catalogue(self, catalogue, hashes, settings_key):
+        """Replace the products by ``catalogue``'s, in one transaction.
+
+        Parameters
+        ----------
+        catalogue : harmony.catalogue.Catalogue
+        hashes : dict of str to FileHash
+            By absolute image path (``str(catalogue.image_path(image))``), for every image.
+        settings_key : str
+            The extraction settings of this run; reading methods use its palettes from now on.
+
+        Notes
+        -----
+        Removed products go; images no longer used by any product go with their palettes and
+        failures (of every settings key).
+        """
+        with self._transaction() as db:
+            db.execute("DELETE FROM product_images")
+            db.execute("DELETE FROM products")
+            for row, product in enumerate(catalogue.products):
+                db.execute(
+                    "INSERT INTO products VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                    (
+                        product.id,
+                        product.category,
+                        product.category_key,
+                        float(product.price),
+                        product.stock,
+                        product.title,
+                        product.currency,
+                        json.dumps(product.attributes, sort_keys=True),
+                        row,
+                    ),
+                )
+                for position, image in enumerate(product.images):
+                    info = hashes[str(catalogue.image_path(image))]
+                    if info.sha256 is not None:
+                        db.execute(
+                            "INSERT OR IGNORE INTO images (sha256, size) VALUES (?, ?)", (info.sha256, info.size)
+                        )
+                    db.execute(
+                        "INSERT INTO product_images VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+                        (product.id, position, image, info.abs_path, info.sha256, info.size, info.mtime_ns, info.error),
+                    )
+            db.execute("DELETE FROM images WHERE sha256 NOT IN (SELECT sha256 FROM product_images WHERE sha256 IS NOT NULL)")
+            db.execute("INSERT OR REPLACE INTO meta VALUES ('catalogue_path', ?)", (str(catalogue.path),))
+            db.execute("INSERT OR REPLACE INTO meta VALUES ('settings_key', ?)", (settings_key,))
+
+    def record(self, results, settings_key):
+        """Write one finished chunk of extraction results in one transaction.
+
+        Parameters
+        ----------
+        results : iterable of (sha256, Palette or None, reason or None)
+            A palette, or the reason the image gave none.
+        settings_key : str
+        """
+        with self._transaction() as db:
+            for sha, palette, reason in results:
+                if palette is None:
+                    db.execute(
+                        "INSERT OR REPLACE INTO failures VALUES (?, ?, ?)", (sha, settings_key, str(reason))
+                    )
+                    continue
+                bg = None if palette.background_jab is None else _blob(palette.background_jab)
+                db.execute("DELETE FROM failures WHERE sha256 = ? AND settings_key = ?", (sha, settings_key))
+                db.execute(
+                    "INSERT OR REPLACE INTO palettes VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                    (
+                        sha,
+                        settings_key,
+                        len(palette),
+                        _blob(palette.jab),
+                        _blob(palette.weights),
+                        int(palette.width),
+                        int(palette.height),
+                        bg,
+                        float(palette.background_share),
+                        int(bool(palette.scene)),
+                        float(palette.confidence),
+                    ),
+                )
+
+    def integrity(self):
+        """SQLite's ``PRAGMA integrity_check`` result ('ok' for a sound file)."""
+        return self._db.execute("PRAGMA integrity_check").fetchone()[0]

@@ -1,0 +1,162 @@
+"""Tests of harmony.store with palettes built directly (no extraction involved)."""
+
+import hashlib
+import sqlite3
+
+import numpy as np
+import pytest
+
+from harmony.catalogue import Catalogue, Product
+from harmony.errors import StoreError
+from harmony.palette import Palette
+from harmony.store import SCENE_CONFIDENCE, SCHEMA_VERSION, FileHash, Store
+
+
+def _palette(rng, k=3, scene=False, confidence=1.0, sha="", bg=True):
+    jab = rng.uniform([10, -30, -30], [90, 30, 30], size=(k, 3))
+    weights = rng.dirichlet(np.ones(k))
+    return Palette(
+        jab=jab, weights=weights, sha256=sha, width=40, height=30,
+        background_jab=rng.uniform(0, 50, 3) if bg else None, background_share=0.25,
+        scene=scene, confidence=confidence,
+    )
+
+
+def _catalogue(tmp_path, rows):
+    """rows: (id, category, [image names]); each image file holds its own name as bytes."""
+    products = []
+    for pid, category, images in rows:
+        for name in images:
+            (tmp_path / name).write_bytes(name.encode())
+        products.append(Product(id=pid, category=category, price=10.0, images=tuple(images)))
+    cat = Catalogue(tuple(products), (), (tmp_path / "c.csv").resolve())
+    hashes = {}
+    for product in products:
+        for name in product.images:
+            path = str(cat.image_path(name))
+            hashes[path] = FileHash(path, hashlib.sha256(name.encode()).hexdigest(), len(name), 0)
+    return cat, hashes
+
+
+def _sha(name):
+    return hashlib.sha256(name.encode()).hexdigest()
+
+
+def test_missing_store_and_creation(tmp_path):
+    with pytest.raises(StoreError, match=r"x\.db: no palette store here"):
+        Store(tmp_path / "x.db")
+    with Store.create(tmp_path / "x.db") as store:
+        assert len(store) == 0 and store.settings_key == "" and store.catalogue_path is None
+    # SQLite documentation, "PRAGMA journal_mode": the mode persists in the file and reads 'wal'.
+    with sqlite3.connect(tmp_path / "x.db") as db:
+        assert db.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
+    with Store(tmp_path / "x.db") as store:
+        assert store.integrity() == "ok"
+
+
+def test_schema_version_mismatch_and_foreign_files(tmp_path):
+    Store.create(tmp_path / "x.db").close()
+    with sqlite3.connect(tmp_path / "x.db") as db:
+        db.execute("UPDATE schema_version SET version = ?", (SCHEMA_VERSION + 1,))
+    with pytest.raises(StoreError, match=rf"store schema version {SCHEMA_VERSION + 1}, this harmony reads version {SCHEMA_VERSION}"):
+        Store(tmp_path / "x.db")
+    (tmp_path / "text.db").write_text("hello, I am not a database" * 100)
+    with pytest.raises(StoreError, match=r"text\.db: not a palette store"):
+        Store(tmp_path / "text.db")
+    with sqlite3.connect(tmp_path / "other.db") as db:
+        db.execute("CREATE TABLE t (x)")
+    with pytest.raises(StoreError, match=r"other\.db: an SQLite file, but not a palette store"):
+        Store(tmp_path / "other.db")
+    with pytest.raises(StoreError, match="is a folder"):
+        Store(tmp_path)
+
+
+def test_products_categories_and_lookup(tmp_path):
+    cat, hashes = _catalogue(tmp_path, [("S-2", "Sofa", ["a.jpg"]), ("S-1", " sofa", ["b.jpg"]), ("R-1", "Rug", ["a.jpg"])])
+    with Store.create(tmp_path / "x.db") as store:
+        store.sync_catalogue(cat, hashes, "k1")
+        assert [p.id for p in store.products()] == ["R-1", "S-1", "S-2"]
+        assert [p.id for p in store.products("SOFA")] == ["S-1", "S-2"]
+        assert store.categories() == ["rug", "sofa"]
+        assert store.product("S-2") == cat.products[0]
+        assert store.catalogue_path == cat.path and store.settings_key == "k1"
+        with pytest.raises(StoreError, match=r"unknown product id 'S-3' \(did you mean 'S-2', 'S-1'\?\)"):
+            store.product("S-3")
+        with pytest.raises(StoreError, match=r"unknown product id 'zzz'$"):
+            store.palette("zzz")
+        assert store.counts()["images"] == 2  # a.jpg is shared, stored once by content hash
+
+
+def test_palettes_round_trip_exactly(tmp_path):
+    rng = np.random.default_rng(4)
+    cat, hashes = _catalogue(tmp_path, [("A", "Sofa", ["a.jpg"]), ("B", "Rug", ["b.jpg"]), ("C", "Rug", ["c.jpg"])])
+    with Store.create(tmp_path / "x.db") as store:
+        store.sync_catalogue(cat, hashes, "k1")
+        pa, pb = _palette(rng, k=4, sha=_sha("a.jpg")), _palette(rng, k=2, bg=False, sha=_sha("b.jpg"))
+        store.record([(_sha("a.jpg"), pa, None), (_sha("b.jpg"), pb, None), (_sha("c.jpg"), None, "c.jpg: no product left")], "k1")
+        got = store.palette("A")
+        assert np.array_equal(got.jab, pa.jab) and np.array_equal(got.weights, pa.weights)
+        assert np.array_equal(got.background_jab, pa.background_jab) and got.background_share == 0.25
+        assert (got.width, got.height, got.sha256, got.scene) == (40, 30, _sha("a.jpg"), False)
+        assert got.source == str(tmp_path.resolve() / "a.jpg")
+        assert store.palette("B").background_jab is None
+        assert store.palette("C") is None
+        assert sorted(store.palettes()) == ["A", "B"] and sorted(store.palettes("rug")) == ["B"]
+        assert store.image_path("A") == tmp_path.resolve() / "a.jpg" and store.image_path("C") is None
+        assert store.failures() == [("C", "c.jpg", "c.jpg: no product left")]
+        # A later palette replaces the failure.
+        store.record([(_sha("c.jpg"), _palette(rng, sha=_sha("c.jpg")), None)], "k1")
+        assert store.failures() == [] and store.counts()["failures"] == 0
+
+
+def test_chosen_palette_prefers_first_studio_image(tmp_path):
+    rng = np.random.default_rng(5)
+    cat, hashes = _catalogue(
+        tmp_path,
+        [
+            ("A", "Sofa", ["scene.jpg", "studio1.jpg", "studio2.jpg"]),
+            ("B", "Sofa", ["scene.jpg", "broken.jpg"]),
+            ("C", "Sofa", ["studio2.jpg", "studio1.jpg"]),
+        ],
+    )
+    scene = _palette(rng, scene=True, confidence=0.9, bg=False)
+    s1, s2 = _palette(rng), _palette(rng)
+    with Store.create(tmp_path / "x.db") as store:
+        store.sync_catalogue(cat, hashes, "k1")
+        store.record(
+            [(_sha("scene.jpg"), scene, None), (_sha("studio1.jpg"), s1, None), (_sha("studio2.jpg"), s2, None),
+             (_sha("broken.jpg"), None, "cannot decode")],
+            "k1",
+        )
+        assert np.array_equal(store.palette("A").jab, s1.jab)
+        assert np.array_equal(store.palette("C").jab, s2.jab)
+        b = store.palette("B")
+        assert b.scene and np.array_equal(b.jab, scene.jab) and b.confidence == SCENE_CONFIDENCE
+        assert store.scene_only() == ["B"]
+        assert store.chosen_images() == {"A": "studio1.jpg", "B": "scene.jpg", "C": "studio2.jpg"}
+
+
+def test_resync_removes_products_and_unused_images(tmp_path):
+    rng = np.random.default_rng(6)
+    cat, hashes = _catalogue(tmp_path, [("A", "Sofa", ["a.jpg"]), ("B", "Rug", ["b.jpg"])])
+    with Store.create(tmp_path / "x.db") as store:
+        store.sync_catalogue(cat, hashes, "k1")
+        store.record([(_sha("a.jpg"), _palette(rng), None), (_sha("b.jpg"), None, "bad")], "k1")
+        assert store.done("k1") == {_sha("a.jpg"), _sha("b.jpg")} and store.done("k2") == set()
+        smaller, hashes2 = _catalogue(tmp_path, [("A", "Sofa", ["a.jpg"])])
+        store.sync_catalogue(smaller, hashes2, "k1")
+        assert [p.id for p in store.products()] == ["A"]
+        assert store.counts() == {"products": 1, "images": 1, "palettes": 1, "failures": 0}
+        # Another settings key: the old palette stays cached but is not the chosen one.
+        store.sync_catalogue(smaller, hashes2, "k2")
+        assert store.palette("A") is None and store.counts()["palettes"] == 1
+
+
+def test_unreadable_image_is_a_failure(tmp_path):
+    cat, hashes = _catalogue(tmp_path, [("A", "Sofa", ["a.jpg"])])
+    path = str(cat.image_path("a.jpg"))
+    hashes[path] = FileHash(path, None, error="a.jpg: cannot read: Permission denied")
+    with Store.create(tmp_path / "x.db") as store:
+        store.sync_catalogue(cat, hashes, "k1")
+        assert store.failures() == [("A", "a.jpg", "a.jpg: cannot read: Permission denied")]
+        assert store.file_hashes() == {}
