@@ -1,0 +1,302 @@
+"""The exact harmony score of two palettes, and its explanation in a stylist's words.
+
+``raw = pal_a.weights @ pair_rules.kernel(pal_a.jab, pal_b.jab) @ pal_b.weights`` (the bilinear
+contract of :mod:`harmony.rules`) and ``score = to_unit(raw, pair_rules)`` in [0, 1], strictly
+increasing in ``raw``. Every :class:`PairScore` carries the rules' contributions, the colour pairs
+that drove them and one plain sentence.
+"""
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import colour
+
+__all__ = [
+    "ColourPair",
+    "PairScore",
+    "to_unit",
+    "pair_raw",
+    "pair_score",
+    "explain_reason",
+    "colour_name",
+]
+
+
+@dataclass(frozen=True)
+class ColourPair:
+    """One colour of each product and what one rule made of them.
+
+    Attributes
+    ----------
+    hex_a, hex_b : str
+        '#rrggbb' of the two colours.
+    rule : str
+        The rule's name.
+    value : float
+        Its contribution to the raw score: ``w_a * w_b * weighted kernel``.
+    share_a, share_b : float
+        The colours' weights in their palettes (0..1).
+    name_a, name_b : str
+        Words for the colours (:func:`colour_name`).
+    index_a, index_b : int
+        Positions in the palettes.
+    """
+
+    hex_a: str
+    hex_b: str
+    rule: str
+    value: float
+    share_a: float
+    share_b: float
+    name_a: str
+    name_b: str
+    index_a: int
+    index_b: int
+
+
+@dataclass(frozen=True)
+class PairScore:
+    """The exact score of two palettes under the rules of their categories.
+
+    Attributes
+    ----------
+    score : float
+        In [0, 1], higher is better.
+    raw : float
+        The weighted kernel sum before :func:`to_unit`.
+    categories : tuple of (str, str)
+    section : str
+        The rules-file section that applied (``"sofa / rug"``, ``"default"``).
+    contributions : tuple of (str, float)
+        Each rule's share of ``raw``; they sum to ``raw``. In the order of the rules file.
+    pairs : tuple of ColourPair
+        The colour pairs with the largest absolute contributions, largest first.
+    reason : str
+        One sentence a stylist can read.
+    """
+
+    score: float
+    raw: float
+    categories: tuple
+    section: str
+    contributions: tuple
+    pairs: tuple
+    reason: str
+
+    def to_dict(self):
+        return {
+            "score": self.score,
+            "raw": self.raw,
+            "categories": list(self.categories),
+            "section": self.section,
+            "contributions": [{"rule": r, "value": v} for r, v in self.contributions],
+            "pairs": [
+                {"a": p.hex_a, "b": p.hex_b, "rule": p.rule, "value": p.value,
+                 "share_a": p.share_a, "share_b": p.share_b, "name_a": p.name_a, "name_b": p.name_b}
+                for p in self.pairs
+            ],
+            "reason": self.reason,
+        }
+
+
+def to_unit(raw, pair_rules):
+    """Map raw scores to [0, 1], strictly increasing: ``1 / (1 + exp(-(raw - midpoint) / scale))``.
+
+    Works element-wise on arrays (the screen maps whole score matrices); a float in, a float out.
+    The logistic is written with ``tanh`` so that no overflow occurs for any finite ``raw``.
+    """
+    x = (np.asarray(raw, dtype=float) - pair_rules.midpoint) / pair_rules.scale
+    out = 0.5 * (1.0 + np.tanh(0.5 * x))
+    return float(out) if out.ndim == 0 else out
+
+
+def pair_raw(pal_a, pal_b, pair_rules):
+    """The raw score only, ``w_a @ K @ w_b`` (no explanation): the fast path."""
+    return float(pal_a.weights @ pair_rules.kernel(pal_a.jab, pal_b.jab) @ pal_b.weights)
+
+
+# --------------------------------------------------------------------------------------------
+# Colour names
+# --------------------------------------------------------------------------------------------
+
+# Hue sectors in CAM02-UCS hue angle under harmony.colour.VIEWING_CONDITIONS, placed by
+# converting sRGB anchors (e.g. sRGB red lands near 32 degrees, yellow near 106, a mid teal near
+# 198, blue near 258, purple near 330). Names are the trade's everyday words, chosen here. Each
+# sector: (upper bound in degrees, (dark, muted, pale, mid, light, vivid)).
+_HUE_SECTORS = (
+    (12.0, ("plum", "mauve", "blush", "raspberry", "pink", "magenta")),
+    (36.0, ("burgundy", "dusty rose", "blush", "terracotta", "salmon", "red")),
+    (50.0, ("brick", "clay", "peach", "rust", "coral", "vermilion")),
+    (68.0, ("chocolate", "tan", "sand", "amber", "peach", "orange")),
+    (98.0, ("bronze", "camel", "beige", "mustard", "butter", "marigold")),
+    (125.0, ("dark olive", "khaki", "straw", "olive", "lemon", "chartreuse")),
+    (170.0, ("forest green", "sage", "celadon", "green", "mint", "emerald")),
+    (220.0, ("deep teal", "slate", "duck egg", "teal", "aqua", "turquoise")),
+    (275.0, ("navy", "denim", "powder blue", "blue", "sky blue", "cobalt")),
+    (305.0, ("indigo", "dusk", "lavender", "violet", "lavender", "violet")),
+    (345.0, ("aubergine", "heather", "lilac", "purple", "lilac", "magenta")),
+    (360.0, ("plum", "mauve", "blush", "raspberry", "pink", "magenta")),
+)
+
+
+def colour_name(jab, threshold=7.0):
+    """A word a stylist uses for one CAM02-UCS colour ("rust", "teal", "cream", "charcoal").
+
+    Parameters
+    ----------
+    jab : array_like, shape (3,)
+    threshold : float
+        Colourfulness M' below which the colour is named as a neutral.
+
+    Notes
+    -----
+    Neutrals are named by lightness J' (black, charcoal, grey, stone, ivory, white) with a warm
+    (beige, greige, taupe, cream) variant when their hue leans yellow-red. Chromatic colours are
+    named by hue sector and by lightness and colourfulness within it. The boundaries are this
+    project's own choices, made by eye on sRGB anchors; they only label explanations.
+    """
+    j, a, b = (float(v) for v in np.asarray(jab, dtype=float).reshape(3))
+    m = math.hypot(a, b)
+    h = math.degrees(math.atan2(b, a)) % 360.0
+    warm = m >= 3.0 and 30.0 <= h <= 110.0
+    if m < threshold:
+        if j < 18.0:
+            return "black"
+        if j < 38.0:
+            return "espresso" if warm else "charcoal"
+        if j < 62.0:
+            return "taupe" if warm else "grey"
+        if j < 82.0:
+            return "greige" if warm else "stone"
+        if j < 94.0:
+            return "beige" if warm else "off-white"
+        return "cream" if warm else "white"
+    for upper, names in _HUE_SECTORS:
+        if h < upper:
+            break
+    dark, muted, pale, mid, light, vivid = names
+    if j < 40.0:
+        return dark
+    if m < 20.0:
+        return pale if j >= 75.0 else muted
+    if m >= 38.0 and j < 85.0:
+        return vivid
+    return light if j >= 75.0 else mid
+
+
+# --------------------------------------------------------------------------------------------
+# The score and its explanation
+# --------------------------------------------------------------------------------------------
+
+
+def _label(category, fallback):
+    return f"the {category}'s" if category else f"the {fallback} product's"
+
+
+def _phrase(pair_rules, pair, jab_a, jab_b):
+    rule = pair_rules.rule(pair.rule)
+    if rule.phrase:
+        return rule.phrase
+    return rule.default_phrase(jab_a[pair.index_a], jab_b[pair.index_b])
+
+
+def explain_reason(pairs, categories, pair_rules, jab_a, jab_b, raw):
+    """One sentence naming the colour pair that drove the score, and the worst clash if any.
+
+    Parameters
+    ----------
+    pairs : sequence of ColourPair
+        Largest absolute contribution first (as in :attr:`PairScore.pairs`).
+    categories : (str, str)
+        Category names; empty strings give "the first/second product's".
+    pair_rules : harmony.rules.PairRules
+    jab_a, jab_b : ndarray, shape (n, 3) and (m, 3)
+        The palettes' colours (for rule phrases that depend on them).
+    raw : float
+    """
+    if not pairs:
+        return "no rule found anything to say about these two palettes"
+    who_a = _label(categories[0], "first")
+    who_b = _label(categories[1], "second")
+
+    def clause(p):
+        return (
+            f"{who_a} {p.name_a} ({p.share_a * 100:.0f} %) {_phrase(pair_rules, p, jab_a, jab_b)} "
+            f"{who_b} {p.name_b} ({p.share_b * 100:.0f} %): {p.rule.replace('_', ' ')}"
+        )
+
+    best = next((p for p in pairs if p.value > 0), None)
+    worst = next((p for p in pairs if p.value < 0), None)
+    if best is None:
+        return clause(worst)
+    if worst is not None and (raw < pair_rules.midpoint or abs(worst.value) >= 0.5 * best.value):
+        return f"{clause(best)}; but {clause(worst)}"
+    return clause(best)
+
+
+def pair_score(pal_a, pal_b, pair_rules, top=5):
+    """The exact score of two palettes under ``pair_rules``, with its explanation.
+
+    Parameters
+    ----------
+    pal_a, pal_b : harmony.palette.Palette
+        Anything with ``jab`` (k, 3) and ``weights`` (k,) works; ``pal_a`` belongs to the first
+        category of ``pair_rules``.
+    pair_rules : harmony.rules.PairRules
+        From :meth:`harmony.rules.RuleSet.for_pair`.
+    top : int
+        How many colour pairs to keep in :attr:`PairScore.pairs`.
+
+    Returns
+    -------
+    PairScore
+
+    Notes
+    -----
+    Vectorised over colour pairs: one (n, m) array per rule, no Python loop over colours.
+    ``raw`` equals ``pal_a.weights @ pair_rules.kernel(pal_a.jab, pal_b.jab) @ pal_b.weights``.
+    """
+    jab_a = np.asarray(pal_a.jab, dtype=float)
+    jab_b = np.asarray(pal_b.jab, dtype=float)
+    w_a = np.asarray(pal_a.weights, dtype=float)
+    w_b = np.asarray(pal_b.weights, dtype=float)
+    terms = pair_rules.kernel_terms(jab_a, jab_b)
+    outer = np.multiply.outer(w_a, w_b)
+    names = [name for name, _ in terms]
+    stack = np.stack([k for _, k in terms]) * outer if terms else np.zeros((0,) + outer.shape)
+    per_rule = stack.reshape(len(names), -1).sum(axis=1)
+    raw = float(per_rule.sum())
+    contributions = tuple((name, float(v)) for name, v in zip(names, per_rule))
+
+    pairs = ()
+    if stack.size and top > 0:
+        flat = np.abs(stack).ravel()
+        count = min(top, int(np.count_nonzero(flat)))
+        order = np.argsort(-flat, kind="stable")[:count]
+        r_idx, i_idx, j_idx = np.unravel_index(order, stack.shape)
+        used_a = sorted(set(i_idx.tolist()))
+        used_b = sorted(set(j_idx.tolist()))
+        hex_a = dict(zip(used_a, colour.jab_to_hex(jab_a[used_a]))) if used_a else {}
+        hex_b = dict(zip(used_b, colour.jab_to_hex(jab_b[used_b]))) if used_b else {}
+        t = pair_rules.neutral_threshold
+        pairs = tuple(
+            ColourPair(
+                hex_a=hex_a[i], hex_b=hex_b[j], rule=names[r], value=float(stack[r, i, j]),
+                share_a=float(w_a[i]), share_b=float(w_b[j]),
+                name_a=colour_name(jab_a[i], t), name_b=colour_name(jab_b[j], t),
+                index_a=int(i), index_b=int(j),
+            )
+            for r, i, j in zip(r_idx.tolist(), i_idx.tolist(), j_idx.tolist())
+        )
+    reason = explain_reason(pairs, pair_rules.categories, pair_rules, jab_a, jab_b, raw)
+    return PairScore(
+        score=to_unit(raw, pair_rules),
+        raw=raw,
+        categories=tuple(pair_rules.categories),
+        section=pair_rules.section,
+        contributions=contributions,
+        pairs=pairs,
+        reason=reason,
+    )
