@@ -101,7 +101,7 @@ def two_colour_harmony(lab1, lab2):
     Examples
     --------
     >>> round(float(two_colour_harmony([50.0, 0.0, 0.0], [50.0, 0.0, 0.0])), 3)
-    0.697
+    0.251
     """
     h_c, h_l, h_h = harmony_terms(lab1, lab2)
     return h_c + h_l + h_h
