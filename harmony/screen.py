@@ -1,0 +1,558 @@
+"""All cross-category pairs at once: soft-binned histograms, one blocked matrix product, exact re-rank.
+
+The exact raw score of two palettes is bilinear in their weights (the contract of
+:mod:`harmony.score`)::
+
+    raw(a, b) = w_a @ kernel(jab_a, jab_b) @ w_b
+
+Replace each palette by a histogram ``h`` over a fixed set of bin centres, each colour's weight
+spread over its neighbouring centres, and the raw score becomes ``h_a @ K @ h_b`` with the small
+bin-by-bin matrix ``K = kernel(centres_a, centres_b)``. For two whole categories that is one matrix
+product ``H_a K H_b^T``. K is factorised once by its singular value decomposition and kept to
+the rank its singular values need, ``(H_a U S)(V^T H_b^T)`` (see :func:`screen_top_k`); the
+product is computed tile by tile so memory is bounded by the tile size, and
+each product keeps a running top-c of its best partners. The top-c candidates are then re-scored
+with the exact kernel, so the final order is the exact order whenever the exact top-k lies inside
+the screened top-c; the benchmark measures how often that holds (recall@k).
+
+Bins
+----
+* chromatic bins: a grid of ``hue_bins`` hue angles (circular) x ``lightness_bins`` lightness
+  levels J' in [0, 100]; a colour's chromatic share is spread bilinearly over the four nearest
+  centres (linear in hue on the circle and in J', clamped at the ends of J');
+* neutral bins: ``lightness_bins`` lightness levels on the grey axis (a' = b' = 0); a colour's
+  neutral share is spread linearly over the two nearest levels.
+
+The neutral share of a colour is :func:`harmony.palette.neutrality` (the same smooth fade the
+rules use), the chromatic share is the rest. A chromatic centre takes the weighted mean
+colourfulness M' of the colours that fell into it (at least the end of the neutral fade, so the
+centre is fully chromatic); an empty bin takes :data:`DEFAULT_CENTRE_COLOURFULNESS`.
+
+The approximation ``h_a K h_b`` is the multilinear interpolant of the kernel between grid points,
+so its error shrinks with the square of the bin spacing for a smooth kernel.
+"""
+
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass
+
+import numpy as np
+
+from .palette import NEUTRAL_COLOURFULNESS, NEUTRAL_FADE, Palette, neutrality
+
+__all__ = [
+    "BinGrid",
+    "PaletteStack",
+    "ScreenResult",
+    "DEFAULT_CENTRE_COLOURFULNESS",
+    "histograms",
+    "bin_centres",
+    "bin_kernel",
+    "screen_scores",
+    "top_k_blocked",
+    "exact_raw",
+    "exact_raw_candidates",
+    "exact_top_k",
+    "screen_top_k",
+]
+
+#: Colourfulness M' of a chromatic bin centre that no colour fell into. Its value does not change
+#: any score (the bin has zero weight); it only has to be a plausible chromatic colour. About the
+#: M' of Munsell chroma 6 at value 6 (15-22, see the design notes' Munsell measurements).
+DEFAULT_CENTRE_COLOURFULNESS = 18.0
+
+
+@dataclass(frozen=True)
+class BinGrid:
+    """The bin layout of the screen's histograms.
+
+    Attributes
+    ----------
+    hue_bins : int
+        Number of hue centres on the circle (spacing 360 / hue_bins degrees). The default 5 degree
+        spacing was chosen by measuring recall@10 in ``benchmarks/screen.py``: hue is where the
+        rules are sharpest.
+    lightness_bins : int
+        Number of lightness levels J' from 0 to 100, for the chromatic grid and the grey axis.
+    neutral_threshold, neutral_fade : float
+        The neutral fade of :func:`harmony.palette.neutrality`; use the rules file's values.
+    """
+
+    hue_bins: int = 72
+    lightness_bins: int = 11
+    neutral_threshold: float = NEUTRAL_COLOURFULNESS
+    neutral_fade: float = NEUTRAL_FADE
+
+    def __post_init__(self):
+        if int(self.hue_bins) < 3:
+            raise ValueError(f"hue_bins must be at least 3, got {self.hue_bins!r}")
+        if int(self.lightness_bins) < 2:
+            raise ValueError(f"lightness_bins must be at least 2, got {self.lightness_bins!r}")
+        if not self.neutral_fade >= 0:
+            raise ValueError(f"neutral_fade must be >= 0, got {self.neutral_fade!r}")
+
+    @property
+    def n_chromatic(self):
+        return int(self.hue_bins) * int(self.lightness_bins)
+
+    @property
+    def size(self):
+        """Total number of bins: chromatic grid plus the grey axis."""
+        return self.n_chromatic + int(self.lightness_bins)
+
+    @property
+    def hue_centres_deg(self):
+        return np.arange(int(self.hue_bins)) * (360.0 / int(self.hue_bins))
+
+    @property
+    def lightness_centres(self):
+        return np.linspace(0.0, 100.0, int(self.lightness_bins))
+
+    @property
+    def fully_chromatic_colourfulness(self):
+        """The M' at which :func:`neutrality` reaches 0 (end of the fade)."""
+        return float(self.neutral_threshold) + float(self.neutral_fade) / 2.0
+
+
+@dataclass(frozen=True, eq=False)
+class PaletteStack:
+    """Palettes packed into arrays, padded to the longest palette with zero-weight colours.
+
+    Attributes
+    ----------
+    jab : ndarray, shape (n, k, 3)
+        CAM02-UCS colours; padding repeats each palette's first colour (weight 0), so a kernel is
+        only ever evaluated on real colours.
+    weights : ndarray, shape (n, k)
+        Colour weights; each row sums to 1.
+    """
+
+    jab: np.ndarray
+    weights: np.ndarray
+
+    def __post_init__(self):
+        jab = np.array(self.jab, dtype=float)
+        weights = np.array(self.weights, dtype=float)
+        if jab.ndim != 3 or jab.shape[2] != 3:
+            raise ValueError(f"jab must have shape (n, k, 3), got {jab.shape}")
+        if weights.shape != jab.shape[:2]:
+            raise ValueError(f"weights must have shape {jab.shape[:2]}, got {weights.shape}")
+        jab.setflags(write=False)
+        weights.setflags(write=False)
+        object.__setattr__(self, "jab", jab)
+        object.__setattr__(self, "weights", weights)
+
+    def __len__(self):
+        return int(self.jab.shape[0])
+
+    @classmethod
+    def from_palettes(cls, palettes):
+        """Pack a sequence of :class:`~harmony.palette.Palette` (or a PaletteStack, returned as is)."""
+        if isinstance(palettes, PaletteStack):
+            return palettes
+        palettes = list(palettes)
+        if not palettes:
+            return cls(np.zeros((0, 1, 3)), np.zeros((0, 1)))
+        for i, p in enumerate(palettes):
+            if not isinstance(p, Palette):
+                raise TypeError(f"item {i} is a {type(p).__name__}, not a Palette")
+        k = max(len(p) for p in palettes)
+        jab = np.empty((len(palettes), k, 3))
+        weights = np.zeros((len(palettes), k))
+        for i, p in enumerate(palettes):
+            n = len(p)
+            jab[i, :n] = p.jab
+            jab[i, n:] = p.jab[0]
+            weights[i, :n] = p.weights
+        return cls(jab, weights)
+
+
+@dataclass(frozen=True, eq=False)
+class ScreenResult:
+    """Top partners of each product of side a among the products of side b.
+
+    Attributes
+    ----------
+    indices : ndarray of int, shape (n_a, k)
+        Row i lists indices into side b, best first. ``k = min(requested k, n_b)``.
+    raw : ndarray, shape (n_a, k)
+        Their raw scores: exact when ``exact`` is True, screened otherwise.
+    exact : bool
+        Whether ``raw`` (and the order) comes from the exact kernel.
+    candidates : int
+        How many screened candidates per product were re-scored exactly (0 when not exact).
+    rank : int
+        Rank of the factorised bin kernel used by the screen (0 for :func:`exact_top_k`).
+    truncation_bound : float
+        Largest change of any screened score caused by the rank truncation.
+    """
+
+    indices: np.ndarray
+    raw: np.ndarray
+    exact: bool
+    candidates: int
+    rank: int = 0
+    truncation_bound: float = 0.0
+
+
+def _shares(jab, grid):
+    """Bin indices and weights of each colour's soft assignment: (..., 6) each."""
+    jab = np.asarray(jab, dtype=float)
+    nh, nl = int(grid.hue_bins), int(grid.lightness_bins)
+    neutral = neutrality(jab, grid.neutral_threshold, grid.neutral_fade)
+    chroma = 1.0 - neutral
+    hue = np.degrees(np.arctan2(jab[..., 2], jab[..., 1])) % 360.0
+    hpos = hue / (360.0 / nh)
+    h0 = np.floor(hpos)
+    fh = hpos - h0
+    h0 = h0.astype(np.int64) % nh
+    h1 = (h0 + 1) % nh
+    lpos = np.clip(jab[..., 0], 0.0, 100.0) / (100.0 / (nl - 1))
+    l0 = np.minimum(np.floor(lpos).astype(np.int64), nl - 2)
+    fl = lpos - l0
+    l1 = l0 + 1
+    idx = np.stack(
+        [
+            h0 * nl + l0,
+            h0 * nl + l1,
+            h1 * nl + l0,
+            h1 * nl + l1,
+            grid.n_chromatic + l0,
+            grid.n_chromatic + l1,
+        ],
+        axis=-1,
+    )
+    share = np.stack(
+        [
+            chroma * (1 - fh) * (1 - fl),
+            chroma * (1 - fh) * fl,
+            chroma * fh * (1 - fl),
+            chroma * fh * fl,
+            neutral * (1 - fl),
+            neutral * fl,
+        ],
+        axis=-1,
+    )
+    return idx, share
+
+
+def _bin_colourfulness(stack, idx, w, grid):
+    """Weighted mean M' of the chromatic mass in each chromatic bin (NaN where a bin is empty)."""
+    m = np.hypot(stack.jab[..., 1], stack.jab[..., 2])
+    chrom = idx[..., :4].ravel()
+    cw = w[..., :4].ravel()
+    mass = np.bincount(chrom, weights=cw, minlength=grid.n_chromatic)
+    m_sum = np.bincount(chrom, weights=(w[..., :4] * m[..., None]).ravel(), minlength=grid.n_chromatic)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(mass > 0, m_sum / np.where(mass > 0, mass, 1.0), np.nan)
+
+
+def _weighted_shares(stack, grid):
+    idx, share = _shares(stack.jab, grid)
+    return idx, share * stack.weights[..., None]
+
+
+def _dense(idx, w, size):
+    n = idx.shape[0]
+    rows = np.broadcast_to(np.arange(n)[:, None, None], idx.shape)
+    flat = (rows * size + idx).ravel()
+    return np.bincount(flat, weights=w.ravel(), minlength=n * size).reshape(n, size)
+
+
+def histograms(palettes, grid=BinGrid()):
+    """Soft-binned histograms of palettes, and the mean colourfulness of each chromatic bin.
+
+    Parameters
+    ----------
+    palettes : sequence of Palette or PaletteStack
+    grid : BinGrid
+
+    Returns
+    -------
+    hist : ndarray, shape (n, grid.size)
+        Row i is palette i's weight spread over the bins; rows sum to 1.
+    bin_colourfulness : ndarray, shape (grid.n_chromatic,)
+        Weighted mean M' of the chromatic mass in each chromatic bin (NaN where the bin is empty).
+    """
+    stack = PaletteStack.from_palettes(palettes)
+    idx, w = _weighted_shares(stack, grid)
+    return _dense(idx, w, grid.size), _bin_colourfulness(stack, idx, w, grid)
+
+
+def bin_centres(grid=BinGrid(), bin_colourfulness=None):
+    """CAM02-UCS J'a'b' of every bin centre, shape (grid.size, 3), in histogram order.
+
+    ``bin_colourfulness`` (from :func:`histograms`) sets each chromatic centre's M'; it is raised
+    to at least the end of the neutral fade so a chromatic centre is fully chromatic.
+    """
+    nh, nl = int(grid.hue_bins), int(grid.lightness_bins)
+    hue = np.radians(np.repeat(grid.hue_centres_deg, nl))
+    j_chrom = np.tile(grid.lightness_centres, nh)
+    m = np.full(grid.n_chromatic, DEFAULT_CENTRE_COLOURFULNESS)
+    if bin_colourfulness is not None:
+        given = np.asarray(bin_colourfulness, dtype=float)
+        if given.shape != (grid.n_chromatic,):
+            raise ValueError(f"bin_colourfulness must have shape ({grid.n_chromatic},), got {given.shape}")
+        m = np.where(np.isfinite(given), given, m)
+    m = np.maximum(m, grid.fully_chromatic_colourfulness + 1e-6)
+    chrom = np.stack([j_chrom, m * np.cos(hue), m * np.sin(hue)], axis=-1)
+    grey = np.stack([grid.lightness_centres, np.zeros(nl), np.zeros(nl)], axis=-1)
+    return np.concatenate([chrom, grey], axis=0)
+
+
+def bin_kernel(kernel, centres_a, centres_b):
+    """K = kernel(centres_a, centres_b), checked to have shape (len(a), len(b)) and finite values."""
+    k = np.asarray(kernel(centres_a, centres_b), dtype=float)
+    want = (len(centres_a), len(centres_b))
+    if k.shape != want:
+        raise ValueError(f"kernel returned shape {k.shape}, expected {want}")
+    if not np.all(np.isfinite(k)):
+        raise ValueError("kernel returned non-finite values on the bin centres")
+    return k
+
+
+def _project(idx, w, factor, size, block):
+    """``histograms @ factor`` in row chunks of ``block`` palettes, as float32 (n, r)."""
+    n = idx.shape[0]
+    out = np.empty((n, factor.shape[1]), dtype=np.float32)
+    for r0 in range(0, n, block):
+        out[r0 : r0 + block] = _dense(idx[r0 : r0 + block], w[r0 : r0 + block], size) @ factor
+    return out
+
+
+@dataclass(frozen=True, eq=False)
+class _Prepared:
+    stack_a: PaletteStack
+    stack_b: PaletteStack
+    q: np.ndarray  # (n_a, r) float32: H_a U S
+    hb: np.ndarray  # (r, n_b) float32: V^T H_b^T
+    rank: int
+    bound: float  # largest |screened - bilinear-interpolated| from dropping singular values
+
+
+def _prepare(palettes_a, palettes_b, kernel, grid, rank_tol, block):
+    stack_a = PaletteStack.from_palettes(palettes_a)
+    stack_b = PaletteStack.from_palettes(palettes_b)
+    idx_a, w_a = _weighted_shares(stack_a, grid)
+    idx_b, w_b = _weighted_shares(stack_b, grid)
+    centres_a = bin_centres(grid, _bin_colourfulness(stack_a, idx_a, w_a, grid))
+    centres_b = bin_centres(grid, _bin_colourfulness(stack_b, idx_b, w_b, grid))
+    k = bin_kernel(kernel, centres_a, centres_b)
+    u, sv, vt = np.linalg.svd(k)
+    rank = max(1, int(np.count_nonzero(sv > rank_tol * sv[0]))) if sv[0] > 0 else 1
+    bound = float(sv[rank]) if rank < len(sv) else 0.0
+    q = _project(idx_a, w_a, u[:, :rank] * sv[:rank], grid.size, block)
+    hb = np.ascontiguousarray(_project(idx_b, w_b, vt[:rank].T, grid.size, block).T)
+    return _Prepared(stack_a, stack_b, q, hb, rank, bound)
+
+
+def screen_scores(palettes_a, palettes_b, kernel, grid=BinGrid(), rank_tol=1e-6):
+    """The full screened raw-score matrix ``H_a K H_b^T``, shape (n_a, n_b). For small inputs and
+    tests; :func:`screen_top_k` never builds it."""
+    prep = _prepare(palettes_a, palettes_b, kernel, grid, rank_tol, 4096)
+    return prep.q.astype(float) @ prep.hb.astype(float)
+
+
+def top_k_blocked(q, hb, k, block=2048):
+    """Indices of the k largest entries of each row of ``q @ hb``, computed tile by tile.
+
+    Parameters
+    ----------
+    q : ndarray, shape (n_a, d)
+    hb : ndarray, shape (d, n_b)
+    k : int
+        Clipped to n_b.
+    block : int
+        Tile side: at most ``block x block`` scores exist at any time, plus a running
+        ``block x 2k`` buffer of candidates.
+
+    Returns
+    -------
+    indices : ndarray of int64, shape (n_a, min(k, n_b))
+        Unordered within a row (ties at the k-th value are broken arbitrarily).
+    """
+    block = int(block)
+    if block < 1:
+        raise ValueError(f"block must be at least 1, got {block}")
+    n_a, n_b = q.shape[0], hb.shape[1]
+    k = min(int(k), n_b)
+    out = np.empty((n_a, k), dtype=np.int64)
+    if k == 0 or n_a == 0:
+        return out
+    for r0 in range(0, n_a, block):
+        qr = q[r0 : r0 + block]
+        best_val = best_idx = None
+        for c0 in range(0, n_b, block):
+            s = qr @ hb[:, c0 : c0 + block]
+            width = s.shape[1]
+            if width > k:
+                part = np.argpartition(s, width - k, axis=1)[:, width - k :]
+                vals = np.take_along_axis(s, part, axis=1)
+            else:
+                part = np.broadcast_to(np.arange(width), s.shape)
+                vals = s
+            idx = part + c0
+            if best_val is None:
+                best_val, best_idx = vals, idx
+                continue
+            vals = np.concatenate([best_val, vals], axis=1)
+            idx = np.concatenate([best_idx, idx], axis=1)
+            if vals.shape[1] > k:
+                keep = np.argpartition(vals, vals.shape[1] - k, axis=1)[:, vals.shape[1] - k :]
+                vals = np.take_along_axis(vals, keep, axis=1)
+                idx = np.take_along_axis(idx, keep, axis=1)
+            best_val, best_idx = vals, idx
+        out[r0 : r0 + qr.shape[0]] = best_idx
+    return out
+
+
+def exact_raw(palette_a, palettes_b, kernel):
+    """Exact raw scores of one palette against every palette of a stack, shape (n_b,).
+
+    One kernel call over all colours of side b, so this is the honest vectorised baseline.
+    """
+    stack_a = PaletteStack.from_palettes([palette_a]) if isinstance(palette_a, Palette) else palette_a
+    stack_b = PaletteStack.from_palettes(palettes_b)
+    ja, wa = stack_a.jab[0], stack_a.weights[0]
+    n_b, kb = stack_b.weights.shape
+    if n_b == 0:
+        return np.zeros(0)
+    kmat = np.asarray(kernel(ja, stack_b.jab.reshape(-1, 3)), dtype=float)
+    return ((wa @ kmat).reshape(n_b, kb) * stack_b.weights).sum(axis=1)
+
+
+def exact_raw_candidates(stack_a, stack_b, candidates, kernel, workers=1):
+    """Exact raw scores of each product of side a against its own candidates of side b.
+
+    Parameters
+    ----------
+    stack_a, stack_b : PaletteStack
+    candidates : ndarray of int, shape (n_a, c)
+        Indices into side b.
+    kernel : callable
+        Must be safe to call from several threads at once when ``workers > 1`` (a kernel made of
+        numpy operations is: numpy releases the interpreter lock inside its loops).
+    workers : int
+        Threads sharing the products; 1 computes in the calling thread.
+
+    Returns
+    -------
+    raw : ndarray, shape (n_a, c)
+    """
+    candidates = np.asarray(candidates)
+    n_a, c = candidates.shape
+    out = np.empty((n_a, c))
+    if c == 0 or n_a == 0:
+        return out
+    kb = stack_b.weights.shape[1]
+
+    def run(lo, hi):
+        for i in range(lo, hi):
+            cand = candidates[i]
+            kmat = np.asarray(kernel(stack_a.jab[i], stack_b.jab[cand].reshape(-1, 3)), dtype=float)
+            out[i] = ((stack_a.weights[i] @ kmat).reshape(c, kb) * stack_b.weights[cand]).sum(axis=1)
+
+    workers = max(1, min(int(workers), n_a))
+    if workers == 1:
+        run(0, n_a)
+        return out
+    bounds = np.linspace(0, n_a, workers + 1).astype(int)
+    with ThreadPoolExecutor(max_workers=workers) as pool:
+        for f in [pool.submit(run, lo, hi) for lo, hi in zip(bounds[:-1], bounds[1:])]:
+            f.result()
+    return out
+
+
+def _order(indices, raw, k):
+    """Sort each row by raw score descending, ties by index ascending; keep the first k."""
+    rows = np.arange(indices.shape[0])[:, None]
+    # lexsort sorts along the last axis by the last key first.
+    perm = np.lexsort((indices, -raw))
+    return indices[rows, perm][:, :k], raw[rows, perm][:, :k]
+
+
+def exact_top_k(palettes_a, palettes_b, kernel, k=10):
+    """The exact top-k of every product of side a: the baseline the screen is measured against.
+
+    Returns a :class:`ScreenResult` with ``exact=True``; cost is one kernel call per product of
+    side a over all colours of side b.
+    """
+    stack_a = PaletteStack.from_palettes(palettes_a)
+    stack_b = PaletteStack.from_palettes(palettes_b)
+    n_a, n_b = len(stack_a), len(stack_b)
+    k = min(int(k), n_b)
+    idx = np.empty((n_a, k), dtype=np.int64)
+    raw = np.empty((n_a, k))
+    for i in range(n_a):
+        row = exact_raw(PaletteStack(stack_a.jab[i : i + 1], stack_a.weights[i : i + 1]), stack_b, kernel)
+        ii, rr = _order(np.arange(n_b)[None, :], row[None, :], k)
+        idx[i], raw[i] = ii[0], rr[0]
+    return ScreenResult(indices=idx, raw=raw, exact=True, candidates=n_b)
+
+
+def screen_top_k(palettes_a, palettes_b, kernel, k=10, *, candidates=None, grid=BinGrid(),
+                 block=2048, exact=True, rank_tol=1e-6, workers=1):
+    """Top-k partners in side b of every product of side a, by the screen and an exact re-rank.
+
+    Parameters
+    ----------
+    palettes_a, palettes_b : sequence of Palette or PaletteStack
+        Side a is the oriented first category of the kernel.
+    kernel : callable
+        ``kernel(jab_a (n, 3), jab_b (m, 3)) -> (n, m)`` raw kernel per colour pair, e.g.
+        :meth:`harmony.rules.PairRules.kernel`.
+    k : int
+        Partners per product (clipped to the size of side b).
+    candidates : int, optional
+        Screened candidates per product that are re-scored exactly; default ``2 * k``.
+    grid : BinGrid
+    block : int
+        Tile side of the blocked product; memory is O(block^2 + block * candidates) on top of the
+        (n_a + n_b) x rank factors.
+    exact : bool
+        Re-score the candidates with the exact kernel (default). False returns the screened
+        top-k and screened scores.
+    rank_tol : float
+        Singular values of K below ``rank_tol`` times the largest are dropped (see Notes).
+    workers : int
+        Threads for the exact re-rank.
+
+    Returns
+    -------
+    ScreenResult
+        Rows sorted best first; ties by lower index.
+
+    Notes
+    -----
+    K is factorised once by its singular value decomposition, ``K = U S V^T``, and the screen
+    computes ``(H_a U_r S_r)(V_r^T H_b^T)`` with the r singular values above the tolerance. Since
+    every histogram has unit 1-norm (so 2-norm at most 1), dropping the rest changes any screened
+    score by at most the largest dropped singular value (reported as ``truncation_bound``).
+    """
+    k = int(k)
+    if k < 1:
+        raise ValueError(f"k must be at least 1, got {k}")
+    c = 2 * k if candidates is None else int(candidates)
+    if c < k:
+        raise ValueError(f"candidates ({c}) must be at least k ({k})")
+    prep = _prepare(palettes_a, palettes_b, kernel, grid, rank_tol, max(int(block), 1))
+    n_b = len(prep.stack_b)
+    k_eff = min(k, n_b)
+    cand = top_k_blocked(prep.q, prep.hb, c if exact else k, block=block)
+    if exact:
+        raw = exact_raw_candidates(prep.stack_a, prep.stack_b, cand, kernel, workers=workers)
+    else:
+        raw = np.empty(cand.shape)
+        for r0 in range(0, cand.shape[0], block):
+            rows = slice(r0, r0 + block)
+            raw[rows] = np.einsum(
+                "ir,ric->ic", prep.q[rows].astype(float), prep.hb[:, cand[rows]].astype(float)
+            )
+    idx, raw = _order(cand, raw, k_eff)
+    return ScreenResult(
+        indices=idx,
+        raw=raw,
+        exact=bool(exact),
+        candidates=cand.shape[1] if exact else 0,
+        rank=prep.rank,
+        truncation_bound=prep.bound,
+    )
