@@ -1,0 +1,310 @@
+"""Interaction logs: read and validate the sessions in which shoppers looked at and bought products.
+
+A log is a CSV file with a header row, or a JSONL file with one JSON object per line. Each row
+holds one interaction:
+
+``session`` (or ``user``)
+    who interacted; products that share a session were combined by the same shopper.
+``product``
+    the product id, as in the catalogue.
+``event``
+    ``view``, ``cart`` or ``purchase`` (any case); :data:`DEFAULT_EVENT_WEIGHTS` gives each a
+    weight, and a caller may pass other weights (a weight of 0 ignores that kind of event).
+``timestamp`` (optional)
+    ISO 8601 (``2026-03-01T10:15:00Z``) or seconds since the Unix epoch; kept for ordering.
+
+Other columns are ignored. Every problem is reported with the file and line; ids that are not in
+the catalogue are not an error (logs outlive products) but are counted and reported.
+"""
+
+import csv
+import json
+import math
+from collections import Counter
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from pathlib import Path
+
+from .errors import EventsError
+
+__all__ = [
+    "DEFAULT_EVENT_WEIGHTS",
+    "Event",
+    "EventLog",
+    "read_events",
+    "parse_event_weights",
+]
+
+#: Weight of each kind of interaction: a purchase says more than a view. A choice of this project,
+#: not a published value (common practice is only that deeper funnel steps weigh more); callers
+#: override it with ``weights=`` (the CLI with ``--event-weight purchase=5``).
+DEFAULT_EVENT_WEIGHTS = {"view": 1.0, "cart": 3.0, "purchase": 5.0}
+
+#: At most this many row problems are named in one error message (the count says how many more).
+_MAX_PROBLEMS_SHOWN = 5
+
+
+@dataclass(frozen=True)
+class Event:
+    """One interaction of a log, with the line it came from."""
+
+    session: str
+    product: str
+    event: str
+    weight: float
+    timestamp: float | None
+    line: int
+
+
+@dataclass(frozen=True)
+class EventLog:
+    """A validated interaction log.
+
+    Attributes
+    ----------
+    path : str
+        The file read.
+    events : tuple of Event
+        Every valid interaction whose product is known (all of them when no catalogue was given)
+        and whose weight is above 0, in file order.
+    rows : int
+        Number of data rows in the file.
+    unknown : tuple of (str, int)
+        Product ids not in the catalogue with the number of rows that named them, most frequent
+        first; their rows are left out of ``events``.
+    ignored : int
+        Rows left out because their kind of event has weight 0.
+    """
+
+    path: str
+    events: tuple
+    rows: int
+    unknown: tuple = ()
+    ignored: int = 0
+    weights: dict = field(default_factory=lambda: dict(DEFAULT_EVENT_WEIGHTS))
+
+    @property
+    def unknown_rows(self):
+        """Rows that named a product id not in the catalogue."""
+        return sum(n for _, n in self.unknown)
+
+    def sessions(self):
+        """Each session's products with the strongest weight the session gave each of them.
+
+        Returns
+        -------
+        dict of str to dict of str to float
+            ``{session: {product: weight}}``, sessions and products in order of first appearance.
+        """
+        out = {}
+        for ev in self.events:
+            products = out.setdefault(ev.session, {})
+            if ev.weight > products.get(ev.product, -math.inf):
+                products[ev.product] = ev.weight
+        return out
+
+    def counts(self):
+        """Number of kept events of each kind, ``{"view": n, ...}``."""
+        return dict(Counter(ev.event for ev in self.events))
+
+
+def parse_event_weights(items, where="--event-weight"):
+    """Turn ``["purchase=5", "view=0.5"]`` into a full weight table over :data:`DEFAULT_EVENT_WEIGHTS`.
+
+    Raises
+    ------
+    EventsError
+        For an item without ``=``, an unknown kind, or a weight that is not a finite number >= 0.
+    """
+    weights = dict(DEFAULT_EVENT_WEIGHTS)
+    for item in items:
+        name, sep, value = str(item).partition("=")
+        name = name.strip().casefold()
+        if not sep:
+            raise EventsError(f"{where}: expected KIND=WEIGHT, got {item!r}")
+        if name not in weights:
+            raise EventsError(f"{where}: unknown event kind {name!r} (known: {', '.join(sorted(weights))})")
+        try:
+            weights[name] = float(value)
+        except ValueError:
+            raise EventsError(f"{where}: weight of {name!r} is not a number: {value!r}") from None
+    _check_weights(weights, where)
+    return weights
+
+
+def _check_weights(weights, where):
+    for name, w in weights.items():
+        if not isinstance(w, (int, float)) or not math.isfinite(w) or w < 0:
+            raise EventsError(f"{where}: weight of {name!r} must be a finite number >= 0, got {w!r}")
+    if not any(w > 0 for w in weights.values()):
+        raise EventsError(f"{where}: every event weight is 0, nothing would be left to evaluate")
+
+
+def _parse_timestamp(value):
+    """Seconds since the epoch from ISO 8601 text or a number; naive times are taken as UTC."""
+    if value is None:
+        return None
+    if isinstance(value, bool):
+        raise ValueError("timestamp must be ISO 8601 text or a number")
+    if isinstance(value, (int, float)):
+        out = float(value)
+    else:
+        text = str(value).strip()
+        if not text:
+            return None
+        try:
+            out = float(text)
+        except ValueError:
+            try:
+                moment = datetime.fromisoformat(text)
+            except ValueError:
+                raise ValueError(f"timestamp {text!r} is neither ISO 8601 nor a number") from None
+            if moment.tzinfo is None:
+                moment = moment.replace(tzinfo=timezone.utc)
+            out = moment.timestamp()
+    if not math.isfinite(out):
+        raise ValueError(f"timestamp {value!r} is not finite")
+    return out
+
+
+def _csv_rows(path):
+    with open(path, newline="", encoding="utf-8-sig") as handle:
+        reader = csv.DictReader(handle)
+        if reader.fieldnames is None:
+            raise EventsError(f"{path}: empty file, expected a header row")
+        header = [str(h).strip().casefold() for h in reader.fieldnames]
+        reader.fieldnames = header
+        _check_header(path, header)
+        for row in reader:
+            if None in row:
+                yield reader.line_num, {"__error__": "more fields than the header has"}
+                continue
+            yield reader.line_num, row
+
+
+def _jsonl_rows(path):
+    with open(path, encoding="utf-8-sig") as handle:
+        for number, text in enumerate(handle, start=1):
+            if not text.strip():
+                continue
+            try:
+                obj = json.loads(text)
+            except json.JSONDecodeError as exc:
+                yield number, {"__error__": f"not JSON: {exc.msg}"}
+                continue
+            if not isinstance(obj, dict):
+                yield number, {"__error__": "expected a JSON object"}
+                continue
+            yield number, {str(k).casefold(): v for k, v in obj.items()}
+
+
+def _check_header(path, header):
+    missing = []
+    if "session" not in header and "user" not in header:
+        missing.append("session (or user)")
+    missing += [name for name in ("product", "event") if name not in header]
+    if missing:
+        raise EventsError(f"{path}: header lacks column {', '.join(missing)} (has: {', '.join(header)})")
+
+
+def _text(value):
+    if value is None or isinstance(value, (dict, list, bool)):
+        return ""
+    if isinstance(value, float) and value.is_integer():
+        value = int(value)
+    return str(value).strip()
+
+
+def read_events(path, weights=None, known_products=None):
+    """Read and validate an interaction log (CSV, or JSONL for ``.jsonl``/``.ndjson``/``.json``).
+
+    Parameters
+    ----------
+    path : str or Path
+        The log file.
+    weights : mapping of str to float, optional
+        Weight of each event kind; kinds not in the mapping are errors. Default
+        :data:`DEFAULT_EVENT_WEIGHTS`.
+    known_products : collection of str, optional
+        The catalogue's product ids. Rows naming other ids are counted in ``EventLog.unknown``
+        and left out.
+
+    Returns
+    -------
+    EventLog
+
+    Raises
+    ------
+    EventsError
+        When the file is missing or unreadable, lacks a required column, has no data rows, or has
+        rows with an empty session or product, an unknown event kind or a bad timestamp. The
+        message names the file and the line of each bad row (the first few, and how many in all).
+    """
+    path = Path(path)
+    weights = {str(k).casefold(): v for k, v in (DEFAULT_EVENT_WEIGHTS if weights is None else weights).items()}
+    _check_weights(weights, str(path))
+    if not path.is_file():
+        raise EventsError(f"{path}: no such file")
+    suffix = path.suffix.casefold()
+    if suffix == ".csv":
+        rows = _csv_rows(path)
+    elif suffix in (".jsonl", ".ndjson", ".json"):
+        rows = _jsonl_rows(path)
+    else:
+        raise EventsError(f"{path}: unknown log format {path.suffix!r}, expected .csv or .jsonl")
+
+    known = None if known_products is None else set(known_products)
+    events, problems, unknown = [], [], Counter()
+    n_rows = ignored = 0
+    try:
+        for line, row in rows:
+            n_rows += 1
+            if "__error__" in row:
+                problems.append(f"line {line}: {row['__error__']}")
+                continue
+            session = _text(row.get("session")) or _text(row.get("user"))
+            product = _text(row.get("product"))
+            kind = _text(row.get("event")).casefold()
+            if not session:
+                problems.append(f"line {line}: empty session (or user)")
+                continue
+            if not product:
+                problems.append(f"line {line}: empty product")
+                continue
+            if kind not in weights:
+                problems.append(f"line {line}: event {kind!r} is not one of {', '.join(sorted(weights))}")
+                continue
+            try:
+                stamp = _parse_timestamp(row.get("timestamp"))
+            except ValueError as exc:
+                problems.append(f"line {line}: {exc}")
+                continue
+            if known is not None and product not in known:
+                unknown[product] += 1
+                continue
+            if weights[kind] <= 0:
+                ignored += 1
+                continue
+            events.append(Event(session, product, kind, float(weights[kind]), stamp, line))
+    except UnicodeDecodeError as exc:
+        raise EventsError(f"{path}: not UTF-8 text ({exc.reason} at byte {exc.start})") from None
+    except csv.Error as exc:
+        raise EventsError(f"{path}: not a readable CSV file: {exc}") from None
+    except OSError as exc:
+        raise EventsError(f"{path}: cannot read: {exc.strerror or exc}") from None
+
+    if problems:
+        shown = "; ".join(problems[:_MAX_PROBLEMS_SHOWN])
+        more = len(problems) - _MAX_PROBLEMS_SHOWN
+        tail = f"; and {more} more" if more > 0 else ""
+        raise EventsError(f"{path}: {len(problems)} bad row{'s' if len(problems) != 1 else ''}: {shown}{tail}")
+    if n_rows == 0:
+        raise EventsError(f"{path}: no interactions in the file")
+    return EventLog(
+        path=str(path),
+        events=tuple(events),
+        rows=n_rows,
+        unknown=tuple(sorted(unknown.items(), key=lambda kv: (-kv[1], kv[0]))),
+        ignored=ignored,
+        weights=dict(weights),
+    )
