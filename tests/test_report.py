@@ -1,0 +1,312 @@
+import json
+import re
+import xml.etree.ElementTree as ET
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+
+from harmony import colour
+from harmony.catalogue import Product
+from harmony.errors import HarmonyError
+from harmony.palette import Palette
+from harmony.report import (
+    LOW_CONFIDENCE,
+    gather_report,
+    read_bundles,
+    read_feed,
+    render_report,
+    thumbnail_data_uri,
+    write_report,
+)
+from harmony.rules import load_rules
+from harmony.safety import surface_lrv
+from harmony.svg import WheelLink, hue_wheel_svg, palette_strip_svg, wheel_position
+
+SVG = "{http://www.w3.org/2000/svg}"
+
+
+def _pal(srgb255, weights, **kw):
+    jab = colour.srgb1_to_jab(np.asarray(srgb255, dtype=float) / 255.0)
+    return Palette(jab=jab, weights=weights, **kw)
+
+
+@pytest.fixture(scope="module")
+def photos(tmp_path_factory):
+    """Real photographs no one here made: scikit-image's sample images, saved as JPEG files."""
+    from PIL import Image
+    from skimage import data
+
+    folder = tmp_path_factory.mktemp("photos")
+    out = {}
+    for name in ("coffee", "chelsea", "astronaut"):
+        path = folder / f"{name}.jpg"
+        Image.fromarray(getattr(data, name)()).save(path, quality=85)
+        out[name] = path
+    return out
+
+
+@pytest.fixture(scope="module")
+def shop(photos):
+    # Invented demo data, for layout only: a sofa, a rug, an armchair, a coffee table.
+    products = [
+        Product(id="s1", category="sofa", price=899.0, stock=3, title="Low sofa <b>Nord</b>", currency="EUR"),
+        Product(id="r1", category="rug", price=149.5, stock=None, title="Flat-weave rug", currency="EUR"),
+        Product(id="a1", category="armchair", price=320.0, stock=0, title="Reading chair", currency="EUR"),
+        Product(id="t1", category="coffee table", price=210.0, stock=5, title="Oak table", currency="EUR"),
+        Product(id="x9", category="cushion", price=25.0, stock=9, title="Cushion & co", currency="EUR"),
+    ]
+    palettes = {
+        "s1": _pal([[120, 130, 150], [200, 196, 188], [60, 60, 64]], [0.6, 0.3, 0.1], sha256="a" * 64),
+        "r1": _pal([[125, 128, 140], [180, 60, 40]], [0.8, 0.2]),
+        "a1": _pal([[170, 90, 50], [240, 236, 228]], [0.7, 0.3], scene=True, confidence=0.3),
+        "t1": _pal([[150, 110, 70]], [1.0]),
+    }
+    images = {"s1": photos["coffee"], "r1": photos["chelsea"], "a1": photos["astronaut"], "t1": None}
+    failures = [("x9", "images/x9.jpg", "cannot identify image file")]
+    return products, palettes, images, failures
+
+
+def _feed_rows():
+    return [
+        {"product": "s1", "category": "sofa", "partner": "r1", "partner_category": "rug", "rank": 1,
+         "score": 0.81, "reason": "The rug's slate <grey> echoes the sofa."},
+        {"product": "r1", "category": "rug", "partner": "s1", "partner_category": "sofa", "rank": 1,
+         "score": 0.81, "reason": "The same pair the other way: <grey> again."},
+        {"product": "s1", "category": "sofa", "partner": "t1", "partner_category": "coffee table", "rank": 1,
+         "score": 0.64, "reason": "Warm oak against a cool blue."},
+    ]
+
+
+def _bundle_json():
+    return {
+        "room": "living <room>", "budget": 1500.0, "currency": "EUR", "exact": True,
+        "pool_sizes": {"sofa": 1, "rug": 1, "table": 1},
+        "bundles": [{
+            "score": 0.72, "total_price": 1258.5,
+            "items": [{"slot": "sofa", "id": "s1", "quantity": 1, "price": 899.0},
+                      {"slot": "rug", "id": "r1", "quantity": 1, "price": 149.5},
+                      {"slot": "table", "id": "t1", "quantity": 1, "price": 210.0}],
+            "pairs": [{"a": "sofa", "b": "rug", "score": 0.81, "weight": 2.0},
+                      {"a": "sofa", "b": "table", "score": 0.64, "weight": 1.0}],
+            "proportions": {"sixty_thirty_ten": 0.12, "matsuda_template": "V"},
+        }],
+    }
+
+
+@pytest.fixture(scope="module")
+def report(shop, tmp_path_factory):
+    products, palettes, images, failures = shop
+    path = tmp_path_factory.mktemp("b") / "living.json"
+    path.write_text(json.dumps(_bundle_json()))
+    data = gather_report(products, palettes, images, failures, _feed_rows(), [read_bundles(path)],
+                         rules=load_rules(), title="Test shop <i>")
+    return data, render_report(data)
+
+
+# ------------------------------------------------------------------------------------------ svg
+
+
+def test_strip_segment_widths_are_the_weights():
+    pal = _pal([[200, 30, 30], [30, 200, 30], [30, 30, 200]], [0.5, 0.3, 0.2])
+    root = ET.fromstring(palette_strip_svg(pal, width=200, height=10))
+    rects = root.findall(f"{SVG}rect")
+    widths = [float(r.get("width")) for r in rects]
+    assert widths == pytest.approx([100.0, 60.0, 40.0])
+    xs = [float(r.get("x")) for r in rects]
+    assert xs == pytest.approx([0.0, 100.0, 160.0])
+    assert [r.get("fill") for r in rects] == pal.hex
+
+
+def test_strip_escapes_its_label():
+    pal = _pal([[10, 10, 10]], [1.0])
+    text = palette_strip_svg(pal, label='a "<script>" & b')
+    assert "<script>" not in text
+    assert ET.fromstring(text).get("aria-label") == 'a "<script>" & b'
+
+
+def test_wheel_places_hue_as_angle_and_colourfulness_as_radius():
+    # Gold: colour-science's independent CAM02-UCS conversion gives the hue angle and M'.
+    cs = pytest.importorskip("colour")
+    srgb = np.array([[0.8, 0.2, 0.2], [0.2, 0.3, 0.8], [0.3, 0.7, 0.3]])
+    xyz = cs.sRGB_to_XYZ(srgb)
+    vc = cs.VIEWING_CONDITIONS_CIECAM02["Average"]
+    jab = cs.XYZ_to_CAM02UCS(xyz, XYZ_w=cs.xy_to_XYZ(cs.CCS_ILLUMINANTS["CIE 1931 2 Degree Standard Observer"]["D65"]),
+                             L_A=64 / np.pi * 0.2, Y_b=20.0, surround=vc)
+    expected_h = np.degrees(np.arctan2(jab[:, 2], jab[:, 1])) % 360
+    expected_m = np.hypot(jab[:, 1], jab[:, 2])
+    offsets = wheel_position(colour.srgb1_to_jab(srgb), radius=100.0, max_colourfulness=100.0)
+    got_h = np.degrees(np.arctan2(-offsets[:, 1], offsets[:, 0])) % 360  # screen y points down
+    assert got_h == pytest.approx(expected_h, abs=0.5)
+    assert np.hypot(*offsets.T) == pytest.approx(expected_m, abs=0.1)
+
+
+def test_wheel_puts_neutrals_in_the_centre_and_draws_links():
+    pal_a = _pal([[128, 128, 128], [200, 40, 40]], [0.5, 0.5])
+    pal_b = _pal([[40, 40, 200], [250, 250, 250]], [0.7, 0.3])
+    text = hue_wheel_svg(pal_a, pal_b, [WheelLink(1, 0, "complement <x>", 0.2), WheelLink(0, 1, "clash", -0.1)],
+                         size=200)
+    root = ET.fromstring(text)
+    c = 100.0
+    dots_a = root.findall(f"{SVG}circle[@class='dot-a']")
+    assert len(dots_a) == 2
+    grey = dots_a[0]
+    assert np.hypot(float(grey.get("cx")) - c, float(grey.get("cy")) - c) < 10
+    red = dots_a[1]
+    assert np.hypot(float(red.get("cx")) - c, float(red.get("cy")) - c) > 30
+    assert len(root.findall(f"{SVG}path[@class='dot-b']")) == 2
+    links = root.findall(f"{SVG}path[@class='link']")
+    assert len(links) == 2
+    assert links[0].find(f"{SVG}title").text.startswith("complement <x>")
+    assert links[1].get("stroke-dasharray")  # a clash is dashed
+    assert "<x>" not in text
+
+
+def test_wheel_rejects_a_link_outside_the_palettes():
+    pal = _pal([[10, 10, 10]], [1.0])
+    with pytest.raises(ValueError, match=r"link \(0, 3\) lies outside"):
+        hue_wheel_svg(pal, pal, [WheelLink(0, 3)])
+
+
+# ------------------------------------------------------------------------------------ gathering
+
+
+def test_gather_flags_scene_low_confidence_and_failures(report):
+    data, _ = report
+    flags = {(f.product_id, f.kind) for f in data.flagged}
+    assert ("a1", "room scene") in flags
+    assert ("a1", "low confidence") in flags and 0.3 < LOW_CONFIDENCE
+    assert ("x9", "extraction failed") in flags
+    assert ("x9", "no palette") not in flags  # the failure explains it
+    assert [f.kind for f in data.flagged][0] == "extraction failed"
+
+
+def test_gather_picks_one_suggestion_per_pair(report):
+    data, _ = report
+    pairs = [frozenset((s.product.id, s.partner.id)) for s in data.suggestions]
+    assert len(pairs) == len(set(pairs)) == 2
+    assert data.suggestions[0].score >= data.suggestions[1].score
+    # The links come from the exact pair score under the rules file.
+    assert data.suggestions[0].links and all(len(link) == 4 for link in data.suggestions[0].links)
+
+
+def test_gather_cautions_on_rug_close_in_lrv_to_the_sofa(report, shop):
+    data, _ = report
+    _, palettes, _, _ = shop
+    # The rug and the sofa are both mid greys: their LRVs are close (computed independently here).
+    diff = abs(surface_lrv(palettes["r1"]) - surface_lrv(palettes["s1"]))
+    assert diff < 30
+    found = {(c.rug.id, c.other.id) for c in data.cautions}
+    assert ("r1", "s1") in found
+    for c in data.cautions:
+        assert c.difference < c.required == 30.0
+
+
+def test_gather_bundle_totals_and_proportions(report):
+    data, _ = report
+    (b,) = data.bundles
+    assert b.total_price == pytest.approx(sum(it.line_total for it in b.items))
+    assert dict(b.proportions)["matsuda template"] == "V"
+    assert b.wheel  # drawn for the pair that weighs most
+    assert "sofa with rug" in b.wheel_caption
+
+
+def test_gather_rejects_unknown_ids(shop, tmp_path):
+    products, palettes, images, failures = shop
+    bad = dict(_feed_rows()[0], partner="nope")
+    with pytest.raises(HarmonyError, match="unknown product id 'nope'"):
+        gather_report(products, palettes, feed_rows=[bad], thumbnails=False)
+    data = _bundle_json()
+    data["bundles"][0]["items"][0]["id"] = "ghost"
+    path = tmp_path / "b.json"
+    path.write_text(json.dumps(data))
+    with pytest.raises(HarmonyError, match=r"b.json: bundles\[0\].items\[0\].id: unknown product id 'ghost'"):
+        gather_report(products, palettes, bundle_results=[read_bundles(path)], thumbnails=False)
+
+
+# ------------------------------------------------------------------------------------ rendering
+
+
+def test_render_escapes_every_user_string(report):
+    _, html = report
+    assert "<b>Nord</b>" not in html and "&lt;b&gt;Nord&lt;/b&gt;" in html
+    assert "&lt;grey&gt;" in html
+    assert "living &lt;room&gt;" in html
+    assert "Test shop &lt;i&gt;" in html
+    assert "Cushion &amp; co" in html
+    assert "<script" not in html.lower()
+
+
+def test_render_is_self_contained(report):
+    _, html = report
+    # No external resources: every src is a data URI, no stylesheet links, no scripts.
+    srcs = re.findall(r'src="([^"]*)"', html)
+    assert srcs and all(s.startswith("data:image/jpeg;base64,") for s in srcs)
+    assert "<link" not in html and "http://" not in html.replace('xmlns="http://www.w3.org/2000/svg"', "")
+    assert "https://" not in html
+
+
+def test_render_shows_every_section(report):
+    _, html = report
+    for marker in ('id="cautions"', 'id="suggestions"', 'id="bundles"', 'id="catalogue"', 'id="flagged"',
+                   'id="rules"', 'class="card product"', 'class="strip"', 'class="wheel"', "set 1",
+                   "1,258.50 EUR", "BS 8300-2:2018", "default.toml"):
+        assert marker in html, marker
+    assert html.count('class="card product"') == 5
+
+
+def test_thumbnail_of_a_missing_or_broken_file_is_empty(tmp_path, photos):
+    assert thumbnail_data_uri(tmp_path / "missing.jpg") == ""
+    broken = tmp_path / "broken.jpg"
+    broken.write_bytes(b"not an image")
+    assert thumbnail_data_uri(broken) == ""
+    assert thumbnail_data_uri(photos["coffee"]).startswith("data:image/jpeg;base64,")
+
+
+def test_write_report(report, tmp_path):
+    data, html = report
+    out = write_report(data, tmp_path / "sub" / "r.html")
+    assert out.read_text(encoding="utf-8") == html
+
+
+# ---------------------------------------------------------------------------------- bad inputs
+
+
+@pytest.mark.parametrize(
+    "text, message",
+    [
+        ("{not json\n", r"f.jsonl:1: not JSON"),
+        ('{"product": "a"}\n', r"f.jsonl:1: feed row lacks key 'category'"),
+        ("\n[1, 2]\n", r"f.jsonl:2: a feed row must be a JSON object"),
+        ('{"product": "a", "category": "c", "partner": "b", "partner_category": "d", "rank": 1, '
+         '"score": "high", "reason": ""}\n', r"f.jsonl:1: score and rank must be numbers"),
+    ],
+)
+def test_read_feed_errors(tmp_path, text, message):
+    path = tmp_path / "f.jsonl"
+    path.write_text(text)
+    with pytest.raises(HarmonyError, match=message):
+        read_feed(path)
+
+
+def test_read_feed_missing_file(tmp_path):
+    with pytest.raises(HarmonyError, match="nope.jsonl: cannot read feed"):
+        read_feed(tmp_path / "nope.jsonl")
+
+
+@pytest.mark.parametrize(
+    "data, message",
+    [
+        ([], r"bundle JSON must be an object"),
+        ({"room": "x"}, r"bundles: missing or not a list"),
+        ({"bundles": [{"score": 1, "total_price": 2, "items": []}]}, r"bundles\[0\].items: missing or empty"),
+        ({"bundles": [{"score": "a", "total_price": 2, "items": []}]}, r"bundles\[0\].score: missing or not a number"),
+        ({"bundles": [{"score": 1, "total_price": 2, "items": [{"id": "a", "quantity": 1}]}]},
+         r"bundles\[0\].items\[0\].price: missing or not a number"),
+    ],
+)
+def test_read_bundles_errors(tmp_path, data, message):
+    path = tmp_path / "b.json"
+    path.write_text(json.dumps(data))
+    with pytest.raises(HarmonyError, match=message):
+        read_bundles(path)
