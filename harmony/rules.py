@@ -451,6 +451,10 @@ class RuleSet:
         self._cache[key] = out
         return out
 
+    def default_rules(self):
+        """The :class:`PairRules` of the ``[default]`` section, with empty category names."""
+        return self._build(self.default, "", "", flip=False)
+
     def pairs_with(self, cat_a, cat_b):
         """Whether products of these two categories are scored together (never the same category)."""
         a, b = _normalise_category(cat_a), _normalise_category(cat_b)

@@ -1,0 +1,47 @@
+"""``harmony rules check FILE...`` and ``harmony rules show FILE --out FILE.png``."""
+
+import click
+
+from . import main
+from ..errors import RulesError
+from ..rules import load_rules
+
+
+@main.group("rules")
+def rules_group():
+    """Validate rules files and draw what their hue rules mean."""
+
+
+@rules_group.command("check")
+@click.argument("files", nargs=-1, required=True, type=click.Path(dir_okay=False))
+def check(files):
+    """Validate each rules FILE; print every problem as FILE:LINE: key: reason."""
+    bad = 0
+    for path in files:
+        try:
+            rule_set = load_rules(path)
+        except RulesError as exc:
+            bad += 1
+            for problem in getattr(exc, "problems", (str(exc),)):
+                click.echo(f"error: {problem}", err=True)
+            continue
+        click.echo(f"{path}: ok ({len(rule_set.rules)} rules, {len(rule_set.pairs)} pair sections)")
+    if bad:
+        raise SystemExit(2)
+
+
+@rules_group.command("show")
+@click.argument("file", type=click.Path(dir_okay=False))
+@click.option("--out", "out", required=True, type=click.Path(dir_okay=False), help="PNG file to write.")
+@click.option("--reference-hue", default=40.0, show_default=True, type=click.FloatRange(0.0, 360.0, max_open=True),
+              help="CAM02-UCS hue of the first colour, at the top of each wheel.")
+def show(file, out, reference_hue):
+    """Draw each hue rule of FILE, and each pair section's sum of them, around a hue wheel."""
+    from ..wheel import draw_hue_rules
+
+    rule_set = load_rules(file)
+    try:
+        panels = draw_hue_rules(rule_set, out, reference_hue=reference_hue)
+    except OSError as exc:
+        raise RulesError(f"{out}: cannot write the picture: {exc.strerror or exc}") from None
+    click.echo(f"{out}: {len(panels)} wheels")
