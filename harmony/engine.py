@@ -1,0 +1,368 @@
+"""Palette extraction over a whole catalogue, on local processes or on a Dask cluster.
+
+A run reads the catalogue, hashes every image (reusing the stored hash when a file's size and
+modification time are unchanged), replaces the store's products, and extracts only images whose
+hash has neither a palette nor a recorded failure under the current settings. The images to do
+are split into chunks; each finished chunk is written to the store in one transaction, so an
+interrupted run keeps every finished chunk and the next run does the rest.
+
+Both engines run the same chunk function: ``"local"`` on a
+:class:`concurrent.futures.ProcessPoolExecutor`, ``"dask"`` through a
+:class:`distributed.Client` (a :class:`distributed.LocalCluster` when no scheduler address is
+given). Dask workers read the images by path, so they must see the same files (shared storage).
+"""
+
+import dataclasses
+import hashlib
+import math
+import os
+import sys
+import time
+from concurrent.futures import ProcessPoolExecutor, as_completed
+from pathlib import Path
+
+from tqdm import tqdm
+
+from .catalogue import Catalogue, read_catalogue
+from .errors import CatalogueError, HarmonyError, ImageError
+from .store import FileHash, Store
+
+__all__ = [
+    "ExtractionSummary",
+    "ENGINES",
+    "MAX_CHUNK",
+    "SCHEDULER_TIMEOUT",
+    "DEFAULT_DB_NAME",
+    "run_extraction",
+    "hash_images",
+    "plan_chunks",
+    "extract_chunk",
+]
+
+ENGINES = ("local", "dask")
+#: Name of the store file beside the catalogue when no path is given.
+DEFAULT_DB_NAME = "harmony.db"
+#: Upper bound of images per chunk: at most this much work is lost when a run is killed.
+MAX_CHUNK = 32
+#: Seconds to wait for a Dask scheduler given by address.
+SCHEDULER_TIMEOUT = 30
+
+
+@dataclasses.dataclass(frozen=True)
+class ExtractionSummary:
+    """What one extraction run did.
+
+    Attributes
+    ----------
+    products : int
+        Valid products in the catalogue (now in the store).
+    images : int
+        Distinct images (by content hash) of those products, plus unreadable files.
+    new : int
+        Images extracted in this run.
+    cached : int
+        Images whose palette (or failure) an earlier run had already stored.
+    failed : int
+        Images that failed in this run (unreadable, undecodable, nothing left after masking...).
+    scene_only : int
+        Products whose chosen palette comes from a room-scene photo (low confidence).
+    no_palette : int
+        Products left with no palette at all.
+    skipped_rows : int
+        Catalogue rows skipped because of problems.
+    seconds : float
+        Wall-clock time of the whole run.
+    engine : str
+    workers : int
+    db_path : pathlib.Path
+    """
+
+    products: int
+    images: int
+    new: int
+    cached: int
+    failed: int
+    scene_only: int
+    no_palette: int
+    skipped_rows: int
+    seconds: float
+    engine: str
+    workers: int
+    db_path: Path
+
+    def line(self):
+        """The summary as one line for people."""
+        return (
+            f"{self.products} products, {self.images} images: {self.new} new, {self.cached} cached, "
+            f"{self.failed} failed, {self.scene_only} scene-only, {self.no_palette} without palette, "
+            f"{self.skipped_rows} rows skipped; {self.seconds:.1f} s ({self.engine}, {self.workers} workers)"
+        )
+
+    def to_dict(self):
+        out = dataclasses.asdict(self)
+        out["db_path"] = str(self.db_path)
+        return out
+
+
+def hash_images(catalogue, known=None):
+    """SHA-256 of every image file of ``catalogue``.
+
+    Parameters
+    ----------
+    catalogue : Catalogue
+    known : dict of str to FileHash, optional
+        Hashes from an earlier run; reused when the file's size and ``st_mtime_ns`` match.
+
+    Returns
+    -------
+    dict of str to FileHash
+        By absolute path. A file that cannot be read has ``sha256=None`` and an ``error``.
+    """
+    known = known or {}
+    out = {}
+    for product in catalogue.products:
+        for image in product.images:
+            path = str(catalogue.image_path(image))
+            if path in out:
+                continue
+            try:
+                stat = os.stat(path)
+                old = known.get(path)
+                if old is not None and old.size == stat.st_size and old.mtime_ns == stat.st_mtime_ns:
+                    out[path] = old
+                    continue
+                with open(path, "rb") as handle:
+                    digest = hashlib.file_digest(handle, "sha256").hexdigest()
+                out[path] = FileHash(path, digest, stat.st_size, stat.st_mtime_ns)
+            except OSError as exc:
+                out[path] = FileHash(path, None, error=f"{image}: cannot read: {exc.strerror or exc}")
+    return out
+
+
+def plan_chunks(items, workers, chunk_size=None):
+    """Split ``items`` into consecutive chunks.
+
+    The default size gives each worker about four chunks (for load balance), at least 1 and at
+    most :data:`MAX_CHUNK` images (to bound the work an interrupted run loses).
+    """
+    items = list(items)
+    if not items:
+        return []
+    if chunk_size is None:
+        chunk_size = min(MAX_CHUNK, max(1, math.ceil(len(items) / (4 * max(1, workers)))))
+    if int(chunk_size) < 1:
+        raise HarmonyError(f"chunk size must be at least 1, got {chunk_size}")
+    size = int(chunk_size)
+    return [items[i:i + size] for i in range(0, len(items), size)]
+
+
+def _default_extractor():
+    from .palette import extract_palette
+
+    return extract_palette
+
+
+def extract_chunk(items, settings, extractor=None):
+    """Extract the palettes of one chunk; runs in a worker process or on a Dask worker.
+
+    Parameters
+    ----------
+    items : list of (sha256, absolute path)
+    settings : object with ``.key``
+        Passed to ``extractor``.
+    extractor : callable (path, settings) -> Palette, optional
+        Default :func:`harmony.palette.extract_palette`. Must be picklable.
+
+    Returns
+    -------
+    list of (sha256, Palette or None, reason or None)
+        A failure of one image is its reason; it never stops the chunk.
+    """
+    extractor = extractor or _default_extractor()
+    results = []
+    for sha, path in items:
+        try:
+            palette = extractor(path, settings)
+        except ImageError as exc:
+            results.append((sha, None, str(exc)))
+            continue
+        except Exception as exc:  # noqa: BLE001 - one bad image must not stop the run
+            results.append((sha, None, f"{path}: {type(exc).__name__}: {exc}"))
+            continue
+        if palette.sha256 and palette.sha256 != sha:
+            results.append((sha, None, f"{path}: file changed during the run; run again"))
+            continue
+        if not palette.sha256:
+            palette = dataclasses.replace(palette, sha256=sha)
+        results.append((sha, palette, None))
+    return results
+
+
+def _show_progress(progress):
+    if progress is None:
+        return sys.stderr.isatty()
+    return bool(progress)
+
+
+def run_extraction(
+    catalogue,
+    db_path=None,
+    workers=None,
+    engine="local",
+    scheduler=None,
+    settings=None,
+    progress=None,
+    chunk_size=None,
+    extractor=None,
+):
+    """Bring the store up to date with a catalogue: products, hashes, palettes.
+
+    Parameters
+    ----------
+    catalogue : str, pathlib.Path or Catalogue
+        The catalogue file, or one already read (its problems are then counted, not re-read).
+    db_path : str or pathlib.Path, optional
+        The store; default ``harmony.db`` beside the catalogue. Made when missing.
+    workers : int, optional
+        Worker processes; default all cores (``os.cpu_count()``). For ``"dask"`` with a
+        scheduler address it is ignored (the cluster has its own workers).
+    engine : {"local", "dask"}
+    scheduler : str, optional
+        Address of a Dask scheduler (``tcp://host:8786``); without it ``"dask"`` starts a local
+        cluster of ``workers`` processes.
+    settings : PaletteSettings, optional
+        Default ``harmony.palette.PaletteSettings()``. Its ``.key`` keys the palettes.
+    progress : bool or None
+        Progress bar on stderr: None shows it when stderr is a terminal.
+    chunk_size : int, optional
+        Images per task; see :func:`plan_chunks`.
+    extractor : callable (path, settings) -> Palette, optional
+        Default :func:`harmony.palette.extract_palette`; must be picklable.
+
+    Returns
+    -------
+    ExtractionSummary
+
+    Raises
+    ------
+    CatalogueError
+        The catalogue cannot be read, or no row of it is valid (the store is then left as it was).
+    StoreError
+        The store is of another schema version or not a store.
+    HarmonyError
+        Bad ``engine`` / ``workers``, Dask missing or its scheduler unreachable.
+    """
+    start = time.perf_counter()
+    if engine not in ENGINES:
+        raise HarmonyError(f"unknown engine {engine!r} (use one of {', '.join(ENGINES)})")
+    if workers is None:
+        workers = os.cpu_count() or 1
+    if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
+        raise HarmonyError(f"workers must be a whole number of at least 1, got {workers!r}")
+    if settings is None:
+        from .palette import PaletteSettings
+
+        settings = PaletteSettings()
+    key = str(settings.key)
+    cat = catalogue if isinstance(catalogue, Catalogue) else read_catalogue(catalogue)
+    if not cat.products and cat.problems:
+        raise CatalogueError(
+            f"{cat.path}: no valid product ({len(cat.problems)} problems, first: {cat.problems[0]}); store left unchanged"
+        )
+    db_path = Path(db_path) if db_path is not None else cat.path.parent / DEFAULT_DB_NAME
+
+    with Store(db_path, create=True) as store:
+        hashes = hash_images(cat, store.file_hashes())
+        store.sync_catalogue(cat, hashes, key)
+        done = store.done(key)
+        todo, cached = {}, set()
+        for info in hashes.values():
+            if info.sha256 is None:
+                continue
+            if info.sha256 in done:
+                cached.add(info.sha256)
+            else:
+                todo.setdefault(info.sha256, info.abs_path)
+        unreadable = sum(1 for info in hashes.values() if info.sha256 is None)
+        chunks = plan_chunks(sorted(todo.items()), workers, chunk_size)
+        bar = tqdm(
+            total=len(todo), unit="img", desc="extract", disable=not _show_progress(progress),
+            file=sys.stderr, dynamic_ncols=True,
+        )
+        new = failed = 0
+        try:
+            for results in _run(chunks, key, settings, extractor, engine, workers, scheduler):
+                store.record(results, key)
+                ok = sum(1 for _sha, palette, _reason in results if palette is not None)
+                new += ok
+                failed += len(results) - ok
+                bar.update(len(results))
+        finally:
+            bar.close()
+        scene_only = len(store.scene_only())
+        no_palette = len(cat.products) - len(store.palettes())
+        distinct = len({info.sha256 for info in hashes.values() if info.sha256 is not None})
+    return ExtractionSummary(
+        products=len(cat.products),
+        images=distinct + unreadable,
+        new=new,
+        cached=len(cached),
+        failed=failed + unreadable,
+        scene_only=scene_only,
+        no_palette=no_palette,
+        skipped_rows=cat.skipped_rows,
+        seconds=time.perf_counter() - start,
+        engine=engine,
+        workers=workers,
+        db_path=db_path,
+    )
+
+
+def _run(chunks, key, settings, extractor, engine, workers, scheduler):
+    """Yield the results of each chunk as it finishes (in completion order)."""
+    if not chunks:
+        return
+    if engine == "local":
+        yield from _run_local(chunks, settings, extractor, workers)
+    else:
+        yield from _run_dask(chunks, settings, extractor, workers, scheduler)
+
+
+def _run_local(chunks, settings, extractor, workers):
+    pool = ProcessPoolExecutor(max_workers=min(workers, len(chunks)))
+    try:
+        futures = [pool.submit(extract_chunk, chunk, settings, extractor) for chunk in chunks]
+        for future in as_completed(futures):
+            yield future.result()
+    finally:
+        # On an interrupt, drop the chunks not started; finished ones are already stored.
+        pool.shutdown(wait=True, cancel_futures=True)
+
+
+def _run_dask(chunks, settings, extractor, workers, scheduler):
+    try:
+        from distributed import Client, LocalCluster
+        from distributed import as_completed as dask_completed
+    except ImportError:
+        raise HarmonyError("the dask engine needs dask.distributed: pip install 'harmony[dask]'") from None
+    cluster = None
+    try:
+        if scheduler:
+            try:
+                client = Client(scheduler, timeout=SCHEDULER_TIMEOUT)
+            except (OSError, TimeoutError) as exc:
+                raise HarmonyError(f"cannot reach the Dask scheduler {scheduler!r}: {exc}") from None
+        else:
+            cluster = LocalCluster(
+                n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=None
+            )
+            client = Client(cluster)
+        try:
+            futures = client.map(extract_chunk, chunks, settings=settings, extractor=extractor, pure=False)
+            for future in dask_completed(futures):
+                yield future.result()
+        finally:
+            client.close()
+    finally:
+        if cluster is not None:
+            cluster.close()

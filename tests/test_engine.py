@@ -1,0 +1,273 @@
+"""Tests of harmony.engine: incremental runs, failures, SIGKILL safety, Dask equals local.
+
+Most tests use a small stand-in extractor defined here (quadrant means of the image, converted
+with harmony.colour) so they exercise the engine's bookkeeping quickly and deterministically;
+``test_real_extractor_dask_equals_local`` runs the project's own extractor.
+"""
+
+import dataclasses
+import hashlib
+import os
+import signal
+import sqlite3
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+from PIL import Image
+
+from harmony import colour
+from harmony.catalogue import read_catalogue
+from harmony.engine import extract_chunk, hash_images, plan_chunks, run_extraction
+from harmony.errors import CatalogueError, HarmonyError, ImageError
+from harmony.palette import Palette
+from harmony.store import Store
+
+TESTS = Path(__file__).parent
+
+
+@dataclasses.dataclass(frozen=True)
+class QuadSettings:
+    """Settings of the stand-in extractor; ``delay`` (seconds per image) is not part of the key."""
+
+    key: str = "quad-1"
+    delay: float = 0.0
+
+
+def quad_extract(path, settings):
+    """Stand-in extractor: the four quadrant means as a 4-colour palette, equal weights."""
+    if settings.delay:
+        time.sleep(settings.delay)
+    data = Path(path).read_bytes()
+    try:
+        with Image.open(path) as img:
+            rgb = np.asarray(img.convert("RGB"), dtype=float) / 255.0
+    except Exception as exc:
+        raise ImageError(f"{path}: cannot decode: {exc}") from None
+    h, w = rgb.shape[0] // 2, rgb.shape[1] // 2
+    means = [rgb[:h, :w], rgb[:h, w:], rgb[h:, :w], rgb[h:, w:]]
+    srgb1 = np.array([m.reshape(-1, 3).mean(axis=0) for m in means])
+    scene = "scene" in Path(path).name
+    return Palette(
+        jab=colour.srgb1_to_jab(srgb1), weights=np.full(4, 0.25), sha256=hashlib.sha256(data).hexdigest(),
+        width=rgb.shape[1], height=rgb.shape[0], scene=scene, confidence=0.3 if scene else 1.0, source=str(path),
+    )
+
+
+def _shop(tmp_path, n=6, rng=None, extra_rows=()):
+    """An invented catalogue of n products with one random 16x16 PNG each."""
+    rng = rng or np.random.default_rng(0)
+    (tmp_path / "img").mkdir(exist_ok=True)
+    lines = ["id,category,price,image"]
+    for i in range(n):
+        pixels = rng.integers(0, 256, size=(16, 16, 3), dtype=np.uint8)
+        Image.fromarray(pixels).save(tmp_path / "img" / f"p{i}.png")
+        lines.append(f"P{i:03d},{'sofa' if i % 2 else 'rug'},{10 + i},img/p{i}.png")
+    lines.extend(extra_rows)
+    (tmp_path / "shop.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
+    return tmp_path / "shop.csv"
+
+
+def _run(csv, db, **kw):
+    kw.setdefault("workers", 1)
+    kw.setdefault("settings", QuadSettings())
+    kw.setdefault("extractor", quad_extract)
+    kw.setdefault("progress", False)
+    return run_extraction(csv, db, **kw)
+
+
+def _as_arrays(palettes):
+    return {pid: (p.jab.tobytes(), p.weights.tobytes(), p.scene, p.confidence) for pid, p in palettes.items()}
+
+
+def test_first_run_then_nothing_to_do(tmp_path):
+    csv = _shop(tmp_path, n=6)
+    first = _run(csv, tmp_path / "s.db", workers=2)
+    assert (first.products, first.images, first.new, first.cached, first.failed) == (6, 6, 6, 0, 0)
+    again = _run(csv, tmp_path / "s.db")
+    assert (again.new, again.cached, again.failed) == (0, 6, 0)
+    with Store(tmp_path / "s.db") as store:
+        assert store.counts() == {"products": 6, "images": 6, "palettes": 6, "failures": 0}
+        want = quad_extract(tmp_path / "img" / "p3.png", QuadSettings())
+        assert np.array_equal(store.palette("P003").jab, want.jab)
+
+
+def test_default_store_path_is_beside_the_catalogue(tmp_path):
+    csv = _shop(tmp_path, n=1)
+    summary = run_extraction(csv, settings=QuadSettings(), extractor=quad_extract, workers=1, progress=False)
+    assert summary.db_path == tmp_path / "harmony.db" and (tmp_path / "harmony.db").is_file()
+
+
+def test_changed_image_changed_settings_removed_product(tmp_path):
+    csv = _shop(tmp_path, n=4)
+    _run(csv, tmp_path / "s.db")
+    Image.new("RGB", (16, 16), (200, 30, 30)).save(tmp_path / "img" / "p1.png")
+    changed = _run(csv, tmp_path / "s.db")
+    assert (changed.new, changed.cached) == (1, 3)
+    other = _run(csv, tmp_path / "s.db", settings=QuadSettings(key="quad-2"))
+    assert (other.new, other.cached) == (4, 0)
+    back = _run(csv, tmp_path / "s.db")  # the first settings' palettes are still cached
+    assert (back.new, back.cached) == (0, 4)
+    lines = csv.read_text().splitlines()
+    csv.write_text("\n".join(lines[:3]) + "\n")  # keep P000 and P001
+    smaller = _run(csv, tmp_path / "s.db")
+    assert (smaller.products, smaller.new) == (2, 0)
+    with Store(tmp_path / "s.db") as store:
+        assert [p.id for p in store.products()] == ["P000", "P001"]
+        assert store.counts()["images"] == 2 and store.counts()["palettes"] == 4  # 2 images x 2 keys
+        red = colour.srgb1_to_jab(np.array([200, 30, 30]) / 255.0)
+        assert np.allclose(store.palette("P001").jab, red)
+
+
+def test_shared_image_extracted_once_and_scene_only(tmp_path):
+    csv = _shop(tmp_path, n=2)
+    Image.new("RGB", (16, 16), (90, 90, 90)).save(tmp_path / "img" / "room-scene.png")
+    with open(csv, "a") as f:
+        f.write("X1,lamp,5,img/room-scene.png|img/p0.png\nX2,lamp,5,img/room-scene.png\n")
+    summary = _run(csv, tmp_path / "s.db")
+    assert (summary.products, summary.images, summary.new, summary.scene_only) == (4, 3, 3, 1)
+    with Store(tmp_path / "s.db") as store:
+        assert store.scene_only() == ["X2"]
+        assert store.chosen_images()["X1"] == "img/p0.png"  # the studio image wins over the scene
+        assert store.palette("X2").confidence == 0.3
+
+
+def test_failures_are_recorded_and_never_stop_the_run(tmp_path):
+    csv = _shop(tmp_path, n=3)
+    (tmp_path / "img" / "broken.png").write_bytes(b"not an image at all")
+    with open(csv, "a") as f:
+        f.write("B1,rug,5,img/broken.png\n")
+    summary = _run(csv, tmp_path / "s.db", chunk_size=1)
+    assert (summary.new, summary.failed, summary.no_palette) == (3, 1, 1)
+    with Store(tmp_path / "s.db") as store:
+        [(pid, image, reason)] = store.failures()
+        assert (pid, image) == ("B1", "img/broken.png") and "broken.png: cannot decode" in reason
+    again = _run(csv, tmp_path / "s.db")  # a recorded failure of the same bytes is not retried
+    assert (again.new, again.failed, again.cached) == (0, 0, 4)
+
+
+def test_unexpected_exceptions_become_failures(tmp_path):
+    def boom(path, settings):
+        raise RuntimeError("worker fell over")
+
+    (tmp_path / "a.png").write_bytes(b"x")
+    [(sha, palette, reason)] = extract_chunk([("abc", str(tmp_path / "a.png"))], QuadSettings(), boom)
+    assert palette is None and reason.endswith("a.png: RuntimeError: worker fell over")
+
+
+def test_file_changed_between_hash_and_extraction(tmp_path):
+    csv = _shop(tmp_path, n=1)
+    path = str(tmp_path / "img" / "p0.png")
+    [(sha, palette, reason)] = extract_chunk([("0" * 64, path)], QuadSettings(), quad_extract)
+    assert palette is None and "file changed during the run" in reason
+
+
+def test_hash_matches_hashlib_and_stat_cache(tmp_path):
+    csv = _shop(tmp_path, n=2)
+    cat = read_catalogue(csv)
+    hashes = hash_images(cat)
+    path = str((tmp_path / "img" / "p0.png").resolve())
+    # Reference: hashlib.sha256 over the whole file (FIPS 180-4 SHA-256).
+    assert hashes[path].sha256 == hashlib.sha256(Path(path).read_bytes()).hexdigest()
+    fake = {path: dataclasses.replace(hashes[path], sha256="f" * 64)}
+    assert hash_images(cat, fake)[path].sha256 == "f" * 64  # same size and mtime: reused
+    os.utime(path, ns=(1, 1))
+    assert hash_images(cat, fake)[path].sha256 == hashes[path].sha256  # touched: hashed again
+
+
+def test_plan_chunks():
+    assert plan_chunks([], 2) == []
+    assert [len(c) for c in plan_chunks(range(10), 1)] == [3, 3, 3, 1]
+    assert [len(c) for c in plan_chunks(range(1000), 2)] == [32] * 31 + [8]
+    assert sum(plan_chunks(range(7), 2, chunk_size=3), []) == list(range(7))
+    with pytest.raises(HarmonyError, match="chunk size must be at least 1, got 0"):
+        plan_chunks(range(3), 1, chunk_size=0)
+
+
+def test_bad_arguments_and_all_rows_bad(tmp_path):
+    csv = _shop(tmp_path, n=1)
+    with pytest.raises(HarmonyError, match="unknown engine 'spark'"):
+        _run(csv, tmp_path / "s.db", engine="spark")
+    with pytest.raises(HarmonyError, match="workers must be a whole number of at least 1, got 0"):
+        _run(csv, tmp_path / "s.db", workers=0)
+    _run(csv, tmp_path / "s.db")
+    csv.write_text("id,category,price,image\nP000,rug,-1,img/p0.png\n")
+    with pytest.raises(CatalogueError, match=r"shop\.csv: no valid product .*store left unchanged"):
+        _run(csv, tmp_path / "s.db")
+    with Store(tmp_path / "s.db") as store:
+        assert len(store) == 1
+
+
+def test_dask_in_process_cluster_equals_local(tmp_path):
+    distributed = pytest.importorskip("distributed")
+    csv = _shop(tmp_path, n=8, rng=np.random.default_rng(11))
+    local = _run(csv, tmp_path / "local.db", workers=2, chunk_size=3)
+    with distributed.LocalCluster(
+        processes=False, n_workers=1, threads_per_worker=2, dashboard_address=None
+    ) as cluster:
+        dask = _run(csv, tmp_path / "dask.db", engine="dask", scheduler=cluster.scheduler_address, chunk_size=3)
+    assert (local.new, dask.new, dask.engine) == (8, 8, "dask")
+    with Store(tmp_path / "local.db") as a, Store(tmp_path / "dask.db") as b:
+        assert _as_arrays(a.palettes()) == _as_arrays(b.palettes())
+        assert len(a.palettes()) == 8
+
+
+def test_unreachable_scheduler(tmp_path, monkeypatch):
+    pytest.importorskip("distributed")
+    monkeypatch.setattr("harmony.engine.SCHEDULER_TIMEOUT", 1)
+    csv = _shop(tmp_path, n=1)
+    with pytest.raises(HarmonyError, match="cannot reach the Dask scheduler 'tcp://127.0.0.1:9'"):
+        _run(csv, tmp_path / "s.db", engine="dask", scheduler="tcp://127.0.0.1:9")
+
+
+_CHILD = """
+import sys
+sys.path.insert(0, {tests!r})
+from test_engine import QuadSettings, quad_extract
+from harmony.engine import run_extraction
+run_extraction({csv!r}, {db!r}, workers=1, chunk_size=2, progress=False,
+               settings=QuadSettings(delay=0.15), extractor=quad_extract)
+"""
+
+
+def test_sigkill_mid_run_leaves_a_valid_store_and_the_next_run_finishes(tmp_path):
+    n = 20
+    csv = _shop(tmp_path, n=n, rng=np.random.default_rng(3))
+    db = tmp_path / "s.db"
+    code = _CHILD.format(tests=str(TESTS), csv=str(csv), db=str(db))
+    # A new session, so the kill reaches the run and its pool worker together.
+    child = subprocess.Popen([sys.executable, "-c", code], start_new_session=True)
+    seen = 0
+    try:
+        deadline = time.monotonic() + 30
+        while time.monotonic() < deadline and child.poll() is None:
+            if db.exists():
+                try:
+                    with sqlite3.connect(f"file:{db}?mode=ro", uri=True) as ro:
+                        seen = ro.execute("SELECT COUNT(*) FROM palettes").fetchone()[0]
+                except sqlite3.OperationalError:
+                    seen = 0  # schema not created yet
+                if seen >= 4:
+                    break
+            time.sleep(0.02)
+    finally:
+        if child.poll() is None:
+            os.killpg(child.pid, signal.SIGKILL)
+        child.wait(timeout=10)
+    assert child.returncode == -signal.SIGKILL, "the run ended before it could be killed"
+    assert 4 <= seen < n
+    with Store(db) as store:
+        assert store.integrity() == "ok"
+        before = store.counts()
+        assert before["products"] == n and 4 <= before["palettes"] < n
+    # The next run (same settings key, no delay) does exactly the rest.
+    rest = _run(csv, db)
+    assert rest.cached == before["palettes"] and rest.new == n - before["palettes"]
+    fresh = _run(csv, tmp_path / "fresh.db")
+    with Store(db) as a, Store(tmp_path / "fresh.db") as b:
+        assert a.counts() == b.counts() == {"products": n, "images": n, "palettes": n, "failures": 0}
+        assert _as_arrays(a.palettes()) == _as_arrays(b.palettes())
+    assert fresh.new == n
