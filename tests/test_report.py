@@ -310,3 +310,74 @@ def test_read_bundles_errors(tmp_path, data, message):
     path.write_text(json.dumps(data))
     with pytest.raises(HarmonyError, match=message):
         read_bundles(path)
+
+
+# ---------------------------------------------------------------------------------------- CLI
+
+
+@pytest.fixture(scope="module")
+def store_path(tmp_path_factory, photos):
+    """A real store made by the extraction engine over scikit-image photos and a broken file."""
+    from harmony.engine import run_extraction
+
+    folder = photos["coffee"].parent
+    (folder / "broken.jpg").write_bytes(b"not a jpeg")
+    catalogue = folder / "catalogue.csv"
+    catalogue.write_text(
+        "id,title,category,price,currency,stock,image\n"
+        "s1,<script>alert(1)</script> sofa,sofa,700,EUR,2,coffee.jpg\n"
+        "r1,Wool rug,rug,120,EUR,4,chelsea.jpg\n"
+        "a1,Chair,armchair,300,EUR,1,astronaut.jpg\n"
+        "c1,Cushion,cushion,20,EUR,,broken.jpg\n",
+        encoding="utf-8",
+    )
+    db = tmp_path_factory.mktemp("db") / "h.db"
+    run_extraction(catalogue, db, workers=1, progress=False)
+    return db
+
+
+def _cli(*args):
+    from harmony.cli import main
+
+    return CliRunner().invoke(main, list(map(str, args)))
+
+
+def test_cli_report_writes_the_file(store_path, tmp_path):
+    feed = tmp_path / "feed.jsonl"
+    feed.write_text(json.dumps({"product": "s1", "category": "sofa", "partner": "r1", "partner_category": "rug",
+                                "rank": 1, "score": 0.5, "reason": "fine"}) + "\n")
+    bundles = tmp_path / "b.json"
+    bundles.write_text(json.dumps({"room": "lounge", "budget": 900, "currency": "EUR", "bundles": [
+        {"score": 0.5, "total_price": 820, "items": [{"slot": "sofa", "id": "s1", "quantity": 1, "price": 700},
+                                                     {"slot": "rug", "id": "r1", "quantity": 1, "price": 120}],
+         "pairs": [{"a": "sofa", "b": "rug", "score": 0.5, "weight": 1}]}]}))
+    out = tmp_path / "r.html"
+    result = _cli("report", "--db", store_path, "--feed", feed, "--bundles", bundles, "--bundles", bundles,
+                  "--out", out)
+    assert result.exit_code == 0, result.output
+    assert "wrote" in result.output and "2 sets" in result.output
+    html = out.read_text(encoding="utf-8")
+    assert "&lt;script&gt;alert(1)&lt;/script&gt; sofa" in html and "<script" not in html
+    assert "extraction failed" in html and "broken.jpg" in html
+    assert html.count('class="card product"') == 4
+
+
+@pytest.mark.parametrize(
+    "make, message",
+    [
+        (lambda d: ["--db", d / "none.db"], r"error: .*none.db: no such store"),
+        (lambda d: ["--feed", d / "missing.jsonl"], r"error: .*missing.jsonl: cannot read feed"),
+        (lambda d: ["--bundles", d / "missing.json"], r"error: .*missing.json: cannot read bundles"),
+        (lambda d: ["--rules", d / "bad.toml"], r"error: .*bad.toml"),
+    ],
+)
+def test_cli_report_errors(store_path, tmp_path, make, message):
+    (tmp_path / "bad.toml").write_text("this is = = not toml\n")
+    args = make(tmp_path)
+    if "--db" not in args:
+        args = ["--db", store_path, *args]
+    result = _cli("report", *args, "--out", tmp_path / "r.html")
+    assert result.exit_code == 2
+    assert re.search(message, result.output), result.output
+    assert "Traceback" not in result.output
+    assert not (tmp_path / "r.html").exists()

@@ -1,0 +1,42 @@
+"""``harmony report``: one self-contained HTML file from a store, a feed and bundle results."""
+
+from pathlib import Path
+
+import click
+
+from . import main
+
+__all__ = ["report"]
+
+
+@main.command("report")
+@click.option("--db", "db_path", required=True, metavar="PATH", help="The palette store (made by 'harmony extract').")
+@click.option("--feed", "feed_path", metavar="FILE", help="A feed in JSONL (from 'harmony feed --format jsonl').")
+@click.option("--bundles", "bundle_paths", multiple=True, metavar="FILE",
+              help="A bundle result in JSON (from 'harmony bundle --json'); repeat for several rooms.")
+@click.option("--rules", "rules_path", metavar="FILE", help="Rules file the scores used (default: the bundled rules).")
+@click.option("--title", default=None, help="Heading of the report (default: from the catalogue's name).")
+@click.option("--out", "out_path", required=True, metavar="FILE.html", help="Where to write the report.")
+def report(db_path, feed_path, bundle_paths, rules_path, title, out_path):
+    """Write a static HTML report: product photos with palettes, pairs, room sets, flags, cautions."""
+    from ..errors import StoreError
+    from ..paths import DEFAULT_RULES
+    from ..report import gather_from_store, read_bundles, read_feed, write_report
+    from ..rules import load_rules
+    from ..store import Store
+
+    if not Path(db_path).is_file():
+        raise StoreError(f"{db_path}: no such store (run 'harmony extract' first)")
+    rules = load_rules(rules_path or DEFAULT_RULES)
+    feed_rows = read_feed(feed_path) if feed_path else []
+    bundles = [read_bundles(p) for p in bundle_paths]
+    with Store(db_path) as store:
+        if title is None:
+            where = store.catalogue_path
+            title = f"harmony report: {Path(where).parent.name}" if where else "harmony report"
+        data = gather_from_store(store, feed_rows, bundles, rules, title=title)
+    out = write_report(data, out_path)
+    click.echo(
+        f"wrote {out} ({len(data.products)} products, {len(data.suggestions)} pairs, "
+        f"{len(data.bundles)} sets, {len(data.flagged)} flagged, {len(data.cautions)} contrast cautions)"
+    )
