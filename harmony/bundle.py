@@ -37,6 +37,14 @@ __all__ = [
     "search",
     "iter_bundles",
     "brute_force_count",
+    "problem_graph",
+    "problem_from_graph",
+    "RoomBundle",
+    "BundleResult",
+    "build_problem",
+    "search_bundles",
+    "bundle_to_dict",
+    "result_to_dict",
 ]
 
 #: Improvements smaller than this (absolute, in score units) are not worth a subtree: a bound
@@ -395,3 +403,307 @@ def search(problem, top=1, min_difference=1, max_nodes=None):
         bundles.append(Bundle(value=problem.value(choice), cost=problem.cost(choice), choice=choice))
     return SearchResult(bundles=tuple(bundles), exact=not searcher.stopped, nodes=searcher.nodes,
                         pool_sizes=tuple(len(p) for p in problem.pools))
+
+
+# ------------------------------------------------------------------------------ the graph
+
+
+def problem_graph(problem):
+    """The problem as a networkx graph: one node per (slot index, candidate index).
+
+    Node attributes: ``slot`` (index), ``slot_name``, ``id``, ``price``, ``stock``. Edges join
+    candidates of two slots whose pair has a score, with attributes ``score`` (the pair score)
+    and ``weight`` (the slot-pair weight).
+    """
+    g = nx.Graph()
+    for s, (slot, pool) in enumerate(zip(problem.slots, problem.pools)):
+        for i, c in enumerate(pool):
+            g.add_node((s, i), slot=s, slot_name=slot.name, id=c.id, price=c.price, stock=c.stock)
+    for (s, t), mat in problem.scores.items():
+        w = float(problem.weights.get((s, t), 0.0))
+        g.add_edges_from(((s, i), (t, j), {"score": float(mat[i, j]), "weight": w})
+                         for i in range(mat.shape[0]) for j in range(mat.shape[1]))
+    return g
+
+
+def problem_from_graph(graph, slots, budget=math.inf, score="score", weight="weight"):
+    """Build a :class:`BundleProblem` from a graph shaped like :func:`problem_graph`'s.
+
+    Parameters
+    ----------
+    graph : networkx.Graph
+        Nodes ``(slot index, candidate index)`` with ``id``, ``price`` and optional ``stock``.
+    slots : sequence of BundleSlot
+    score : str or callable
+        Edge attribute holding the pair score, or ``f(u, v, data) -> float``, in the networkx manner.
+    weight : str or callable
+        Edge attribute (or callable) holding the slot-pair weight; pairs without edges weigh 0.
+    """
+    def getter(attr):
+        return attr if callable(attr) else (lambda u, v, d: d.get(attr, 0.0))
+
+    get_score, get_weight = getter(score), getter(weight)
+    n = len(slots)
+    members = [sorted(i for (s, i) in graph.nodes if s == t) for t in range(n)]
+    for t, m in enumerate(members):
+        if m != list(range(len(m))):
+            raise ValueError(f"slot {t}: candidate indices must be 0..{len(m) - 1}")
+    pools = tuple(tuple(Candidate(graph.nodes[(t, i)]["id"], float(graph.nodes[(t, i)]["price"]),
+                                  graph.nodes[(t, i)].get("stock")) for i in members[t]) for t in range(n))
+    scores, weights = {}, {}
+    for u, v, d in graph.edges(data=True):
+        (s, i), (t, j) = sorted((u, v))
+        if s == t:
+            raise ValueError(f"edge {u}-{v} joins two candidates of one slot")
+        if (s, t) not in scores:
+            scores[s, t] = np.zeros((len(pools[s]), len(pools[t])))
+            weights[s, t] = float(get_weight(u, v, d))
+        scores[s, t][i, j] = float(get_score(u, v, d))
+    return BundleProblem(tuple(slots), pools, scores, weights, budget)
+
+
+# ------------------------------------------------------------------------------ store and rules
+
+
+@dataclass(frozen=True)
+class RoomBundle:
+    """One bundle of a room, ready to print: items, pair scores and the room-level view."""
+
+    score: float
+    total_price: float
+    items: tuple        # ((slot name, product id, quantity, unit price), ...)
+    pairs: tuple        # ((slot a, slot b, score, weight), ...)
+    view: object        # harmony.roomview.RoomView
+
+
+@dataclass(frozen=True)
+class BundleResult:
+    """The answer of :func:`search_bundles`; ``exact`` is over the pools of ``pool_sizes``."""
+
+    room: str
+    budget: float
+    currency: str
+    exact: bool
+    pool_sizes: tuple   # ((slot name, n), ...)
+    bundles: tuple
+    nodes: int = 0
+    eligible: tuple = ()  # ((slot name, n before pruning), ...)
+
+
+def _all_pair_scores(pals_a, pals_b, pair_rules):
+    """Exact pair scores of every palette of ``pals_a`` with every one of ``pals_b``, (n_a, n_b).
+
+    Uses the bilinear form of the raw score (``harmony.score``): with all colours stacked,
+    ``raw = W_a K W_b^T`` where W holds each palette's weights in its own block of columns.
+    """
+    from .score import to_unit
+
+    def stack(pals):
+        jab = np.concatenate([p.jab for p in pals])
+        w = np.zeros((len(pals), jab.shape[0]))
+        k = 0
+        for r, p in enumerate(pals):
+            w[r, k:k + len(p)] = p.weights
+            k += len(p)
+        return jab, w
+
+    ja, wa = stack(pals_a)
+    jb, wb = stack(pals_b)
+    raw = wa @ pair_rules.kernel(ja, jb) @ wb.T
+    return np.asarray(to_unit(raw, pair_rules), dtype=float)
+
+
+def _money(x, currency):
+    return f"{x:,.2f} {currency}"
+
+
+def build_problem(store, room, rules, budget=None, anchor=None, exclude=(), pool_limit=60):
+    """Candidate pools, pair scores and the graph of a room, as a :class:`BundleProblem`.
+
+    Candidates of a slot are the store's products of its category that are in stock for the
+    slot's quantity, have a palette, are not excluded, and whose price x quantity fits the budget
+    left after the cheapest picks of the other required slots. With an ``anchor`` product, its
+    slot holds only the anchor. A pool larger than ``pool_limit`` keeps the candidates with the
+    best weighted partner scores (and the cheapest one, so the budget stays reachable).
+
+    Returns
+    -------
+    problem : BundleProblem
+    eligible : tuple of (slot name, n) before pruning
+    palettes : dict id -> Palette
+
+    Raises
+    ------
+    RoomError
+        A slot category with no products, or none usable; an anchor whose category is not in the
+        room (or is excluded, out of stock, without a palette); a budget below the cheapest
+        complete set (the message names the cheapest possible total).
+    StoreError
+        An unknown anchor or excluded id.
+    """
+    budget = room.budget if budget is None else float(budget)
+    if not budget > 0 or not math.isfinite(budget):
+        raise RoomError(f"budget must be a positive number, got {budget!r}")
+    exclude = set(exclude)
+    for pid in sorted(exclude):
+        store.product(pid)  # StoreError for an unknown id
+    anchor_slot = None
+    if anchor is not None:
+        product = store.product(anchor)
+        cat = product.category_key
+        matches = [s for s in room.slots if s.category == cat]
+        if not matches:
+            raise RoomError(f"anchor '{anchor}' is a {cat}, which has no slot in room "
+                            f"'{room.name}' (slots: {', '.join(s.category for s in room.slots)})")
+        if anchor in exclude:
+            raise RoomError(f"anchor '{anchor}' is also excluded")
+        anchor_slot = matches[0].name
+
+    palettes = {}
+    raw_pools = []
+    for slot in room.slots:
+        products = store.products(slot.category)
+        if not products:
+            raise RoomError(f"room '{room.name}': slot '{slot.name}': no products of category "
+                            f"'{slot.category}' in the store")
+        if slot.name == anchor_slot:
+            products = [store.product(anchor)]
+        pals = store.palettes(slot.category)
+        usable = [p for p in products if p.id not in exclude and p.in_stock(slot.quantity) and p.id in pals]
+        if slot.name == anchor_slot and not usable:
+            raise RoomError(f"anchor '{anchor}' cannot fill slot '{slot.name}': it needs {slot.quantity} "
+                            "in stock and a palette")
+        if not usable and slot.required:
+            raise RoomError(f"room '{room.name}': slot '{slot.name}': none of the {len(products)} "
+                            f"products of category '{slot.category}' is usable (in stock x{slot.quantity}, "
+                            "with a palette, not excluded)")
+        for p in usable:
+            palettes[p.id] = pals[p.id]
+        raw_pools.append(usable)
+
+    cheapest = [min(p.price * s.quantity for p in pool) if (s.required and pool) else 0.0
+                for s, pool in zip(room.slots, raw_pools)]
+    if sum(cheapest) > budget:
+        parts = " + ".join(f"{s.name} {_money(c, room.currency)}" for s, c in zip(room.slots, cheapest) if c)
+        raise RoomError(f"budget {_money(budget, room.currency)} is below the cheapest complete set "
+                        f"of room '{room.name}': {_money(sum(cheapest), room.currency)} ({parts})")
+    pools = []
+    for k, (slot, pool) in enumerate(zip(room.slots, raw_pools)):
+        room_left = budget - (sum(cheapest) - cheapest[k])
+        pools.append([p for p in pool if p.price * slot.quantity <= room_left + 1e-9])
+    eligible = tuple((s.name, len(p)) for s, p in zip(room.slots, pools))
+
+    def matrices(pools):
+        scores, weights = {}, {}
+        for s in range(len(room.slots)):
+            for t in range(s + 1, len(room.slots)):
+                a, b = room.slots[s], room.slots[t]
+                w = room.pair_weight(a.name, b.name)
+                if w == 0 or not pools[s] or not pools[t] or not rules.pairs_with(a.category, b.category):
+                    continue
+                pr = rules.for_pair(a.category, b.category)
+                scores[s, t] = _all_pair_scores([palettes[p.id] for p in pools[s]],
+                                                [palettes[p.id] for p in pools[t]], pr)
+                weights[s, t] = w
+        return scores, weights
+
+    scores, weights = matrices(pools)
+    if any(len(p) > pool_limit for p in pools):
+        kept = []
+        for s, pool in enumerate(pools):
+            if len(pool) <= pool_limit:
+                kept.append(pool)
+                continue
+            potential = np.zeros(len(pool))
+            for (a, b), mat in scores.items():
+                if a == s:
+                    potential += weights[a, b] * mat.max(axis=1)
+                elif b == s:
+                    potential += weights[a, b] * mat.max(axis=0)
+            order = list(np.argsort(-potential, kind="stable")[:pool_limit])
+            cheapest_i = int(np.argmin([p.price for p in pool]))
+            if cheapest_i not in order:
+                order[-1] = cheapest_i
+            kept.append([pool[i] for i in sorted(order)])
+        pools = kept
+        scores, weights = matrices(pools)
+
+    slots = tuple(BundleSlot(s.name, s.category, s.quantity, s.required) for s in room.slots)
+    cands = tuple(tuple(Candidate(p.id, float(p.price), p.stock) for p in pool) for pool in pools)
+    graph = problem_graph(BundleProblem(slots, cands, scores, weights, budget))
+    return problem_from_graph(graph, slots, budget), eligible, palettes
+
+
+def search_bundles(store, room, rules, budget=None, anchor=None, exclude=(), top=3, min_difference=1,
+                   pool_limit=60, max_nodes=None):
+    """The top bundles of a room from a store's products, scored under ``rules``.
+
+    Parameters
+    ----------
+    store : harmony.store.Store
+    room : harmony.room.RoomTemplate
+    rules : harmony.rules.RuleSet
+    budget : float or None
+        Overrides the room template's budget.
+    anchor : str or None
+        A product id every bundle must contain.
+    exclude : iterable of str
+        Product ids no bundle may contain.
+    top, min_difference, max_nodes
+        As in :func:`search`.
+    pool_limit : int
+        Largest candidate pool per slot (see :func:`build_problem`).
+
+    Returns
+    -------
+    BundleResult
+        Bundles best first, each with its room-level view (:func:`harmony.roomview.room_view`).
+    """
+    from .roomview import room_view
+
+    problem, eligible, palettes = build_problem(store, room, rules, budget, anchor, exclude, pool_limit)
+    result = search(problem, top=top, min_difference=min_difference, max_nodes=max_nodes)
+    bundles = []
+    for b in result.bundles:
+        items, pals, visible = [], [], []
+        for s, i in enumerate(b.choice):
+            if i is None:
+                continue
+            slot, cand = room.slots[s], problem.pools[s][i]
+            items.append((slot.name, cand.id, slot.quantity, cand.price))
+            pals.append(palettes[cand.id])
+            visible.append(slot.quantity * slot.size)
+        pairs = []
+        for (s, t), mat in sorted(problem.scores.items()):
+            i, j = b.choice[s], b.choice[t]
+            if i is not None and j is not None:
+                pairs.append((room.slots[s].name, room.slots[t].name, float(mat[i, j]),
+                              float(problem.weights[s, t])))
+        bundles.append(RoomBundle(score=b.value, total_price=b.cost, items=tuple(items), pairs=tuple(pairs),
+                                  view=room_view(pals, visible)))
+    return BundleResult(room=room.name, budget=problem.budget, currency=room.currency, exact=result.exact,
+                        pool_sizes=tuple((s.name, len(p)) for s, p in zip(room.slots, problem.pools)),
+                        bundles=tuple(bundles), nodes=result.nodes, eligible=eligible)
+
+
+def bundle_to_dict(bundle):
+    """One bundle as the JSON object of ``harmony bundle --json``."""
+    return {
+        "score": round(float(bundle.score), 6),
+        "total_price": round(float(bundle.total_price), 2),
+        "items": [{"slot": s, "id": pid, "quantity": int(q), "price": float(p)} for s, pid, q, p in bundle.items],
+        "pairs": [{"a": a, "b": b, "score": round(sc, 6), "weight": w} for a, b, sc, w in bundle.pairs],
+        "proportions": bundle.view.to_dict(),
+    }
+
+
+def result_to_dict(result):
+    """The whole answer as the JSON object of ``harmony bundle --json``."""
+    return {
+        "room": result.room,
+        "budget": float(result.budget),
+        "currency": result.currency,
+        "exact": bool(result.exact),
+        "pool_sizes": {name: int(n) for name, n in result.pool_sizes},
+        "bundles": [bundle_to_dict(b) for b in result.bundles],
+    }
