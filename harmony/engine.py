@@ -95,7 +95,8 @@ class ExtractionSummary:
         return (
             f"{self.products} products, {self.images} images: {self.new} new, {self.cached} cached, "
             f"{self.failed} failed, {self.scene_only} scene-only, {self.no_palette} without palette, "
-            f"{self.skipped_rows} rows skipped; {self.seconds:.1f} s ({self.engine}, {self.workers} workers)"
+            f"{self.skipped_rows} rows skipped; {self.seconds:.1f} s "
+            f"({self.engine}, {self.workers} worker{'' if self.workers == 1 else 's'})"
         )
 
     def to_dict(self):

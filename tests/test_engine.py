@@ -8,6 +8,7 @@ with harmony.colour) so they exercise the engine's bookkeeping quickly and deter
 import dataclasses
 import hashlib
 import os
+import re
 import signal
 import sqlite3
 import subprocess
@@ -271,3 +272,88 @@ def test_sigkill_mid_run_leaves_a_valid_store_and_the_next_run_finishes(tmp_path
         assert a.counts() == b.counts() == {"products": n, "images": n, "palettes": n, "failures": 0}
         assert _as_arrays(a.palettes()) == _as_arrays(b.palettes())
     assert fresh.new == n
+
+
+# -- the project's own extractor, and the command line ----------------------------------------
+
+
+def _studio_shop(tmp_path, n=6, seed=21):
+    """An invented catalogue of generated studio shots (harmony.synthetic), 160x160 JPEGs."""
+    from harmony.synthetic import encode_jpeg, studio_shot
+
+    rng = np.random.default_rng(seed)
+    (tmp_path / "img").mkdir(exist_ok=True)
+    lines = ["id,title,category,price,stock,image"]
+    for i in range(n):
+        (tmp_path / "img" / f"s{i}.jpg").write_bytes(encode_jpeg(studio_shot(rng, width=160, height=160).srgb8))
+        lines.append(f"S{i},Item {i},{'Rug' if i % 2 else 'Sofa'},{20 + i},{i},img/s{i}.jpg")
+    (tmp_path / "shop.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
+    return tmp_path / "shop.csv"
+
+
+def test_real_extractor_dask_equals_local(tmp_path):
+    distributed = pytest.importorskip("distributed")
+    from harmony.palette import PaletteSettings, extract_palette
+
+    csv = _studio_shop(tmp_path)
+    settings = PaletteSettings()
+    local = run_extraction(csv, tmp_path / "local.db", workers=2, chunk_size=2, progress=False)
+    with distributed.LocalCluster(
+        processes=False, n_workers=1, threads_per_worker=2, dashboard_address=None
+    ) as cluster:
+        dask = run_extraction(csv, tmp_path / "dask.db", engine="dask", scheduler=cluster.scheduler_address,
+                              chunk_size=2, progress=False)
+    assert (local.new, dask.new, local.failed, dask.failed) == (6, 6, 0, 0)
+    with Store(tmp_path / "local.db") as a, Store(tmp_path / "dask.db") as b:
+        assert a.settings_key == b.settings_key == settings.key
+        pa, pb = a.palettes(), b.palettes()
+        assert sorted(pa) == [f"S{i}" for i in range(6)]
+        assert _as_arrays(pa) == _as_arrays(pb)
+        # The stored palette is what extract_palette gives for the file, colour for colour.
+        direct = extract_palette(tmp_path / "img" / "s3.jpg", settings)
+        assert np.array_equal(pa["S3"].jab, direct.jab) and np.array_equal(pa["S3"].weights, direct.weights)
+
+
+def test_cli_extract_summary_warnings_and_strict(tmp_path):
+    from click.testing import CliRunner
+
+    from harmony.cli import main
+
+    csv = _studio_shop(tmp_path, n=3)
+    with open(csv, "a") as f:
+        f.write("BAD,bad,Rug,-4,1,img/s0.jpg\n")
+    runner = CliRunner()
+    strict = runner.invoke(main, ["extract", str(csv), "--strict"])
+    assert strict.exit_code == 2 and not (tmp_path / "harmony.db").exists()
+    assert f"error: {csv}:5: price: negative price -4" in strict.output
+    assert "1 problem(s) in 1 row(s); nothing written (--strict)" in strict.output
+    ok = runner.invoke(main, ["extract", str(csv), "--workers", "1", "--db", str(tmp_path / "s.db")])
+    assert ok.exit_code == 0, ok.output
+    assert f"warning: {csv}:5: price: negative price -4" in ok.output
+    assert "3 products, 3 images: 3 new, 0 cached, 0 failed" in ok.output and "1 rows skipped" in ok.output
+    again = runner.invoke(main, ["extract", str(csv), "--workers", "1", "--db", str(tmp_path / "s.db")])
+    assert "0 new, 3 cached" in again.output
+
+
+@pytest.mark.parametrize(
+    "args, match",
+    [
+        (["extract", "{tmp}/none.csv"], r"error: .*none\.csv: catalogue not found"),
+        (["extract", "{csv}", "--scheduler", "tcp://x:1"], r"error: --scheduler needs --engine dask"),
+        (["extract", "{csv}", "--workers", "0"], r"Invalid value for '--workers'"),
+        (["extract", "{csv}", "--engine", "spark"], r"Invalid value for '--engine'"),
+        (["extract", "{csv}", "--db", "{tmp}/text.db"], r"error: .*text\.db: not a palette store"),
+    ],
+)
+def test_cli_extract_errors(tmp_path, args, match):
+    from click.testing import CliRunner
+
+    from harmony.cli import main
+
+    csv = _shop(tmp_path, n=1)
+    (tmp_path / "text.db").write_text("plain text, no database here " * 50)
+    args = [a.format(tmp=tmp_path, csv=csv) for a in args]
+    result = CliRunner().invoke(main, args)
+    assert result.exit_code == 2
+    assert re.search(match, result.output), result.output
+    assert "Traceback" not in result.output

@@ -160,3 +160,74 @@ def test_unreadable_image_is_a_failure(tmp_path):
         store.sync_catalogue(cat, hashes, "k1")
         assert store.failures() == [("A", "a.jpg", "a.jpg: cannot read: Permission denied")]
         assert store.file_hashes() == {}
+
+
+# -- harmony palettes: the export ---------------------------------------------------------------
+
+
+def _stored(tmp_path):
+    rng = np.random.default_rng(8)
+    cat, hashes = _catalogue(tmp_path, [("A", "Sofa", ["a.jpg"]), ("B", "Rug", ["room-b.jpg", "b.jpg"]), ("C", "Rug", ["c.jpg"])])
+    pals = {"A": _palette(rng, k=3), "B": _palette(rng, k=5, bg=False)}
+    with Store.create(tmp_path / "x.db") as store:
+        store.sync_catalogue(cat, hashes, "k1")
+        store.record([(_sha("a.jpg"), pals["A"], None), (_sha("b.jpg"), pals["B"], None)], "k1")
+    return pals
+
+
+def test_cli_palettes_jsonl_round_trips(tmp_path):
+    import json
+
+    from click.testing import CliRunner
+
+    from harmony.cli import main
+
+    pals = _stored(tmp_path)
+    result = CliRunner().invoke(main, ["palettes", "--db", str(tmp_path / "x.db")])
+    assert result.exit_code == 0
+    lines = [json.loads(line) for line in result.stdout.splitlines()]
+    assert [(r["product"], r["category"], r["image"]) for r in lines] == [("A", "Sofa", "a.jpg"), ("B", "Rug", "b.jpg")]
+    for record in lines:
+        back = Palette.from_dict(record)
+        # Python's json writes floats with repr, which reads back to the same double.
+        assert np.array_equal(back.jab, pals[record["product"]].jab)
+        assert np.array_equal(back.weights, pals[record["product"]].weights)
+    assert "note: 1 product(s) without a palette left out" in result.stderr
+
+
+def test_cli_palettes_csv_file(tmp_path):
+    import csv
+
+    from click.testing import CliRunner
+
+    from harmony.cli import main
+    from harmony.cli.extract_cmd import PALETTE_CSV_COLUMNS
+
+    pals = _stored(tmp_path)
+    out = tmp_path / "p.csv"
+    result = CliRunner().invoke(main, ["palettes", "--db", str(tmp_path / "x.db"), "--out", str(out)])
+    assert result.exit_code == 0 and result.stdout == ""
+    with open(out, newline="", encoding="utf-8") as handle:
+        rows = list(csv.DictReader(handle))
+    assert tuple(rows[0]) == PALETTE_CSV_COLUMNS and len(rows) == 3 + 5
+    a = [r for r in rows if r["product"] == "A"]
+    assert [int(r["rank"]) for r in a] == [1, 2, 3]
+    assert np.array_equal([[float(r["J"]), float(r["a"]), float(r["b"])] for r in a], pals["A"].jab)
+    assert sum(float(r["weight"]) for r in a) == pytest.approx(1.0)
+    same = CliRunner().invoke(main, ["palettes", "--db", str(tmp_path / "x.db"), "--format", "jsonl", "--out", str(out)])
+    assert same.exit_code == 0 and out.read_text().startswith('{"product":"A"')
+
+
+def test_cli_palettes_errors(tmp_path):
+    from click.testing import CliRunner
+
+    from harmony.cli import main
+
+    runner = CliRunner()
+    missing = runner.invoke(main, ["palettes", "--db", str(tmp_path / "none.db")])
+    assert missing.exit_code == 2 and "none.db: no palette store here" in missing.stderr
+    _stored(tmp_path)
+    bad = runner.invoke(main, ["palettes", "--db", str(tmp_path / "x.db"), "--out", str(tmp_path / "no" / "p.csv")])
+    assert bad.exit_code == 2 and "p.csv: cannot write: No such file or directory" in bad.stderr
+    wrong = runner.invoke(main, ["palettes", "--db", str(tmp_path / "x.db"), "--format", "xml"])
+    assert wrong.exit_code == 2 and "Invalid value for '--format'" in wrong.stderr

@@ -1,0 +1,116 @@
+"""``harmony extract CATALOGUE``: bring the palette store up to date; ``harmony palettes``: export it."""
+
+import csv
+import io
+import json
+import os
+import tempfile
+from pathlib import Path
+
+import click
+
+from . import fail, main
+from ..catalogue import read_catalogue
+from ..engine import DEFAULT_DB_NAME, ENGINES, run_extraction
+from ..errors import HarmonyError
+from ..store import Store
+
+__all__ = ["extract", "palettes", "PALETTE_CSV_COLUMNS"]
+
+#: Columns of ``harmony palettes --format csv``: one row per palette colour.
+PALETTE_CSV_COLUMNS = (
+    "product", "category", "image", "sha256", "scene", "confidence",
+    "rank", "hex", "weight", "J", "a", "b", "M", "hue", "lrv", "neutral",
+)
+
+
+@main.command("extract")
+@click.argument("catalogue", type=click.Path(dir_okay=False))
+@click.option("--db", "db_path", type=click.Path(dir_okay=False), default=None,
+              help=f"Store file (SQLite); default {DEFAULT_DB_NAME} beside the catalogue.")
+@click.option("--workers", type=click.IntRange(min=1), default=None,
+              help="Worker processes; default all cores.")
+@click.option("--engine", type=click.Choice(ENGINES), default="local", show_default=True,
+              help="Local process pool, or a Dask cluster.")
+@click.option("--scheduler", metavar="ADDRESS", default=None,
+              help="Dask scheduler address (tcp://host:8786); without it --engine dask starts a local cluster.")
+@click.option("--strict", is_flag=True, help="Any catalogue problem is an error; nothing is written.")
+def extract(catalogue, db_path, workers, engine, scheduler, strict):
+    """Read CATALOGUE (CSV or JSONL), extract the palettes of new or changed images into the store."""
+    if scheduler and engine != "dask":
+        raise HarmonyError("--scheduler needs --engine dask")
+    cat = read_catalogue(catalogue)
+    level = "error" if strict else "warning"
+    for problem in cat.problems:
+        click.echo(f"{level}: {problem}", err=True)
+    if strict and cat.problems:
+        fail(f"{cat.path}: {len(cat.problems)} problem(s) in {cat.skipped_rows} row(s); nothing written (--strict)")
+    summary = run_extraction(cat, db_path, workers=workers, engine=engine, scheduler=scheduler)
+    click.echo(summary.line())
+
+
+def _palette_rows(store):
+    """(product, image as written, Palette) for every product with a chosen palette."""
+    chosen = store.palettes()
+    images = store.chosen_images()
+    for product in store.products():
+        if product.id in chosen:
+            yield product, images[product.id], chosen[product.id]
+
+
+def _jsonl(rows, out):
+    for product, image, palette in rows:
+        record = {"product": product.id, "category": product.category}
+        record.update(palette.to_dict(image=image))
+        out.write(json.dumps(record, separators=(",", ":")) + "\n")
+
+
+def _csv(rows, out):
+    writer = csv.writer(out, lineterminator="\n")
+    writer.writerow(PALETTE_CSV_COLUMNS)
+    for product, image, palette in rows:
+        data = palette.to_dict(image=image)
+        for rank, c in enumerate(data["colours"], start=1):
+            writer.writerow([
+                product.id, product.category, image, data["sha256"], int(data["scene"]), data["confidence"],
+                rank, c["hex"], c["weight"], c["J"], c["a"], c["b"], c["M"], c["hue"], c["lrv"], int(c["neutral"]),
+            ])
+
+
+@main.command("palettes")
+@click.option("--db", "db_path", type=click.Path(dir_okay=False), required=True, help="Store file.")
+@click.option("--format", "fmt", type=click.Choice(("jsonl", "csv")), default=None,
+              help="Output format; default from the --out suffix, else jsonl.")
+@click.option("--out", "out_path", type=click.Path(dir_okay=False), default=None,
+              help="Output file (written whole or not at all); default standard output.")
+def palettes(db_path, fmt, out_path):
+    """Export every product's chosen palette: JSONL (one product a line) or CSV (one colour a row)."""
+    if fmt is None:
+        fmt = "csv" if out_path and Path(out_path).suffix.lower() == ".csv" else "jsonl"
+    writer = _csv if fmt == "csv" else _jsonl
+    with Store(db_path) as store:
+        missing = len(store) - len(store.palettes())
+        buffer = io.StringIO()
+        writer(_palette_rows(store), buffer)
+    if out_path is None:
+        click.echo(buffer.getvalue(), nl=False)
+    else:
+        _write_whole(Path(out_path), buffer.getvalue())
+    if missing:
+        click.echo(f"note: {missing} product(s) without a palette left out (see failures in the store)", err=True)
+
+
+def _write_whole(path, text):
+    """Write ``text`` to ``path`` through a temporary file and a rename, so no half file remains."""
+    folder = path.parent if str(path.parent) else Path(".")
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=folder)
+    except OSError as exc:
+        raise HarmonyError(f"{path}: cannot write: {exc.strerror or exc}") from None
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8", newline="") as handle:
+            handle.write(text)
+        os.replace(tmp, path)
+    except OSError as exc:
+        Path(tmp).unlink(missing_ok=True)
+        raise HarmonyError(f"{path}: cannot write: {exc.strerror or exc}") from None
