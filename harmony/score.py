@@ -177,12 +177,12 @@ def colour_name(jab, threshold=7.0):
         if h < upper:
             break
     dark, muted, pale, mid, light, vivid = names
+    if m >= 38.0 and 25.0 <= j < 85.0:
+        return vivid
     if j < 40.0:
         return dark
     if m < 20.0:
         return pale if j >= 75.0 else muted
-    if m >= 38.0 and j < 85.0:
-        return vivid
     return light if j >= 75.0 else mid
 
 

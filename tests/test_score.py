@@ -1,0 +1,150 @@
+"""The exact pair score: the bilinear contract, the map to [0, 1], symmetry, explanations."""
+
+import numpy as np
+import pytest
+from scipy.special import expit
+
+from harmony.colour import hex_to_srgb1, srgb1_to_jab
+from harmony.palette import Palette
+from harmony.rules import load_rules, parse_rules
+from harmony.score import colour_name, pair_raw, pair_score, to_unit
+
+
+def _random_palette(rng, k):
+    srgb = rng.uniform(0.0, 1.0, size=(k, 3))
+    weights = rng.dirichlet(np.ones(k))
+    return Palette(srgb1_to_jab(srgb), weights)
+
+
+def _palette(hex_weights):
+    codes, weights = zip(*hex_weights)
+    return Palette(srgb1_to_jab(np.array([hex_to_srgb1(c) for c in codes])), np.array(weights))
+
+
+@pytest.fixture(scope="module")
+def rules():
+    return load_rules()
+
+
+def test_bilinear_contract(rules):
+    rng = np.random.default_rng(7)
+    for cats in [("sofa", "rug"), ("rug", "sofa"), ("desk", "desk chair"), ("vase", "lamp")]:
+        pr = rules.for_pair(*cats)
+        a, b = _random_palette(rng, 10), _random_palette(rng, 7)
+        result = pair_score(a, b, pr)
+        expected = a.weights @ pr.kernel(a.jab, b.jab) @ b.weights
+        assert result.raw == pytest.approx(expected, abs=1e-12)
+        assert pair_raw(a, b, pr) == pytest.approx(expected, abs=1e-12)
+        assert result.score == pytest.approx(to_unit(expected, pr), abs=1e-15)
+        assert sum(v for _, v in result.contributions) == pytest.approx(result.raw, abs=1e-12)
+        assert 0.0 <= result.score <= 1.0
+        assert result.categories == tuple(pr.categories)
+
+
+def test_to_unit_is_the_logistic_and_strictly_increasing(rules):
+    pr = rules.for_pair("sofa", "rug")
+    raw = np.linspace(-3.0, 3.0, 1001)
+    out = to_unit(raw, pr)
+    # Gold: scipy.special.expit is the logistic 1 / (1 + exp(-x)).
+    np.testing.assert_allclose(out, expit((raw - pr.midpoint) / pr.scale), rtol=1e-12, atol=1e-15)
+    assert np.all(np.diff(out) > 0)
+    assert to_unit(pr.midpoint, pr) == 0.5
+    assert isinstance(to_unit(0.1, pr), float)
+    assert 0.0 <= to_unit(-1e6, pr) <= to_unit(1e6, pr) <= 1.0
+
+
+def test_symmetric_when_rules_are(rules):
+    rng = np.random.default_rng(11)
+    pr_ab, pr_ba = rules.for_pair("sofa", "cushion"), rules.for_pair("cushion", "sofa")
+    assert pr_ab.symmetric
+    for _ in range(5):
+        a, b = _random_palette(rng, 10), _random_palette(rng, 10)
+        assert pair_score(a, b, pr_ab).score == pytest.approx(pair_score(b, a, pr_ba).score, abs=1e-12)
+        assert pair_score(a, b, pr_ab).score == pytest.approx(pair_score(b, a, pr_ab).score, abs=1e-12)
+
+
+_COMPLEMENTARY_ONLY = """format = 1
+[neutral]
+threshold = 7.0
+fade = 4.0
+[rule.complementary]
+kind = "hue"
+centre = 180.0
+spread = 25.0
+weight = 1.0
+[rule.clash]
+kind = "hue"
+centre = 70.0
+spread = 14.0
+weight = -1.0
+[default]
+rules = { complementary = 1.0 }
+[[pair]]
+categories = ["rug", "sofa"]
+rules = { complementary = 1.0, clash = 1.0 }
+"""
+
+
+def test_reason_names_colours_shares_and_rule():
+    rs = parse_rules(_COMPLEMENTARY_ONLY)
+    # Rust against teal, 156 degrees apart in CAM02-UCS hue; the greys are neutral (no hue term).
+    rug = _palette([("#b8400d", 0.31), ("#808080", 0.69)])
+    sofa = _palette([("#008080", 0.48), ("#7f7f7f", 0.52)])
+    result = pair_score(rug, sofa, rs.for_pair("Rug", "Sofa"))
+    assert result.reason == "the rug's rust (31 %) sits opposite the sofa's teal (48 %): complementary"
+    top = result.pairs[0]
+    assert (top.hex_a, top.hex_b, top.rule) == ("#b8400d", "#008080", "complementary")
+    assert top.value == pytest.approx(0.31 * 0.48 * rs.for_pair("rug", "sofa").kernel(rug.jab[:1], sofa.jab[:1])[0, 0])
+
+
+def test_reason_mentions_a_clash():
+    rs = parse_rules(_COMPLEMENTARY_ONLY)
+    rug = _palette([("#b8400d", 0.5), ("#1a8a3a", 0.5)])   # rust and a green about 95 degrees on
+    sofa = _palette([("#008080", 0.5), ("#c8b400", 0.5)])  # teal and a mustard
+    result = pair_score(rug, sofa, rs.for_pair("rug", "sofa"))
+    assert "clashes with" in result.reason
+    assert result.reason.count(":") == 2 and "; but " in result.reason
+
+
+def test_reason_without_categories():
+    rs = parse_rules(_COMPLEMENTARY_ONLY)
+    rug = _palette([("#b8400d", 1.0)])
+    sofa = _palette([("#008080", 1.0)])
+    result = pair_score(rug, sofa, rs.default_rules())
+    assert result.reason.startswith("the first product's rust (100 %) sits opposite the second product's teal")
+
+
+def test_no_rule_fires():
+    rs = parse_rules(_COMPLEMENTARY_ONLY)
+    grey = _palette([("#808080", 1.0)])
+    result = pair_score(grey, grey, rs.default_rules())
+    assert result.raw == 0.0 and result.pairs == () and result.score == 0.5
+    assert result.reason == "no rule found anything to say about these two palettes"
+
+
+def test_pairs_are_sorted_and_limited(rules):
+    rng = np.random.default_rng(5)
+    a, b = _random_palette(rng, 10), _random_palette(rng, 10)
+    result = pair_score(a, b, rules.for_pair("sofa", "rug"), top=6)
+    values = [abs(p.value) for p in result.pairs]
+    assert len(values) == 6 and values == sorted(values, reverse=True)
+    d = result.to_dict()
+    assert set(d) >= {"score", "categories", "contributions", "pairs", "reason"}
+
+
+@pytest.mark.parametrize(
+    "code, name",
+    # Gold for the words: CSS Color Module Level 4 (W3C) named colours and their sRGB codes.
+    [("#008080", "teal"), ("#000080", "navy"), ("#808000", "olive"), ("#ffffff", "white"),
+     ("#000000", "black"), ("#808080", "grey"), ("#ff0000", "red"), ("#008000", "green"),
+     ("#4b0082", "indigo"), ("#ff00ff", "magenta"), ("#00ffff", "aqua"), ("#87ceeb", "sky blue")],
+)
+def test_colour_names_agree_with_css_named_colours(code, name):
+    assert colour_name(srgb1_to_jab(hex_to_srgb1(code))) == name
+
+
+def test_neutral_names_by_lightness():
+    # Silver: this project's own neutral scale, dark to light.
+    names = [colour_name([j, 0.5, 0.3]) for j in (10, 30, 50, 70, 90, 98)]
+    assert names == ["black", "charcoal", "grey", "stone", "off-white", "white"]
+    assert colour_name([97.0, 1.5, 4.0]) == "cream"
