@@ -68,27 +68,39 @@ class BinGrid:
     Attributes
     ----------
     hue_bins : int
-        Number of hue centres on the circle (spacing 360 / hue_bins degrees). The default 5 degree
-        spacing was chosen by measuring recall@10 in ``benchmarks/screen.py``: hue is where the
-        rules are sharpest.
+        Number of hue centres on the circle (spacing 360 / hue_bins degrees). The defaults (7.5
+        degrees, J' steps of 5, cubic) were chosen by measuring recall@10 against the exact top-10
+        under ``rules/default.toml`` on synthetic palettes (``benchmarks/screen.py``).
     lightness_bins : int
         Number of lightness levels J' from 0 to 100, for the chromatic grid and the grey axis.
     neutral_threshold, neutral_fade : float
         The neutral fade of :func:`harmony.palette.neutrality`; use the rules file's values.
+    interpolation : {"cubic", "linear"}
+        How a colour's weight is spread over the grid: bilinear over the 2 x 2 nearest centres,
+        or bicubic (Keys 1981) over the 4 x 4 nearest, whose weights may be negative but whose
+        approximation of a smooth kernel is much closer at the same spacing.
     """
 
-    hue_bins: int = 72
-    lightness_bins: int = 11
+    hue_bins: int = 48
+    lightness_bins: int = 21
     neutral_threshold: float = NEUTRAL_COLOURFULNESS
     neutral_fade: float = NEUTRAL_FADE
+    interpolation: str = "cubic"
 
     def __post_init__(self):
+        if self.interpolation not in ("linear", "cubic"):
+            raise ValueError(f"interpolation must be 'linear' or 'cubic', got {self.interpolation!r}")
         if int(self.hue_bins) < 3:
             raise ValueError(f"hue_bins must be at least 3, got {self.hue_bins!r}")
         if int(self.lightness_bins) < 2:
             raise ValueError(f"lightness_bins must be at least 2, got {self.lightness_bins!r}")
         if not self.neutral_fade >= 0:
             raise ValueError(f"neutral_fade must be >= 0, got {self.neutral_fade!r}")
+
+    @property
+    def chromatic_entries(self):
+        """Chromatic bins one colour's weight is spread over (4 linear, 16 cubic)."""
+        return 4 if self.interpolation == "linear" else 16
 
     @property
     def n_chromatic(self):
@@ -194,54 +206,71 @@ class ScreenResult:
     truncation_bound: float = 0.0
 
 
+def _axis_weights(pos, n, circular, interpolation):
+    """Nodes and weights interpolating at fractional grid positions ``pos`` on ``n`` nodes.
+
+    Linear: the two nearest nodes. Cubic: the four nearest nodes with the cubic convolution
+    weights of Keys (1981), a = -1/2 (the Catmull-Rom spline), which reproduce polynomials up to
+    degree 2 and make the interpolation error O(h^3) instead of O(h^2). Off a non-circular axis
+    the nodes are clamped to the ends (the end value is repeated).
+
+    References
+    ----------
+    R. G. Keys (1981). Cubic convolution interpolation for digital image processing.
+        IEEE Trans. Acoustics, Speech and Signal Processing 29(6):1153-1160.
+    """
+    if circular:
+        i0 = np.floor(pos)
+    else:
+        i0 = np.minimum(np.floor(pos), n - 2)
+    t = pos - i0
+    i0 = i0.astype(np.int64)
+    if interpolation == "linear":
+        offsets = (0, 1)
+        weights = (1.0 - t, t)
+    else:
+        t2, t3 = t * t, t * t * t
+        offsets = (-1, 0, 1, 2)
+        weights = (
+            0.5 * (-t3 + 2.0 * t2 - t),
+            0.5 * (3.0 * t3 - 5.0 * t2 + 2.0),
+            0.5 * (-3.0 * t3 + 4.0 * t2 + t),
+            0.5 * (t3 - t2),
+        )
+    nodes = [(i0 + o) % n if circular else np.clip(i0 + o, 0, n - 1) for o in offsets]
+    return np.stack(nodes, axis=-1), np.stack(weights, axis=-1)
+
+
 def _shares(jab, grid):
-    """Bin indices and weights of each colour's soft assignment: (..., 6) each."""
+    """Bin indices and weights of each colour's soft assignment, shape (..., grid.entries) each.
+
+    The first ``grid.chromatic_entries`` entries are chromatic bins, the rest grey-axis bins.
+    """
     jab = np.asarray(jab, dtype=float)
     nh, nl = int(grid.hue_bins), int(grid.lightness_bins)
     neutral = neutrality(jab, grid.neutral_threshold, grid.neutral_fade)
     chroma = 1.0 - neutral
     hue = np.degrees(np.arctan2(jab[..., 2], jab[..., 1])) % 360.0
-    hpos = hue / (360.0 / nh)
-    h0 = np.floor(hpos)
-    fh = hpos - h0
-    h0 = h0.astype(np.int64) % nh
-    h1 = (h0 + 1) % nh
+    h_nodes, h_w = _axis_weights(hue / (360.0 / nh), nh, True, grid.interpolation)
     lpos = np.clip(jab[..., 0], 0.0, 100.0) / (100.0 / (nl - 1))
-    l0 = np.minimum(np.floor(lpos).astype(np.int64), nl - 2)
-    fl = lpos - l0
-    l1 = l0 + 1
-    idx = np.stack(
-        [
-            h0 * nl + l0,
-            h0 * nl + l1,
-            h1 * nl + l0,
-            h1 * nl + l1,
-            grid.n_chromatic + l0,
-            grid.n_chromatic + l1,
-        ],
-        axis=-1,
-    )
-    share = np.stack(
-        [
-            chroma * (1 - fh) * (1 - fl),
-            chroma * (1 - fh) * fl,
-            chroma * fh * (1 - fl),
-            chroma * fh * fl,
-            neutral * (1 - fl),
-            neutral * fl,
-        ],
-        axis=-1,
-    )
+    l_nodes, l_w = _axis_weights(lpos, nl, False, grid.interpolation)
+    shape = jab.shape[:-1]
+    chrom_idx = (h_nodes[..., :, None] * nl + l_nodes[..., None, :]).reshape(shape + (-1,))
+    chrom_w = (h_w[..., :, None] * l_w[..., None, :]).reshape(shape + (-1,)) * chroma[..., None]
+    idx = np.concatenate([chrom_idx, grid.n_chromatic + l_nodes], axis=-1)
+    share = np.concatenate([chrom_w, l_w * neutral[..., None]], axis=-1)
     return idx, share
 
 
 def _bin_colourfulness(stack, idx, w, grid):
     """Weighted mean M' of the chromatic mass in each chromatic bin (NaN where a bin is empty)."""
     m = np.hypot(stack.jab[..., 1], stack.jab[..., 2])
-    chrom = idx[..., :4].ravel()
-    cw = w[..., :4].ravel()
-    mass = np.bincount(chrom, weights=cw, minlength=grid.n_chromatic)
-    m_sum = np.bincount(chrom, weights=(w[..., :4] * m[..., None]).ravel(), minlength=grid.n_chromatic)
+    e = grid.chromatic_entries
+    chrom = idx[..., :e].ravel()
+    # Cubic weights can be negative; the mean uses their magnitudes.
+    cw = np.abs(w[..., :e])
+    mass = np.bincount(chrom, weights=cw.ravel(), minlength=grid.n_chromatic)
+    m_sum = np.bincount(chrom, weights=(cw * m[..., None]).ravel(), minlength=grid.n_chromatic)
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.where(mass > 0, m_sum / np.where(mass > 0, mass, 1.0), np.nan)
 
@@ -311,12 +340,16 @@ def bin_kernel(kernel, centres_a, centres_b):
 
 
 def _project(idx, w, factor, size, block):
-    """``histograms @ factor`` in row chunks of ``block`` palettes, as float32 (n, r)."""
+    """``histograms @ factor`` in row chunks of ``block`` palettes, as float32 (n, r), and the
+    largest 2-norm of a histogram."""
     n = idx.shape[0]
     out = np.empty((n, factor.shape[1]), dtype=np.float32)
+    norm = 0.0
     for r0 in range(0, n, block):
-        out[r0 : r0 + block] = _dense(idx[r0 : r0 + block], w[r0 : r0 + block], size) @ factor
-    return out
+        hist = _dense(idx[r0 : r0 + block], w[r0 : r0 + block], size)
+        out[r0 : r0 + block] = hist @ factor
+        norm = max(norm, float(np.sqrt((hist * hist).sum(axis=1)).max()))
+    return out, norm
 
 
 @dataclass(frozen=True, eq=False)
@@ -326,7 +359,7 @@ class _Prepared:
     q: np.ndarray  # (n_a, r) float32: H_a U S
     hb: np.ndarray  # (r, n_b) float32: V^T H_b^T
     rank: int
-    bound: float  # largest |screened - bilinear-interpolated| from dropping singular values
+    bound: float  # largest change of a screened score from dropping singular values
 
 
 def _prepare(palettes_a, palettes_b, kernel, grid, rank_tol, block):
@@ -339,9 +372,10 @@ def _prepare(palettes_a, palettes_b, kernel, grid, rank_tol, block):
     k = bin_kernel(kernel, centres_a, centres_b)
     u, sv, vt = np.linalg.svd(k)
     rank = max(1, int(np.count_nonzero(sv > rank_tol * sv[0]))) if sv[0] > 0 else 1
-    bound = float(sv[rank]) if rank < len(sv) else 0.0
-    q = _project(idx_a, w_a, u[:, :rank] * sv[:rank], grid.size, block)
-    hb = np.ascontiguousarray(_project(idx_b, w_b, vt[:rank].T, grid.size, block).T)
+    q, norm_a = _project(idx_a, w_a, u[:, :rank] * sv[:rank], grid.size, block)
+    hb, norm_b = _project(idx_b, w_b, vt[:rank].T, grid.size, block)
+    hb = np.ascontiguousarray(hb.T)
+    bound = float(sv[rank]) * norm_a * norm_b if rank < len(sv) else 0.0
     return _Prepared(stack_a, stack_b, q, hb, rank, bound)
 
 
@@ -503,7 +537,8 @@ def screen_top_k(palettes_a, palettes_b, kernel, k=10, *, candidates=None, grid=
     k : int
         Partners per product (clipped to the size of side b).
     candidates : int, optional
-        Screened candidates per product that are re-scored exactly; default ``2 * k``.
+        Screened candidates per product that are re-scored exactly; default ``ceil(1.5 k)``.
+        The re-rank dominates the run time, so this trades time for recall.
     grid : BinGrid
     block : int
         Tile side of the blocked product; memory is O(block^2 + block * candidates) on top of the
@@ -525,13 +560,13 @@ def screen_top_k(palettes_a, palettes_b, kernel, k=10, *, candidates=None, grid=
     -----
     K is factorised once by its singular value decomposition, ``K = U S V^T``, and the screen
     computes ``(H_a U_r S_r)(V_r^T H_b^T)`` with the r singular values above the tolerance. Since
-    every histogram has unit 1-norm (so 2-norm at most 1), dropping the rest changes any screened
-    score by at most the largest dropped singular value (reported as ``truncation_bound``).
+    ``|h_a (K - K_r) h_b| <= s_(r+1) |h_a|_2 |h_b|_2``, so dropping the rest changes any screened
+    score by at most that bound (reported as ``truncation_bound``, with the largest histogram norms).
     """
     k = int(k)
     if k < 1:
         raise ValueError(f"k must be at least 1, got {k}")
-    c = 2 * k if candidates is None else int(candidates)
+    c = -(-3 * k // 2) if candidates is None else int(candidates)
     if c < k:
         raise ValueError(f"candidates ({c}) must be at least k ({k})")
     prep = _prepare(palettes_a, palettes_b, kernel, grid, rank_tol, max(int(block), 1))
