@@ -133,11 +133,11 @@ COLOUR_STORIES = (
     ),
     ColourStory(
         "sage and oak", ("Fennow", "Brisel", "Odden"),
-        fabrics=(("sage", "#8ea185", "green"), ("olive", "#616c47", "green"), ("linen", "#ddd3bf", "beige")),
-        accents=(("linen", "#e0d7c4", "beige"), ("moss", "#6f7d55", "green"), ("clay", "#b98a6a", "brown")),
+        fabrics=(("sage", "#8ea185", "green"), ("olive", "#616c47", "green"), ("oat", "#ddd3bf", "beige")),
+        accents=(("oat", "#e0d7c4", "beige"), ("moss", "#6f7d55", "green"), ("clay", "#b98a6a", "brown")),
         woods=(("oak", "#bf9264", "natural"), ("ash", "#d2b68e", "natural")),
         metals=(("black steel", "#2b2b2a", "black"),),
-        light=("linen", "#e2d9c6", "beige"),
+        light=("oat", "#e2d9c6", "beige"),
     ),
     ColourStory(
         "navy and cream", ("Harvel", "Dunmar", "Ostra"),
@@ -302,7 +302,7 @@ def _design_look(category, story, rng):
         elif style < 0.75:
             main, main_tex, material = fabric, "lacquer", "powder-coated steel"
         else:
-            main, main_tex, material = wood, "rattan", "rattan"
+            main, main_tex, material = ("natural", wood[1], wood[2]), "rattan", "rattan"
         shown = main if main_tex != "weave" else (fabric if rng.random() < 0.5 else light)
         if main_tex == "weave":
             main = shown
@@ -376,10 +376,10 @@ def design_products(rng):
             story = COLOUR_STORIES[int(rng.choice(len(COLOUR_STORIES), p=weights))]
             look, coarse, material, shade = _design_look(category, story, rng)
             descriptor = _DESCRIPTORS[category][look.variant]
-            name = _pick(story.collections, rng)
-            title = f"{name} {descriptor}, {shade} {material}"
-            if title in used_titles:
-                title = f"{title} II"
+            finish = material if shade == material else f"{shade} {material}"
+            names = list(rng.permutation(story.collections))
+            titles = [f"{name} {descriptor}, {finish}" for name in names]
+            title = next((t for t in titles if t not in used_titles), f"{titles[0]} II")
             used_titles.add(title)
             price = _price(category, look.variant, material, rng)
             u = rng.random()
@@ -424,8 +424,9 @@ def _unit_noise(rng, shape, sigma):
     field = rng.standard_normal(shape)
     if sigma > 0:
         field = ndimage.gaussian_filter(field, sigma, mode="wrap")
+    field = field - field.mean()
     std = field.std()
-    return field / std if std > 0 else field
+    return field / std if std > 1e-6 else np.zeros(shape)
 
 
 def _texture(kind, yy, xx, along, rng):
@@ -480,6 +481,8 @@ def _texture(kind, yy, xx, along, rng):
         r = np.hypot((yy - cy) / max(h, 1), (xx - cx) / max(w, 1))
         spot = np.hypot((yy - (cy - 0.2 * h)) / max(h, 1), (xx - (cx - 0.18 * w)) / max(w, 1))
         return 1.02 - 0.35 * r + 0.3 * np.exp(-((spot / 0.12) ** 2)) + 0.006 * fine
+    if kind == "wall":
+        return 1.0 + 0.02 * _unit_noise(rng, (h, w), 25.0) + 0.008 * fine
     if kind == "plain":
         return 1.0 + 0.01 * fine
     raise ValueError(f"unknown texture {kind!r}")
@@ -643,8 +646,9 @@ def _draw_table(p, fr, look, top_v, leg_v, round_top, shelf):
         _leg(p, fr, look, 0.5, edge_v, 0.97, top=0.05, bottom=0.035)
         p.fill(p.ellipse(fr, 0.3, 0.93, 0.7, 1.0), look.frame, look.frame_tex, along="x", edge=0.1)
         p.foot(fr, 0.5, 0.985, size=0.2, strength=0.3)
-        p.fill(p.ellipse(fr, 0.0, top_v - 0.1 + 0.06, 1.0, edge_v + 0.02), _scaled(m, 0.8), tex, edge=0.0)
-        p.fill(p.ellipse(fr, 0.0, top_v - 0.1, 1.0, edge_v - 0.02), m, tex, shade=0.1, edge=0.15)
+        thick = edge_v - top_v
+        p.fill(p.ellipse(fr, 0.0, top_v - 0.14 + thick, 1.0, top_v + thick), _scaled(m, 0.78), tex, edge=0.0)
+        p.fill(p.ellipse(fr, 0.0, top_v - 0.14, 1.0, top_v), m, tex, shade=0.1, edge=0.15)
         return
     for u in (0.13, 0.87):
         _leg(p, fr, look, u, edge_v, leg_v - 0.05, top=0.02, bottom=0.014)
@@ -717,7 +721,8 @@ def _draw_pendant(p, fr, look):
     p.fill(p.rect(fr, 0.495, 0.03, 0.505, 0.4), cord, "plain", edge=0.0)
     shade_tex = look.main_tex
     if look.variant == 2:
-        glow = p.ellipse(fr, 0.22, 0.4, 0.78, 0.96)
+        d = 0.56 * fr.w / fr.h  # a round globe whatever the frame's aspect
+        glow = p.ellipse(fr, 0.22, 0.41, 0.78, 0.41 + d)
         p.fill(glow, look.main if shade_tex != "weave" else _scaled(look.main, 1.05), "glass", edge=0.0)
         p.fill(p.rect(fr, 0.46, 0.38, 0.54, 0.42), look.frame, "metal", along="y", edge=0.0)
         return
@@ -866,7 +871,7 @@ def _draw_desk(p, fr, look):
 
 #: Width / height of the drawing frame per category.
 _ASPECT = {
-    "sofa": 2.1, "armchair": 1.0, "coffee table": 2.2, "rug": 0.7, "floor lamp": 0.42, "cushion": 1.0,
+    "sofa": 2.1, "armchair": 1.0, "coffee table": 1.9, "rug": 0.7, "floor lamp": 0.42, "cushion": 1.0,
     "dining table": 1.7, "dining chair": 0.55, "pendant lamp": 0.8, "bed": 1.45, "bedside table": 0.85,
     "desk": 1.7, "desk chair": 0.62,
 }
@@ -935,10 +940,12 @@ def _scene(size, product, rng):
     wall = _WALLS[int(rng.integers(len(_WALLS)))]
     floor_rgb, floor_tex = _FLOORS[int(rng.integers(len(_FLOORS)))]
     horizon = rng.uniform(0.6, 0.68)
-    p.fill(p.rect(full, 0, 0, 1, horizon), wall, "velvet", shade=0.12, edge=0.0)
-    p.fill(p.rect(full, 0, horizon, 1, 1), floor_rgb, floor_tex, along="x", shade=-0.15, edge=0.0)
-    for v in np.linspace(horizon + 0.05, 1.0, 6):
-        p.darken(p.rect(full, 0, v, 1, v + 0.004), 0.25, 0.6)
+    p.fill(p.rect(full, 0, 0, 1, horizon), wall, "wall", shade=0.12, edge=0.0)
+    edges = horizon + (1.0 - horizon) * np.linspace(0.0, 1.0, 8) ** 1.3  # planks widen towards the camera
+    for k, (v0, v1) in enumerate(zip(edges[:-1], edges[1:])):
+        tone = _scaled(floor_rgb, 0.82 + 0.1 * k / 7 + rng.uniform(-0.04, 0.04))
+        p.fill(p.rect(full, 0, v0, 1, v1), tone, floor_tex, along="x", shade=0.0, edge=0.0)
+        p.darken(p.rect(full, 0, v1 - 0.002, 1, v1 + 0.002), 0.3, 0.5)
     p.fill(p.rect(full, 0, horizon - 0.03, 1, horizon), (0.93, 0.92, 0.9), "lacquer", edge=0.0)
     left = rng.random() < 0.5
     wu = 0.05 if left else 0.67
@@ -955,9 +962,11 @@ def _scene(size, product, rng):
     pu = 0.04 if left else 0.8
     p.fill(p.poly(full, [(pu, horizon + 0.12), (pu + 0.14, horizon + 0.12), (pu + 0.12, horizon + 0.28),
                          (pu + 0.02, horizon + 0.28)]), (0.75, 0.45, 0.32), "plain", edge=0.1)
-    for k in range(9):
-        ang = rng.uniform(-2.6, -0.5)
-        cx, cy = pu + 0.07 + 0.12 * np.cos(ang), horizon + 0.1 + 0.16 * np.sin(ang)
+    for k in range(12):
+        ang = rng.uniform(-2.7, -0.45)
+        reach = rng.uniform(0.06, 0.2)
+        cx, cy = pu + 0.07 + reach * np.cos(ang), horizon + 0.12 + 1.4 * reach * np.sin(ang)
+        p.fill(p.line(full, [(pu + 0.07, horizon + 0.12), (cx, cy)], 1.5), (0.25, 0.35, 0.18), "plain", edge=0.0)
         p.fill(p.ellipse(full, cx - 0.05, cy - 0.025, cx + 0.05, cy + 0.025),
                (0.2 + 0.1 * rng.random(), 0.42 + 0.1 * rng.random(), 0.22), "plain", edge=0.2)
     cu = 0.78 if left else 0.0
@@ -966,7 +975,10 @@ def _scene(size, product, rng):
            edge=0.0)
     cat = product.category
     cx = size * 0.5
+    neutral = Look((0.55, 0.55, 0.53), "weave", (0.8, 0.78, 0.74), "weave", (0.5, 0.5, 0.5),
+                   (0.25, 0.2, 0.16), "wood", 3)
     if cat == "rug":
+        _draw_sofa(p, _fit(2.1, size * 0.5, size * 0.3, cx, size * (horizon - 0.02)), neutral, seats=3)
         fr = _Frame(size * 0.18, size * (horizon + 0.06), size * 0.64, size * (0.92 - horizon - 0.04))
         _draw_rug(p, fr, product.look)
         return rgb
@@ -977,8 +989,6 @@ def _scene(size, product, rng):
         return rgb
     if cat == "cushion":
         sofa_fr = _fit(2.1, size * 0.7, size * 0.4, cx, size * (horizon + 0.05))
-        neutral = Look((0.55, 0.55, 0.53), "weave", (0.8, 0.78, 0.74), "weave", (0.5, 0.5, 0.5),
-                       (0.25, 0.2, 0.16), "wood", 3)
         _draw_sofa(p, sofa_fr, neutral, seats=3)
         fr = _fit(1.0, size * 0.2, size * 0.2, cx, sofa_fr.y + sofa_fr.h * 0.42)
         _draw_cushion(p, fr, product.look)
@@ -1016,7 +1026,8 @@ def draw_photo(product, kind, size=IMAGE_SIZE):
     margin = 0.1 * size
     aspect = _ASPECT[product.category]
     cy = size * (0.5 if product.category in ("rug", "cushion", "pendant lamp") else 0.53)
-    fr = _fit(aspect, size - 2 * margin, size - 2.3 * margin, size / 2, cy)
+    scale = 0.82 if product.category == "cushion" else 1.0
+    fr = _fit(aspect, (size - 2 * margin) * scale, (size - 2.3 * margin) * scale, size / 2, cy)
     _draw_product(p, fr, product)
     return _finish(rgb, rng)
 
