@@ -167,7 +167,7 @@ class HueRule:
     def flipped(self):
         return self
 
-    def default_phrase(self, ja, jb):
+    def default_phrase(self, ja, jb, na, nb):
         if self.weight < 0:
             return "clashes with"
         c = self.centres[0]
@@ -203,8 +203,10 @@ class NeutralRule:
     def flipped(self):
         return self
 
-    def default_phrase(self, ja, jb):
-        return "is steadied by" if jb[0] is not None else "steadies"
+    def default_phrase(self, ja, jb, na, nb):
+        if na >= 0.5 and nb >= 0.5:
+            return "sits quietly with"
+        return "anchors" if na >= nb else "is anchored by"
 
 
 @dataclass(frozen=True)
@@ -244,7 +246,7 @@ class LightnessRule:
     def flipped(self):
         return replace(self, direction=_FLIP_DIRECTION[self.direction])
 
-    def default_phrase(self, ja, jb):
+    def default_phrase(self, ja, jb, na, nb):
         return "is a clear step lighter than" if ja[0] > jb[0] else "is a clear step darker than"
 
 
@@ -269,7 +271,7 @@ class OuLuoRule:
     def flipped(self):
         return self
 
-    def default_phrase(self, ja, jb):
+    def default_phrase(self, ja, jb, na, nb):
         return "pairs, by the Ou & Luo model, with"
 
 

@@ -12,6 +12,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import colour
+from .palette import neutrality
 
 __all__ = [
     "ColourPair",
@@ -199,7 +200,9 @@ def _phrase(pair_rules, pair, jab_a, jab_b):
     rule = pair_rules.rule(pair.rule)
     if rule.phrase:
         return rule.phrase
-    return rule.default_phrase(jab_a[pair.index_a], jab_b[pair.index_b])
+    ja, jb = jab_a[pair.index_a], jab_b[pair.index_b]
+    t, f = pair_rules.neutral_threshold, pair_rules.neutral_fade
+    return rule.default_phrase(ja, jb, float(neutrality(ja, t, f)), float(neutrality(jb, t, f)))
 
 
 def explain_reason(pairs, categories, pair_rules, jab_a, jab_b, raw):
