@@ -19,6 +19,7 @@ import jinja2
 import numpy as np
 from markupsafe import Markup
 
+from . import colour
 from .errors import HarmonyError
 from .safety import CAUTION_NOTE, contrast_caution, is_floor_covering, stands_on_floor, surface_lrv
 from .svg import WheelLink, hue_wheel_svg, palette_strip_svg
@@ -344,25 +345,59 @@ def _pick_suggestions(rows, limit):
 
 
 def _proportions(value):
-    """Room-level proportions of a bundle as (label, text) rows, whatever shape they came in."""
+    """Room-level proportions of a bundle as (label, text) rows.
+
+    Understands the room view of :mod:`harmony.roomview` (dominant / secondary / accent shares,
+    their distance from 60-30-10, the best Matsuda hue template); other keys are shown as given.
+    """
     if value is None:
         return ()
-    if isinstance(value, dict):
-        out = []
-        for key, v in value.items():
-            if isinstance(v, float):
-                text = f"{v:.3f}"
-            elif isinstance(v, (list, tuple)) and all(isinstance(x, (int, float)) for x in v):
-                text = " / ".join(f"{x * 100:.0f} %" if 0 <= x <= 1 else f"{x:g}" for x in v)
-            elif isinstance(v, dict):
-                text = ", ".join(f"{k}: {x:.3g}" if isinstance(x, float) else f"{k}: {x}" for k, x in v.items())
-            else:
-                text = str(v)
-            out.append((str(key).replace("_", " "), text))
-        return tuple(out)
-    if isinstance(value, (list, tuple)):
-        return (("shares", " / ".join(f"{x * 100:.0f} %" if isinstance(x, float) else str(x) for x in value)),)
-    return (("proportions", str(value)),)
+    if not isinstance(value, dict):
+        return (("proportions", str(value)),)
+    value = dict(value)
+    out = []
+    shares = [value.pop(k, None) for k in ("dominant", "secondary", "accent")]
+    if all(isinstance(x, (int, float)) for x in shares):
+        text = " / ".join(f"{x * 100:.0f} %" for x in shares)
+        dist = value.pop("distance_60_30_10", None)
+        if isinstance(dist, (int, float)):
+            text += f" (distance {dist:.2f} from 60-30-10)"
+        out.append(("60-30-10", text))
+    template = value.pop("hue_template", None)
+    if isinstance(template, dict) and "name" in template:
+        text = f"Matsuda type {template['name']}"
+        if isinstance(template.get("rotation_deg"), (int, float)):
+            text += f" at {template['rotation_deg']:.0f}\u00b0"
+        if isinstance(template.get("distance_deg"), (int, float)):
+            text += f", {template['distance_deg']:.1f}\u00b0 outside its sectors"
+        out.append(("hue template", text))
+    value.pop("palette", None)  # drawn as the combined strip
+    for key, v in value.items():
+        if isinstance(v, float):
+            text = f"{v:.3f}"
+        elif isinstance(v, dict):
+            text = ", ".join(f"{k}: {x:.3g}" if isinstance(x, float) else f"{k}: {x}" for k, x in v.items())
+        else:
+            text = str(v)
+        out.append((str(key).replace("_", " "), text))
+    return tuple(out)
+
+
+def _room_strip(proportions):
+    """The room view's grouped palette ({hex: weight}) as a strip, or None when absent or malformed."""
+    from .palette import Palette
+
+    pal = proportions.get("palette") if isinstance(proportions, dict) else None
+    if not isinstance(pal, dict) or not pal:
+        return None
+    try:
+        codes = list(pal)
+        weights = np.array([float(pal[c]) for c in codes])
+        jab = colour.srgb1_to_jab(np.array([colour.hex_to_srgb1(c) for c in codes]))
+        palette = Palette(jab=jab, weights=weights / weights.sum())
+    except (TypeError, ValueError, ZeroDivisionError):
+        return None
+    return Markup(palette_strip_svg(palette, width=320, height=18, label="combined palette of the room"))
 
 
 def _combined_strip(items, palettes):
@@ -424,7 +459,7 @@ def _bundle_views(data, views, palettes, rules, where, per_room):
             exact=None if data.get("exact") is None else bool(data.get("exact")),
             pool_sizes=pool_sizes, items=tuple(items), pairs=tuple(pairs),
             proportions=_proportions(bundle.get("proportions")),
-            strip=_combined_strip(items, palettes), wheel=wheel, wheel_caption=caption, source=where,
+            strip=_room_strip(bundle.get("proportions")) or _combined_strip(items, palettes), wheel=wheel, wheel_caption=caption, source=where,
         ))
     return out
 

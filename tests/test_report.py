@@ -89,7 +89,10 @@ def _bundle_json():
                       {"slot": "table", "id": "t1", "quantity": 1, "price": 210.0}],
             "pairs": [{"a": "sofa", "b": "rug", "score": 0.81, "weight": 2.0},
                       {"a": "sofa", "b": "table", "score": 0.64, "weight": 1.0}],
-            "proportions": {"sixty_thirty_ten": 0.12, "matsuda_template": "V"},
+            "proportions": {"dominant": 0.55, "secondary": 0.3, "accent": 0.15, "distance_60_30_10": 0.05,
+                            "palette": {"#7a8296": 0.55, "#c8c4bc": 0.3, "#b43c28": 0.15},
+                            "hue_template": {"name": "V", "rotation_deg": 212.0, "distance_deg": 3.5},
+                            "lighting": "warm"},
         }],
     }
 
@@ -206,7 +209,13 @@ def test_gather_bundle_totals_and_proportions(report):
     data, _ = report
     (b,) = data.bundles
     assert b.total_price == pytest.approx(sum(it.line_total for it in b.items))
-    assert dict(b.proportions)["matsuda template"] == "V"
+    rows = dict(b.proportions)
+    assert rows["60-30-10"] == "55 % / 30 % / 15 % (distance 0.05 from 60-30-10)"
+    assert rows["hue template"].startswith("Matsuda type V at 212")
+    assert rows["lighting"] == "warm"
+    # The room's grouped palette is drawn as the strip, widths as given.
+    widths = [float(r.get("width")) for r in ET.fromstring(str(b.strip)).findall(f"{SVG}rect")]
+    assert widths == pytest.approx([320 * 0.55, 320 * 0.3, 320 * 0.15])
     assert b.wheel  # drawn for the pair that weighs most
     assert "sofa with rug" in b.wheel_caption
 
