@@ -288,8 +288,45 @@ def _sq_dist(points, centres):
     return np.einsum("nkc,nkc->nk", d, d)
 
 
-def weighted_kmeans(points, weights, k, rng, max_iter=100):
-    """Lloyd's k-means with point weights and a greedy k-means++ start.
+def _kmeans_once(points, weights, k, rng, max_iter):
+    n = points.shape[0]
+    cum = np.cumsum(weights)
+    chosen = [min(int(np.searchsorted(cum, rng.random() * cum[-1], side="right")), n - 1)]
+    closest = _sq_dist(points, points[chosen])[:, 0]
+    trials = 2 + int(np.log(k))
+    for _ in range(1, k):
+        potential = weights * closest
+        cum = np.cumsum(potential)
+        if not cum[-1] > 0.0:
+            break
+        cand = np.minimum(np.searchsorted(cum, rng.random(trials) * cum[-1], side="right"), n - 1)
+        d_cand = np.minimum(closest[:, None], _sq_dist(points, points[cand]))
+        best = int(np.argmin(weights @ d_cand))
+        chosen.append(int(cand[best]))
+        closest = d_cand[:, best]
+    centres = points[chosen].copy()
+    assignment = None
+    for _ in range(max_iter):
+        d2 = _sq_dist(points, centres)
+        new = np.argmin(d2, axis=1)
+        if assignment is not None and np.array_equal(new, assignment):
+            break
+        assignment = new
+        mass = np.bincount(assignment, weights=weights, minlength=len(centres))
+        used = mass > 0
+        sums = np.stack(
+            [np.bincount(assignment, weights=weights * points[:, c], minlength=len(centres)) for c in range(points.shape[1])],
+            axis=1,
+        )
+        centres[used] = sums[used] / mass[used, None]
+    inertia = float(weights @ _sq_dist(points, centres)[np.arange(n), assignment])
+    used = np.bincount(assignment, minlength=len(centres)) > 0
+    remap = np.cumsum(used) - 1
+    return inertia, centres[used], remap[assignment]
+
+
+def weighted_kmeans(points, weights, k, rng, max_iter=100, n_init=3):
+    """Lloyd's k-means with point weights and a greedy k-means++ start; best of ``n_init`` starts.
 
     Parameters
     ----------
@@ -299,6 +336,9 @@ def weighted_kmeans(points, weights, k, rng, max_iter=100):
     rng : numpy.random.Generator
         Drives the k-means++ seeding; the same generator state gives the same result.
     max_iter : int
+        Lloyd iterations per start (stops earlier once the assignment no longer changes).
+    n_init : int
+        Independent starts; the one with the lowest weighted inertia wins (the first on ties).
 
     Returns
     -------
@@ -311,48 +351,22 @@ def weighted_kmeans(points, weights, k, rng, max_iter=100):
     -----
     A small numpy loop rather than ``sklearn.cluster.KMeans``: the points here are a few hundred
     to a few thousand occupied colour bins, where scikit-learn's per-call validation and thread
-    set-up cost more than the clustering itself (measured: about 3 ms per call against well under
-    1 ms here on this machine). Seeding follows Arthur & Vassilvitskii (2007), "k-means++: the
-    advantages of careful seeding", SODA, with 2 + ln k local trials per centre as in
-    scikit-learn's greedy variant.
+    set-up cost more than the clustering itself (measured on this machine: several ms per call
+    against well under 1 ms here). Seeding follows Arthur & Vassilvitskii (2007), "k-means++: the
+    advantages of careful seeding", Proc. 18th ACM-SIAM SODA, 1027-1035, with 2 + ln k local
+    trials per centre as in scikit-learn's greedy variant. Several starts guard against the local
+    minima that few, heavy, well-separated points (a colour chart) make likely.
     """
     points = np.asarray(points, dtype=float)
     weights = np.asarray(weights, dtype=float)
-    n = points.shape[0]
-    if n <= k:
-        return points.copy(), np.arange(n)
-    chosen = [int(np.searchsorted(np.cumsum(weights), rng.random() * weights.sum(), side="right"))]
-    chosen[0] = min(chosen[0], n - 1)
-    closest = _sq_dist(points, points[chosen])[:, 0]
-    trials = 2 + int(np.log(k))
-    for _ in range(1, k):
-        potential = weights * closest
-        total = potential.sum()
-        if not total > 0.0:
-            break
-        cum = np.cumsum(potential)
-        cand = np.minimum(np.searchsorted(cum, rng.random(trials) * total, side="right"), n - 1)
-        d_cand = np.minimum(closest[:, None], _sq_dist(points, points[cand]))
-        best = int(np.argmin(weights @ d_cand))
-        chosen.append(int(cand[best]))
-        closest = d_cand[:, best]
-    centres = points[chosen].copy()
-    assignment = None
-    for _ in range(max_iter):
-        new = np.argmin(_sq_dist(points, centres), axis=1)
-        if assignment is not None and np.array_equal(new, assignment):
-            break
-        assignment = new
-        mass = np.bincount(assignment, weights=weights, minlength=len(centres))
-        used = mass > 0
-        sums = np.stack(
-            [np.bincount(assignment, weights=weights * points[:, c], minlength=len(centres)) for c in range(points.shape[1])],
-            axis=1,
-        )
-        centres[used] = sums[used] / mass[used, None]
-    used = np.bincount(assignment, minlength=len(centres)) > 0
-    remap = np.cumsum(used) - 1
-    return centres[used], remap[assignment]
+    if points.shape[0] <= k:
+        return points.copy(), np.arange(points.shape[0])
+    best = None
+    for _ in range(max(1, n_init)):
+        run = _kmeans_once(points, weights, k, rng, max_iter)
+        if best is None or run[0] < best[0]:
+            best = run
+    return best[1], best[2]
 
 
 def _merge_close(centres, masses, limit):

@@ -153,7 +153,7 @@ def studio_shot(
     )
 
 
-def colour_chart(colours_srgb1, columns=6, patch=64, gutter=12, gutter_srgb1=(0.0, 0.0, 0.0)):
+def colour_chart(colours_srgb1, columns=6, patch=64, gutter=12, margin=None, gutter_srgb1=(0.0, 0.0, 0.0)):
     """Lay colour patches out in a grid of equal squares on a uniform surround.
 
     Parameters
@@ -163,7 +163,9 @@ def colour_chart(colours_srgb1, columns=6, patch=64, gutter=12, gutter_srgb1=(0.
     columns : int
         Patches per row.
     patch, gutter : int
-        Side of each square and the width of the surround between and around them, in pixels.
+        Side of each square and the width of the surround between them, in pixels.
+    margin : int, optional
+        Width of the surround around the grid; ``2 * gutter`` if omitted.
     gutter_srgb1 : array_like, shape (3,)
         Colour of the surround.
 
@@ -174,15 +176,16 @@ def colour_chart(colours_srgb1, columns=6, patch=64, gutter=12, gutter_srgb1=(0.
     colours = np.asarray(colours_srgb1, dtype=float)
     if colours.ndim != 2 or colours.shape[1] != 3:
         raise ValueError(f"colours_srgb1 must have shape (n, 3), got {colours.shape}")
+    margin = 2 * gutter if margin is None else int(margin)
     rows = -(-len(colours) // columns)
-    h = rows * patch + (rows + 1) * gutter
-    w = columns * patch + (columns + 1) * gutter
+    h = rows * patch + (rows - 1) * gutter + 2 * margin
+    w = columns * patch + (columns - 1) * gutter + 2 * margin
     img = np.empty((h, w, 3))
     img[:] = np.asarray(gutter_srgb1, dtype=float)
     for i, c in enumerate(colours):
         r, k = divmod(i, columns)
-        y0 = gutter + r * (patch + gutter)
-        x0 = gutter + k * (patch + gutter)
+        y0 = margin + r * (patch + gutter)
+        x0 = margin + k * (patch + gutter)
         img[y0 : y0 + patch, x0 : x0 + patch] = c
     return _srgb1_to_8(img)
 
