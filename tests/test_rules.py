@@ -343,3 +343,25 @@ def test_hue_rules_vanish_for_neutrals(default_rules):
 def test_kernel_shape_check(default_rules):
     with pytest.raises(ValueError, match=r"jab_a must have shape \(n, 3\), got \(2, 2\)"):
         default_rules.default_rules().kernel(np.zeros((2, 2)), np.zeros((1, 3)))
+
+
+def test_readme_worked_example():
+    # Silver: the worked example of rules/README.md, so the document stays true to the code.
+    from harmony.colour import hex_to_srgb1, srgb1_to_jab
+    from harmony.palette import Palette
+    from harmony.score import pair_score
+
+    readme = (Path(load_rules().path).parent / "README.md").read_text(encoding="utf-8")
+    text = readme.split("```toml\n", 1)[1].split("```", 1)[0]
+    rs = parse_rules(text, where="README.md")
+
+    def pal(codes, weights):
+        return Palette(srgb1_to_jab(np.array([hex_to_srgb1(c) for c in codes])), weights)
+
+    rug = pal(["#b8400d", "#d9d2c5"], [0.4, 0.6])
+    sofa = pal(["#008080", "#3a3a3a"], [0.7, 0.3])
+    result = pair_score(rug, sofa, rs.for_pair("rug", "sofa"))
+    np.testing.assert_allclose(rs.for_pair("rug", "sofa").kernel(rug.jab, sofa.jab), [[0.403, 0.891], [1.0, 1.0]], atol=5e-4)
+    assert round(result.raw, 3) == 0.820 and round(result.score, 3) == 0.964
+    assert dict(result.contributions) == pytest.approx({"complementary": 0.113, "anchor": 0.432, "rug_lighter": 0.275}, abs=5e-4)
+    assert result.reason == "the rug's beige (60 %) anchors the sofa's teal (70 %): anchor"
