@@ -1045,7 +1045,8 @@ def write_shop(directory=DEFAULT_SHOP_DIR, seed=DEFAULT_SEED, only=None, progres
     Parameters
     ----------
     directory : path
-        Output folder; created if missing. Existing files of the same names are overwritten.
+        Output folder; created if missing. Existing files of the same names are overwritten, and
+        when the whole shop is written, other ``images/*.jpg`` files there are removed.
     seed : int
         Seed of the one :class:`numpy.random.Generator` everything comes from.
     only : iterable of str, optional
@@ -1076,6 +1077,11 @@ def write_shop(directory=DEFAULT_SHOP_DIR, seed=DEFAULT_SEED, only=None, progres
         for rel, kind in prod.images:
             (directory / rel).write_bytes(encode_jpeg(draw_photo(prod, kind)))
             n_images += 1
+    if only is None:  # the whole shop: photos of products that no longer exist would be stray
+        listed = {Path(rel).name for prod in products for rel, _ in prod.images}
+        for stale in (directory / "images").glob("*.jpg"):
+            if stale.name not in listed:
+                stale.unlink()
     catalogue = directory / "catalogue.csv"
     with open(catalogue, "w", newline="", encoding="utf-8") as fh:
         writer = csv.DictWriter(fh, fieldnames=CATALOGUE_COLUMNS, lineterminator="\n")
