@@ -581,7 +581,7 @@ def build_problem(store, room, rules, budget=None, anchor=None, exclude=(), pool
             palettes[p.id] = pals[p.id]
         raw_pools.append(usable)
 
-    cheapest = [min(p.price * s.quantity for p in pool) if (s.required and pool) else 0.0
+    cheapest = [min(p.price * s.quantity for p in pool) if ((s.required or s.name == anchor_slot) and pool) else 0.0
                 for s, pool in zip(room.slots, raw_pools)]
     if sum(cheapest) > budget:
         parts = " + ".join(f"{s.name} {_money(c, room.currency)}" for s, c in zip(room.slots, cheapest) if c)
@@ -628,7 +628,9 @@ def build_problem(store, room, rules, budget=None, anchor=None, exclude=(), pool
         pools = kept
         scores, weights = matrices(pools)
 
-    slots = tuple(BundleSlot(s.name, s.category, s.quantity, s.required) for s in room.slots)
+    # The anchor's slot must be filled even when the template makes it optional.
+    slots = tuple(BundleSlot(s.name, s.category, s.quantity, s.required or s.name == anchor_slot)
+                  for s in room.slots)
     cands = tuple(tuple(Candidate(p.id, float(p.price), p.stock) for p in pool) for pool in pools)
     graph = problem_graph(BundleProblem(slots, cands, scores, weights, budget))
     return problem_from_graph(graph, slots, budget), eligible, palettes
