@@ -1,0 +1,91 @@
+import warnings
+
+import numpy as np
+import pytest
+
+from harmony import colour
+from harmony.image import decode_image
+from harmony.mask import SCENE_CONFIDENCE, border_ring, foreground_mask
+from harmony.synthetic import encode_jpeg, encode_png, studio_shot
+
+from reference_data import SCENE_PHOTOS
+
+
+def _jab(srgb8):
+    return colour.srgb1_to_jab(np.asarray(srgb8, float) / 255.0)
+
+
+def test_border_ring():
+    ring = border_ring((10, 12), 2)
+    assert ring.sum() == 10 * 12 - 6 * 8
+    assert not ring[2:8, 2:10].any()
+
+
+def test_studio_shot_mask_matches_painted_product():
+    # The generated shot knows which pixels were painted; compare at full resolution (PNG, no
+    # JPEG loss) so every pixel has its label.
+    shot = studio_shot(np.random.default_rng(7), 240, 240)
+    mask = foreground_mask(_jab(shot.srgb8))
+    assert not mask.scene and mask.confidence >= 0.8
+    product = shot.labels >= 0
+    kept = mask.weights > 0
+    iou = (kept & product).sum() / (kept | product).sum()
+    assert iou > 0.97
+    # The near-white pillow inside the product is kept although it is close to the backdrop.
+    pillow = shot.labels == 2
+    assert colour.delta_e(_jab(shot.colours_srgb1[2] * 255), _jab(shot.background_srgb1 * 255)) < 6.0
+    assert kept[pillow].mean() > 0.97
+    # The soft shadow is removed where it is noticeable.
+    shadow = (shot.shadow > 0.05) & ~product
+    # (a few outline pixels where legs meet the shadow are blends and stay)
+    assert shadow.sum() > 100 and kept[shadow].mean() < 0.03
+    # The backdrop colour is the painted one (within noise and the fall-off).
+    assert colour.delta_e(mask.background_jab, _jab(shot.background_srgb1 * 255)) < 2.0
+
+
+@pytest.mark.parametrize("name", SCENE_PHOTOS)
+def test_skimage_photographs_are_scenes(name):
+    # gold: real photographs from scikit-image's sample data; their borders are busy.
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        import skimage.data
+
+    img = decode_image(encode_png(getattr(skimage.data, name)()), max_side=128)
+    mask = foreground_mask(_jab(img.srgb8))
+    assert mask.scene
+    assert mask.confidence == SCENE_CONFIDENCE
+    assert mask.background_jab is None
+    # Centre prior: the centre counts more than the corners.
+    h, w = mask.weights.shape
+    assert mask.weights[h // 2, w // 2] > 5 * mask.weights[0, 0]
+
+
+def test_transparent_background():
+    rgba = np.zeros((40, 40, 4), np.uint8)
+    rgba[..., :3] = (250, 250, 250)
+    rgba[10:30, 10:30] = (200, 40, 40, 255)
+    img = decode_image(encode_png(rgba))
+    mask = foreground_mask(_jab(img.srgb8), img.opaque)
+    assert mask.background_jab is None and not mask.scene
+    assert mask.background_share == pytest.approx(1 - 400 / 1600)
+    assert (mask.weights > 0).sum() == 400
+
+
+def test_light_grey_product_in_shadow_is_kept():
+    # A light grey box (sharp outline) standing in the soft shadow is not taken for shadow.
+    colours = [[0.78, 0.78, 0.78], [0.78, 0.78, 0.78], [0.78, 0.78, 0.78], [0.70, 0.70, 0.70]]
+    shot = studio_shot(np.random.default_rng(2), 200, 200, colours_srgb1=colours)
+    mask = foreground_mask(_jab(shot.srgb8))
+    assert (mask.weights > 0)[shot.labels >= 0].mean() > 0.95
+
+
+def test_bad_shape():
+    with pytest.raises(ValueError, match=r"shape \(h, w, 3\), got \(4, 3\)"):
+        foreground_mask(np.zeros((4, 3)))
+
+
+def test_jpeg_noise_does_not_break_uniformity():
+    shot = studio_shot(np.random.default_rng(11))
+    img = decode_image(encode_jpeg(shot.srgb8, quality=75), max_side=128)
+    mask = foreground_mask(_jab(img.srgb8))
+    assert not mask.scene
