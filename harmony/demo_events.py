@@ -1,0 +1,272 @@
+"""Simulated shoppers of the invented demo shop, and the interaction log they leave.
+
+Everything here is invented for the demo: the shoppers, their tastes and their sessions are made
+up, so that ``harmony evaluate`` has something to show. It is never a check value, and it says
+nothing about how real shoppers behave.
+
+The shoppers
+------------
+Each session furnishes one room of ``demo_room_sets/*.toml`` (drawn with equal chances). The
+shopper first looks at a product of the room's leading category (its first slot), then visits two
+to four of the room's other categories. In each visited category they view one to four products, more
+likely the ones they find appealing (their thumbnails show the colours); they put the most
+appealing of those in the cart with probability :data:`CART_CHANCE` and buy it with probability
+:data:`BUY_CHANCE` once in the cart; the anchor is carted and bought the same way.
+
+Appeal of a partner ``b`` to a shopper who holds ``a`` is a weighted sum over the colour pairs of
+the two palettes (the palettes that harmony extracts from the photos, i.e. what the shopper sees),
+with one of three tastes, drawn per session:
+
+``tone``   (:data:`TASTE_SHARES` 55 %)
+    likes close dominant hues (within about 25 degrees), dislikes hues 50-100 degrees apart,
+    and finds any pairing with a neutral mildly pleasing;
+``accent`` (25 %)
+    likes one bold contrast (hues about opposite), mildly likes close hues, same dislike;
+``price``  (20 %)
+    ignores colour and prefers cheaper products.
+
+The log has the columns ``session,product,event,timestamp``, sorted by time; sessions fall on
+invented dates in February 2026. A few rows name products that are no longer in the catalogue
+(:data:`RETIRED_IDS`), as real logs do; the evaluation counts and reports them.
+
+Regenerate the committed log with ``python -m harmony.demo_events``; the same seed and shop give
+a byte-identical file.
+"""
+
+import argparse
+import csv
+import io
+import math
+import sys
+import tempfile
+from datetime import datetime, timedelta, timezone
+from pathlib import Path
+
+import numpy as np
+
+from .catalogue import normalise_category
+from .colour import hue_deg, lightness
+from .palette import neutrality
+from .paths import DEMO_DIR
+
+__all__ = [
+    "DEFAULT_SEED",
+    "SESSIONS",
+    "TASTE_SHARES",
+    "CART_CHANCE",
+    "BUY_CHANCE",
+    "RETIRED_IDS",
+    "DEFAULT_EVENTS_PATH",
+    "appeal",
+    "simulate_sessions",
+    "events_csv",
+    "write_demo_events",
+    "main",
+]
+
+DEFAULT_SEED = 2026_02
+#: Sessions in the demo log (a few thousand rows, well under 1 MB; few enough that most products
+#: meet only some of their possible partners).
+SESSIONS = 400
+#: Share of sessions with each taste (invented).
+TASTE_SHARES = {"tone": 0.55, "accent": 0.25, "price": 0.20}
+#: Chance that the most appealing viewed product of a category goes in the cart, and that a
+#: carted product is bought (invented).
+CART_CHANCE = 0.45
+BUY_CHANCE = 0.5
+#: How strongly appeal steers which products are viewed and carted (softmax inverse temperature).
+SHARPNESS = 6.0
+#: Products no longer in the catalogue, named by a few rows (invented ids).
+RETIRED_IDS = ("SOF-090", "RUG-091", "CUS-092")
+DEFAULT_EVENTS_PATH = DEMO_DIR / "shop" / "events.csv"
+#: First day of the invented log.
+_START = datetime(2026, 2, 1, 7, 0, tzinfo=timezone.utc)
+
+
+def _bump(x, centre, spread):
+    return np.exp(-(((x - centre) / spread) ** 2))
+
+
+def appeal(pal_a, pal_b, taste):
+    """How much a shopper with ``taste`` likes ``pal_b`` beside ``pal_a`` (colour tastes only).
+
+    Returns the weighted sum over colour pairs ``w_a[i] * w_b[j] * f(c_a[i], c_b[j])`` where ``f``
+    blends the hue taste of chromatic pairs with a mild liking for neutrals (see the module notes).
+    The ``price`` taste has no colour preference: 0.
+    """
+    if taste == "price":
+        return 0.0
+    ha, hb = hue_deg(pal_a.jab), hue_deg(pal_b.jab)
+    dh = np.abs((ha[:, None] - hb[None, :] + 180.0) % 360.0 - 180.0)  # 0..180 degrees
+    chroma = (1.0 - neutrality(pal_a.jab))[:, None] * (1.0 - neutrality(pal_b.jab))[None, :]
+    dislike = -0.9 * _bump(dh, 75.0, 18.0)
+    if taste == "tone":
+        hue_term = _bump(dh, 0.0, 25.0) + dislike
+    elif taste == "accent":
+        hue_term = 1.2 * _bump(dh, 180.0, 25.0) + 0.3 * _bump(dh, 0.0, 20.0) + dislike
+    else:
+        raise ValueError(f"unknown taste {taste!r}")
+    f = chroma * hue_term + (1.0 - chroma) * 0.35
+    return float(pal_a.weights @ f @ pal_b.weights)
+
+
+def _choose(rng, values, count):
+    """``count`` distinct indices drawn with chances proportional to exp(SHARPNESS * value)."""
+    v = SHARPNESS * (np.asarray(values, dtype=float) - np.max(values))
+    p = np.exp(v)
+    p /= p.sum()
+    count = min(count, int(np.count_nonzero(p)))
+    return rng.choice(len(values), size=count, replace=False, p=p)
+
+
+def simulate_sessions(products, palettes, rooms, rng, sessions=SESSIONS):
+    """Simulate shopping sessions.
+
+    Parameters
+    ----------
+    products : sequence of harmony.catalogue.Product
+    palettes : mapping of str to Palette
+        Products without a palette are never shown.
+    rooms : sequence of sequences of str
+        The categories of each room, leading category first.
+    rng : numpy.random.Generator
+    sessions : int
+
+    Returns
+    -------
+    list of (session, product, event, seconds after the log's start)
+        In session order, events of a session in time order.
+    """
+    by_cat = {}
+    for p in products:
+        if p.id in palettes and p.in_stock():
+            by_cat.setdefault(normalise_category(p.category), []).append(p)
+    rooms = [[normalise_category(c) for c in room if normalise_category(c) in by_cat] for room in rooms]
+    rooms = [room for room in rooms if len(room) >= 2]
+    if not rooms:
+        raise ValueError("no room has two categories with products in stock and palettes")
+    tastes, shares = list(TASTE_SHARES), np.array(list(TASTE_SHARES.values()))
+    rows = []
+    width = len(str(sessions))
+    span = 28 * 24 * 3600
+    for s in range(sessions):
+        sid = f"s{s + 1:0{width}d}"
+        room = rooms[int(rng.integers(len(rooms)))]
+        taste = tastes[int(rng.choice(len(tastes), p=shares / shares.sum()))]
+        clock = float(rng.uniform(0, span))
+        anchor = by_cat[room[0]][int(rng.integers(len(by_cat[room[0]])))]
+
+        def emit(product, event):
+            nonlocal clock
+            clock += float(rng.uniform(15, 120))
+            rows.append((sid, product.id, event, int(clock)))
+
+        emit(anchor, "view")
+        others = room[1:]
+        visits = int(rng.integers(2, 5))
+        order = rng.permutation(len(others))[: min(visits, len(others))]
+        for idx in order:
+            shelf = by_cat[others[int(idx)]]
+            if taste == "price":
+                prices = np.array([p.price for p in shelf])
+                values = -np.log(prices / prices.min() + 1e-9) / 2.0
+            else:
+                values = np.array([appeal(palettes[anchor.id], palettes[p.id], taste) for p in shelf])
+            viewed = _choose(rng, values, int(rng.integers(1, 5)))
+            for i in viewed:
+                emit(shelf[int(i)], "view")
+            noisy = values[viewed] + rng.gumbel(0.0, 1.0 / SHARPNESS, size=len(viewed))
+            best = shelf[int(viewed[int(np.argmax(noisy))])]
+            if rng.random() < CART_CHANCE:
+                emit(best, "cart")
+                if rng.random() < BUY_CHANCE:
+                    emit(best, "purchase")
+        if rng.random() < CART_CHANCE:
+            emit(anchor, "cart")
+            if rng.random() < BUY_CHANCE:
+                emit(anchor, "purchase")
+    for k, pid in enumerate(RETIRED_IDS):
+        rows.append((f"r{k + 1}", pid, "view", int(rng.uniform(0, span))))
+    return rows
+
+
+def events_csv(rows, start=_START):
+    """The log as CSV text, sorted by time (then session), ISO 8601 UTC timestamps."""
+    out = io.StringIO()
+    writer = csv.writer(out, lineterminator="\n")
+    writer.writerow(("session", "product", "event", "timestamp"))
+    for sid, pid, event, seconds in sorted(rows, key=lambda r: (r[3], r[0])):
+        stamp = (start + timedelta(seconds=seconds)).strftime("%Y-%m-%dT%H:%M:%SZ")
+        writer.writerow((sid, pid, event, stamp))
+    return out.getvalue()
+
+
+def _rooms(directory):
+    from .room import load_room
+
+    rooms = []
+    for path in sorted(Path(directory).glob("*.toml")):
+        template = load_room(path)
+        seen = []
+        for slot in template.slots:
+            if slot.category not in seen:
+                seen.append(slot.category)
+        rooms.append(seen)
+    return rooms
+
+
+def write_demo_events(out=DEFAULT_EVENTS_PATH, shop=DEMO_DIR / "shop", rooms_dir=DEMO_DIR, seed=DEFAULT_SEED,
+                      sessions=SESSIONS, db_path=None):
+    """Extract the demo shop into a temporary store, simulate the shoppers, write the log.
+
+    Parameters
+    ----------
+    out : path
+        The CSV file to write (whole, through a temporary file).
+    shop : path
+        Folder of the demo shop's ``catalogue.csv``.
+    rooms_dir : path
+        Folder of the room templates.
+    seed : int
+        Seed of the one :class:`numpy.random.Generator` the sessions come from.
+    db_path : path, optional
+        An existing or new store to use instead of a temporary one.
+
+    Returns
+    -------
+    (Path, int)
+        The file written and its number of data rows.
+    """
+    from .engine import run_extraction
+    from .store import Store
+
+    with tempfile.TemporaryDirectory() as tmp:
+        db = Path(db_path) if db_path is not None else Path(tmp) / "shop.db"
+        run_extraction(Path(shop) / "catalogue.csv", db, progress=False)
+        with Store(db) as store:
+            products = store.products()
+            palettes = store.palettes()
+    rows = simulate_sessions(products, palettes, _rooms(rooms_dir), np.random.default_rng(seed), sessions)
+    out = Path(out)
+    out.parent.mkdir(parents=True, exist_ok=True)
+    tmp_out = out.with_name(out.name + ".part")
+    tmp_out.write_text(events_csv(rows), encoding="utf-8")
+    tmp_out.replace(out)
+    return out, len(rows)
+
+
+def main(argv=None):
+    """``python -m harmony.demo_events [--out FILE] [--seed N]``: regenerate the demo log."""
+    parser = argparse.ArgumentParser(prog="python -m harmony.demo_events",
+                                     description="Regenerate the invented demo shop's interaction log.")
+    parser.add_argument("--out", default=str(DEFAULT_EVENTS_PATH), help="output file (default: %(default)s)")
+    parser.add_argument("--seed", type=int, default=DEFAULT_SEED, help="generator seed (default: %(default)s)")
+    parser.add_argument("--sessions", type=int, default=SESSIONS, help="sessions (default: %(default)s)")
+    args = parser.parse_args(argv)
+    path, n = write_demo_events(args.out, seed=args.seed, sessions=args.sessions)
+    print(f"{n} interactions in {path}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
