@@ -1,0 +1,134 @@
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+
+from harmony import colour
+from harmony.errors import HarmonyError, ImageError
+from harmony.palette import Palette, PaletteSettings, extract_palette, weighted_kmeans
+from harmony.synthetic import colour_chart, encode_jpeg, encode_png, studio_shot
+
+from reference_data import colorchecker_srgb1
+
+
+@pytest.fixture(scope="module")
+def shot():
+    return studio_shot(np.random.default_rng(1))
+
+
+@pytest.mark.parametrize("encode", [encode_png, encode_jpeg])
+def test_colorchecker_recovered_at_k24(encode):
+    # gold: ColorChecker sRGB values from colour-science (reference_data.colorchecker_srgb1).
+    _, srgb = colorchecker_srgb1()
+    pal = extract_palette(encode(colour_chart(srgb)), PaletteSettings(colours=24))
+    ref = colour.srgb1_to_jab(srgb)
+    d = colour.delta_e(ref[:, None, :], pal.jab[None, :, :])
+    assert len(pal) == 24 and not pal.scene
+    # JPEG (quality 90, 4:2:0 chroma) shifts small patches by up to about 2 ΔE; PNG is lossless.
+    assert d.min(axis=1).max() < 3.0
+    share = np.bincount(d.argmin(axis=0), weights=pal.weights, minlength=24)
+    assert np.all(np.abs(share - 1 / 24) < 0.025)
+
+
+def test_studio_shot_colours_and_shares(shot):
+    pal = extract_palette(encode_jpeg(shot.srgb8))
+    painted = colour.srgb1_to_jab(shot.colours_srgb1)
+    backdrop = colour.srgb1_to_jab(shot.background_srgb1)
+    shadow = colour.srgb1_to_jab(shot.background_srgb1 * (1 - np.linspace(0.02, 0.22, 6))[:, None])
+    refs = np.vstack([painted, backdrop[None], shadow])
+    nearest = colour.delta_e(pal.jab[:, None, :], refs[None]).argmin(axis=1)
+    # No weight on the backdrop or the shadow: every colour is nearest to a painted one.
+    assert np.all(nearest < len(painted))
+    d = colour.delta_e(painted[:, None, :], pal.jab[None]).min(axis=1)
+    assert d.max() < 3.0
+    share = np.bincount(nearest, weights=pal.weights, minlength=len(painted))
+    assert np.allclose(share, shot.shares, atol=0.03)
+    # The near-white pillow inside the product is kept (about 9 % of the product).
+    assert share[2] > 0.06
+    assert not pal.scene and pal.confidence >= 0.8
+    assert pal.background_share > 0.6
+    assert colour.delta_e(pal.background_jab, backdrop) < 2.0
+
+
+def test_palette_invariants(shot):
+    pal = extract_palette(encode_jpeg(shot.srgb8), PaletteSettings(colours=10))
+    assert np.isclose(pal.weights.sum(), 1.0)
+    assert np.all(np.diff(pal.weights) <= 0)
+    assert np.all(pal.weights >= 0.01 - 1e-12)
+    d = colour.delta_e(pal.jab[:, None], pal.jab[None])
+    assert np.all(d[np.triu_indices(len(pal), 1)] >= PaletteSettings().merge_delta_e)
+    assert Palette.from_json(pal.to_json()).to_json() == pal.to_json()
+
+
+def test_deterministic_in_process_and_across_processes(shot, tmp_path):
+    data = encode_jpeg(shot.srgb8)
+    path = tmp_path / "shot.jpg"
+    path.write_bytes(data)
+    a = extract_palette(path).to_json()
+    assert extract_palette(path).to_json() == a
+    code = "import sys; from harmony.palette import extract_palette; print(extract_palette(sys.argv[1]).to_json())"
+    out = subprocess.run([sys.executable, "-c", code, str(path)], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == a
+
+
+def test_merge_and_specks():
+    # Two halves ΔE about 1 apart become one colour; a 0.3 % speck is dropped.
+    img = np.full((120, 120, 3), 245, np.uint8)
+    img[20:100, 20:60] = (120, 60, 40)
+    img[20:100, 60:100] = (121, 61, 41)
+    img[58:60, 88:90] = (20, 200, 20)
+    pal = extract_palette(encode_png(img), PaletteSettings(colours=5))
+    assert len(pal) == 1
+    assert colour.delta_e(pal.jab[0], colour.srgb1_to_jab(np.array([120.5, 60.5, 40.5]) / 255)) < 1.0
+
+
+def test_weighted_kmeans_matches_scikit_learn():
+    # gold: scikit-learn's KMeans with sample_weight on well-separated weighted blobs.
+    from sklearn.cluster import KMeans
+
+    rng = np.random.default_rng(5)
+    centres = np.array([[20.0, 0, 0], [50, 20, -10], [80, -15, 25], [60, 0, 30]])
+    pts = np.vstack([c + rng.normal(0, 1.5, (60, 3)) for c in centres])
+    w = rng.uniform(0.5, 3.0, len(pts))
+    ours, _ = weighted_kmeans(pts, w, 4, np.random.default_rng(0))
+    ref = KMeans(4, n_init=4, random_state=0).fit(pts, sample_weight=w).cluster_centers_
+    d = np.sqrt(((ours[:, None] - ref[None]) ** 2).sum(-1))
+    assert np.allclose(d.min(axis=1), 0.0, atol=1e-9)
+
+
+def test_scene_photo_low_confidence():
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        import skimage.data
+    pal = extract_palette(encode_png(skimage.data.astronaut()))
+    assert pal.scene and pal.confidence < 0.5 and pal.background_jab is None
+
+
+def test_settings_validation_and_key():
+    assert PaletteSettings().key == PaletteSettings().key
+    assert PaletteSettings(colours=5).key != PaletteSettings().key
+    with pytest.raises(HarmonyError, match="colours: must be an integer from 1 to 64, got 0"):
+        PaletteSettings(colours=0)
+    with pytest.raises(HarmonyError, match="levels: must be a power of two"):
+        PaletteSettings(levels=30)
+    with pytest.raises(HarmonyError, match=r"min_share: must lie in \[0, 0.5\)"):
+        PaletteSettings(min_share=0.7)
+
+
+def test_bad_inputs(tmp_path):
+    with pytest.raises(ImageError, match=r"missing\.jpg: no such file"):
+        extract_palette(tmp_path / "missing.jpg")
+    (tmp_path / "t.png").write_bytes(b"\x89PNG but not really")
+    with pytest.raises(ImageError, match=r"t\.png: not an image"):
+        extract_palette(tmp_path / "t.png")
+    blank = tmp_path / "blank.png"
+    blank.write_bytes(encode_png(np.full((64, 64, 3), 240, np.uint8)))
+    with pytest.raises(ImageError, match=r"blank\.png: nothing left after removing the background"):
+        extract_palette(blank)
+    with pytest.raises(ImageError, match=r"<bytes>: image is 64x64 = 4096 pixels, over the limit of 100"):
+        extract_palette(encode_png(np.zeros((64, 64, 3), np.uint8)), PaletteSettings(max_pixels=100))
+    with pytest.raises(ImageError, match="expected a file path or bytes"):
+        extract_palette(12)
