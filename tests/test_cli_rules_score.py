@@ -147,3 +147,17 @@ def test_score_bad_inputs(runner, palettes, tmp_path):
         assert result.exit_code == 2, path
         assert result.stderr.startswith("error: ") and message in result.stderr
         assert "Traceback" not in result.stderr
+
+
+def test_score_images(runner, palettes, tmp_path):
+    # A real photograph no one here made: scikit-image's sample image "coffee".
+    from skimage import data
+
+    photo = tmp_path / "coffee.png"
+    Image.fromarray(data.coffee()).save(photo)
+    _, sofa = palettes
+    result = runner.invoke(main, ["score", str(photo), str(sofa), "--categories", "cushion,sofa", "--json"])
+    assert result.exit_code == 0, result.stderr
+    out = json.loads(result.output)
+    assert 0.0 <= out["score"] <= 1.0 and out["categories"] == ["cushion", "sofa"]
+    assert out["reason"].startswith("the cushion's ")
