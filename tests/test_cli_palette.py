@@ -1,0 +1,108 @@
+import json
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+from PIL import Image
+
+from harmony.cli import main
+from harmony.swatch import ansi_block, segment_widths
+from harmony.synthetic import encode_jpeg, encode_png, studio_shot
+
+from reference_data import ANSI_TRUECOLOUR_EXAMPLE
+
+KEYS = {"image", "sha256", "width", "height", "scene", "confidence", "background", "colours"}
+COLOUR_KEYS = {"hex", "weight", "J", "a", "b", "M", "hue", "lrv", "neutral"}
+
+
+@pytest.fixture(scope="module")
+def files(tmp_path_factory):
+    d = tmp_path_factory.mktemp("imgs")
+    good = d / "chair.jpg"
+    good.write_bytes(encode_jpeg(studio_shot(np.random.default_rng(4), 400, 400).srgb8))
+    bad = d / "notes.jpg"
+    bad.write_text("not a picture")
+    cut = d / "cut.jpg"
+    cut.write_bytes(good.read_bytes()[:3000])
+    blank = d / "blank.png"
+    blank.write_bytes(encode_png(np.full((50, 50, 3), 230, np.uint8)))
+    return d, good, bad, cut, blank
+
+
+def test_table(files):
+    _, good, *_ = files
+    res = CliRunner().invoke(main, ["palette", str(good)])
+    assert res.exit_code == 0, res.output
+    assert "studio shot" in res.output and "#" in res.output and "\x1b[" not in res.output
+
+
+def test_json_keys_and_order(files):
+    _, good, *_ = files
+    res = CliRunner().invoke(main, ["palette", "--json", "--colours", "6", str(good)])
+    assert res.exit_code == 0
+    lines = res.output.strip().splitlines()
+    assert len(lines) == 1
+    obj = json.loads(lines[0])
+    assert set(obj) == KEYS and obj["image"] == str(good)
+    assert set(obj["background"]) == {"hex", "share"}
+    assert all(set(c) == COLOUR_KEYS for c in obj["colours"])
+    weights = [c["weight"] for c in obj["colours"]]
+    assert weights == sorted(weights, reverse=True) and len(weights) <= 6
+    assert abs(sum(weights) - 1) < 1e-9
+
+
+def test_bad_images_reported_others_processed(files):
+    d, good, bad, cut, blank = files
+    args = ["palette", "--json", str(bad), str(good), str(d / "missing.jpg"), str(cut), str(blank)]
+    res = CliRunner().invoke(main, args)
+    assert res.exit_code == 2
+    assert len(res.stdout.strip().splitlines()) == 1
+    err = res.stderr.strip().splitlines()
+    assert err == [
+        f"error: {bad}: not an image (unrecognised format)",
+        f"error: {d / 'missing.jpg'}: no such file",
+        f"error: {cut}: cannot decode: file is truncated",
+        f"error: {blank}: nothing left after removing the background",
+    ]
+    assert "Traceback" not in res.output
+
+
+def test_swatch_widths_are_weights(files, tmp_path):
+    _, good, *_ = files
+    out = tmp_path / "sw.png"
+    res = CliRunner().invoke(main, ["palette", "--json", "--swatch", str(out), str(good), str(good)])
+    assert res.exit_code == 0
+    obj = json.loads(res.output.splitlines()[0])
+    img = np.asarray(Image.open(out).convert("RGB"))
+    assert img.shape[1] == 600 and img.shape[0] == 2 * 48 + 4
+    row = img[10]
+    runs = np.flatnonzero(np.any(row[1:] != row[:-1], axis=1)) + 1
+    widths = np.diff(np.concatenate([[0], runs, [600]]))
+    expected = segment_widths([c["weight"] for c in obj["colours"]], 600)
+    assert widths.tolist() == expected.tolist()
+
+
+def test_swatch_unwritable(files, tmp_path):
+    _, good, *_ = files
+    res = CliRunner().invoke(main, ["palette", "--swatch", str(tmp_path / "no" / "x.png"), str(good)])
+    assert res.exit_code == 2
+    assert "cannot write swatch" in res.stderr and "Traceback" not in res.output
+
+
+def test_bad_colours_option(files):
+    _, good, *_ = files
+    res = CliRunner().invoke(main, ["palette", "--colours", "0", str(good)])
+    assert res.exit_code == 2 and "--colours" in res.output
+
+
+def test_segment_widths_sum_exactly():
+    w = segment_widths([1 / 3, 1 / 3, 1 / 3], 100)
+    assert w.sum() == 100 and set(w.tolist()) <= {33, 34}
+
+
+def test_ansi_block():
+    # gold: ECMA-48 / ISO/IEC 8613-6 direct colour SGR (reference_data).
+    code, expected = ANSI_TRUECOLOUR_EXAMPLE
+    assert ansi_block(code) == expected
+    with pytest.raises(ValueError, match="#rrggbb"):
+        ansi_block("orange")
