@@ -458,7 +458,7 @@ def _texture(kind, yy, xx, along, rng):
         cols = ndimage.gaussian_filter1d(rng.standard_normal(w), 0.5)[None, :]
         return 1.0 + 0.045 * weave + 0.022 * rows + 0.018 * cols + 0.02 * fine
     if kind == "velvet":
-        return 1.0 + 0.045 * _unit_noise(rng, (h, w), 14.0) + 0.05 * (0.5 - u / max(u.max(), 1.0)) + 0.012 * fine
+        return 1.0 + 0.03 * _unit_noise(rng, (h, w), 18.0) + 0.05 * (0.5 - u / max(u.max(), 1.0)) + 0.012 * fine
     if kind == "boucle":
         return 1.0 + 0.075 * _unit_noise(rng, (h, w), 0.9) + 0.01 * fine
     if kind == "leather":
