@@ -224,6 +224,10 @@ class _Searcher:
         mins = [float(c.min()) if (r and c.size) else 0.0 for c, r in zip(self.unit_cost, self.required)]
         self.min_rest = [sum(mins[d:]) for d in range(n + 1)]
         self.min_cost = mins
+        self.max_cost = [float(c.max()) if c.size else 0.0 for c in self.unit_cost]
+        # Scratch space for the one-level-ahead bounds (largest child count x pool of slot e).
+        widest = max(self.size, default=0)
+        self.buffer = [np.empty((widest, self.size[e])) for e in range(n)]
         self.max_nodes = max_nodes
         self.nodes = 0
         self.stopped = False
@@ -243,9 +247,15 @@ class _Searcher:
         for e in range(depth + 1, n):
             # Budget for slot e: what is left after the cheapest picks of the other required slots.
             allowed = left - (self.min_rest[depth + 1] - self.min_cost[e])
-            vals = (links[e] + self.future[e])[None, :] + self.pair[depth][e][cand]
-            ok = self.unit_cost[e][None, :] <= allowed[:, None] + 1e-9
-            term = np.max(np.where(ok, vals, -np.inf), axis=1, initial=-np.inf)
+            mat = self.pair[depth][e]
+            if cand.size < mat.shape[0]:
+                mat = mat[cand]
+            vals = np.add(mat, links[e] + self.future[e], out=self.buffer[e][:cand.size])
+            if cand.size and self.max_cost[e] <= allowed.min() + 1e-9:
+                term = vals.max(axis=1)             # every candidate of e fits under every child
+            else:
+                ok = self.unit_cost[e][None, :] <= allowed[:, None] + 1e-9
+                term = np.max(np.where(ok, vals, -np.inf), axis=1, initial=-np.inf)
             if not self.required[e]:
                 term = np.maximum(term, 0.0)
             rest += term
