@@ -91,3 +91,50 @@ def test_boolean_is_not_a_quantity():
     text = 'name = "x"\nbudget = 10\ncurrency = "EUR"\n[[slot]]\nname = "a"\ncategory = "desk"\nquantity = true\n'
     with pytest.raises(RoomError, match=r"<room>:7: slot\[1\]\.quantity: an integer >= 1 is required, got True"):
         parse_room(text)
+
+
+# ----------------------------------------------------------------- the room-level view (roomview)
+
+import numpy as np  # noqa: E402
+
+from harmony import colour  # noqa: E402
+from harmony.palette import Palette  # noqa: E402
+from harmony.roomview import colour_groups, proportion_distance, room_view  # noqa: E402
+
+
+def test_proportions_of_an_exact_60_30_10_room():
+    # The 60-30-10 rule of thumb (common practice): three distinct colours at 60/30/10 fit it exactly.
+    jab = colour.srgb1_to_jab([[0.9, 0.88, 0.82], [0.2, 0.3, 0.5], [0.8, 0.3, 0.1]])
+    sofa = Palette(jab[:1], [1.0])
+    rug = Palette(jab[1:2], [1.0])
+    cushion = Palette(jab[2:], [1.0])
+    # visible shares quantity x size: 1 x 0.6, 1 x 0.3, 2 x 0.05
+    view = room_view([sofa, rug, cushion], [0.6, 0.3, 0.1])
+    assert view.shares == pytest.approx((0.6, 0.3, 0.1))
+    assert view.distance == pytest.approx(0.0, abs=1e-12)
+    assert view.weights.sum() == pytest.approx(1.0)
+
+
+def test_single_colour_room_and_distance_by_hand():
+    grey = Palette(colour.srgb1_to_jab([[0.5, 0.5, 0.5]]), [1.0])
+    view = room_view([grey, grey], [1.0, 2.0])
+    assert view.shares == (1.0, 0.0, 0.0)
+    assert view.distance == pytest.approx(0.5 * (0.4 + 0.3 + 0.1))
+    assert view.template.name == "N"
+    assert proportion_distance((0.5, 0.3, 0.2)) == pytest.approx(0.1)
+
+
+def test_near_colours_are_grouped():
+    # Delta E in CAM02-UCS: two shades about 3 apart join one group, a far colour does not.
+    jab = np.array([[60.0, 10.0, 10.0], [61.0, 12.0, 8.0], [30.0, -20.0, -5.0]])
+    leads, shares = colour_groups(jab, [0.5, 0.2, 0.3])
+    assert shares == pytest.approx([0.7, 0.3])
+    assert leads[0] == pytest.approx(jab[0])
+
+
+def test_bad_visible_shares():
+    grey = Palette(colour.srgb1_to_jab([[0.5, 0.5, 0.5]]), [1.0])
+    with pytest.raises(ValueError, match="one visible share per palette"):
+        room_view([grey], [1.0, 2.0])
+    with pytest.raises(ValueError, match="not all zero"):
+        room_view([grey], [0.0])
