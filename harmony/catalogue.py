@@ -14,6 +14,7 @@ import csv
 import io
 import json
 import math
+import os
 import unicodedata
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -133,8 +134,12 @@ class Catalogue:
         return self.path.parent
 
     def image_path(self, image):
-        """Absolute path of an image path as written in the catalogue."""
-        return (self.root / image).resolve()
+        """Absolute path of an image path as written in the catalogue.
+
+        Joined to the (resolved) catalogue folder and normalised lexically; symbolic links
+        inside the image path are kept as written.
+        """
+        return Path(os.path.normpath(os.path.join(self.root, image)))
 
 
 def read_catalogue(path):

@@ -300,8 +300,8 @@ def run_extraction(
                 bar.update(len(results))
         finally:
             bar.close()
-        scene_only = len(store.scene_only())
-        no_palette = len(cat.products) - len(store.palettes())
+        with_palette, scene_only = store.coverage()
+        no_palette = len(cat.products) - with_palette
         distinct = len({info.sha256 for info in hashes.values() if info.sha256 is not None})
     return ExtractionSummary(
         products=len(cat.products),

@@ -365,6 +365,15 @@ class Store:
         """Ids of products whose chosen palette comes from a room-scene photo, sorted."""
         return sorted(pid for pid, found in self._chosen().items() if found[0].scene)
 
+    def coverage(self):
+        """(products with a chosen palette, of which scene-only), counted without loading palettes."""
+        sql = (
+            "SELECT MIN(pal.scene) FROM product_images pi"
+            " JOIN palettes pal ON pal.sha256 = pi.sha256 AND pal.settings_key = ? GROUP BY pi.product_id"
+        )
+        flags = [r[0] for r in self._db.execute(sql, (self.settings_key,))]
+        return len(flags), sum(1 for f in flags if f)
+
     def failures(self):
         """Images that yielded no palette: a list of (product id, image as written, reason).
 

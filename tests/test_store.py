@@ -133,6 +133,7 @@ def test_chosen_palette_prefers_first_studio_image(tmp_path):
         b = store.palette("B")
         assert b.scene and np.array_equal(b.jab, scene.jab) and b.confidence == SCENE_CONFIDENCE
         assert store.scene_only() == ["B"]
+        assert store.coverage() == (3, 1)
         assert store.chosen_images() == {"A": "studio1.jpg", "B": "scene.jpg", "C": "studio2.jpg"}
 
 
