@@ -291,3 +291,88 @@ def test_colour_attribute_overlap_and_standard_methods(tmp_path):
     assert names == ["complementary_only", "complementary_inverted", "same colours (EMD)", "colour attribute", "random order"]
     names = [m.name for m in standard_methods(rules[:1], {}, [Product("X", "Sofa", 1.0)])]
     assert "colour attribute" not in names
+
+
+# ---- the simulated demo shoppers (invented data: properties of the generator, not check values) ----
+
+from harmony import demo_events  # noqa: E402
+from harmony.paths import DEMO_DIR  # noqa: E402
+
+
+def test_tastes_as_documented():
+    base = Palette(jab=[chromatic(30.0)], weights=[1.0])
+    close, clash, opposite = (Palette(jab=[chromatic(h)], weights=[1.0]) for h in (45.0, 105.0, 210.0))
+    grey = Palette(jab=[[60.0, 0.5, 0.5]], weights=[1.0])
+    tone = {n: demo_events.appeal(base, p, "tone") for n, p in [("close", close), ("clash", clash), ("opp", opposite), ("grey", grey)]}
+    accent = {n: demo_events.appeal(base, p, "accent") for n, p in [("close", close), ("clash", clash), ("opp", opposite)]}
+    assert tone["close"] > tone["grey"] > tone["opp"] > tone["clash"]
+    assert tone["clash"] < 0 < tone["grey"]
+    assert accent["opp"] > accent["close"] > 0 > accent["clash"]
+    assert demo_events.appeal(base, clash, "price") == 0.0
+    with pytest.raises(ValueError, match="unknown taste"):
+        demo_events.appeal(base, clash, "loud")
+
+
+def small_shop(n=12):
+    products, palettes = [], {}
+    for cat in ("sofa", "rug"):
+        for i in range(n):
+            pid = f"{cat}{i}"
+            products.append(Product(pid, cat, 100.0 + 10 * i))
+            palettes[pid] = Palette(jab=[chromatic(360.0 * i / n + (15 if cat == "rug" else 0))], weights=[1.0])
+    return products, palettes
+
+
+def test_simulation_is_deterministic_and_well_formed():
+    products, palettes = small_shop()
+    one = demo_events.simulate_sessions(products, palettes, [["sofa", "rug"]], np.random.default_rng(1), 50)
+    two = demo_events.simulate_sessions(products, palettes, [["sofa", "rug"]], np.random.default_rng(1), 50)
+    assert one == two
+    text = demo_events.events_csv(one)
+    assert text.splitlines()[0] == "session,product,event,timestamp"
+    # Every purchase follows a cart of the same product in the same session.
+    carted = set()
+    for sid, pid, event, _ in one:
+        if event == "cart":
+            carted.add((sid, pid))
+        if event == "purchase":
+            assert (sid, pid) in carted
+    retired = [r for r in one if r[1] in demo_events.RETIRED_IDS]
+    assert len(retired) == len(demo_events.RETIRED_IDS)
+
+
+def test_tone_shoppers_pick_close_hues(monkeypatch):
+    products, palettes = small_shop()
+    hue = {pid: float(np.degrees(np.arctan2(p.jab[0, 2], p.jab[0, 1]))) for pid, p in palettes.items()}
+    monkeypatch.setattr(demo_events, "TASTE_SHARES", {"tone": 1.0})
+    rows = demo_events.simulate_sessions(products, palettes, [["sofa", "rug"]], np.random.default_rng(2), 200)
+    sessions = {}
+    for sid, pid, event, _ in rows:
+        sessions.setdefault(sid, set()).add(pid)
+    gaps = []
+    for items in sessions.values():
+        for a in items:
+            for b in items:
+                if a.startswith("sofa") and b.startswith("rug"):
+                    gaps.append(abs((hue[a] - hue[b] + 180) % 360 - 180))
+    # Rugs are spread evenly over the hue circle: a random pick would be 90 degrees away on average.
+    assert np.mean(gaps) < 50
+
+
+def test_committed_demo_log_is_small_and_matches_the_catalogue():
+    from harmony.catalogue import read_catalogue
+
+    path = DEMO_DIR / "shop" / "events.csv"
+    assert path.stat().st_size < 1_000_000
+    ids = {p.id for p in read_catalogue(DEMO_DIR / "shop" / "catalogue.csv").products}
+    log = read_events(path, known_products=ids)
+    assert {pid for pid, _ in log.unknown} == set(demo_events.RETIRED_IDS)
+    assert set(log.counts()) == {"view", "cart", "purchase"}
+
+
+@pytest.mark.slow
+def test_demo_log_regenerates_identically(tmp_path):
+    db = tmp_path / "shop.db"  # shared, so the second run reuses the extracted palettes
+    a, n = demo_events.write_demo_events(tmp_path / "a.csv", db_path=db, sessions=60)
+    b, _ = demo_events.write_demo_events(tmp_path / "b.csv", db_path=db, sessions=60)
+    assert a.read_bytes() == b.read_bytes() and n > 60
