@@ -1,0 +1,107 @@
+"""``harmony feed`` (the cross-sell feed file) and ``harmony suggest`` (partners for a stylist)."""
+
+import json
+import sys
+
+import click
+
+from . import main
+from ..errors import HarmonyError
+from ..feed import build_feed, suggest, write_feed
+from ..paths import DEFAULT_RULES
+from ..rules import load_rules
+from ..store import Store
+
+__all__ = ["feed", "suggest_cmd", "colour_blocks"]
+
+
+def colour_blocks(hex_codes, colour=True):
+    """The palette as terminal colour blocks (24-bit ANSI), or as plain hex codes."""
+    if colour:
+        try:
+            from ..swatch import ansi_block
+        except ImportError:
+            ansi_block = None
+        if ansi_block is not None:
+            return "".join(ansi_block(code) for code in hex_codes)
+    return " ".join(hex_codes)
+
+
+def _warn(message):
+    click.echo(f"warning: {message}", err=True)
+
+
+@main.command("feed")
+@click.option("--db", "db", required=True, type=click.Path(dir_okay=False), help="The palette store.")
+@click.option("--rules", "rules_path", type=click.Path(dir_okay=False), default=str(DEFAULT_RULES),
+              show_default="rules/default.toml", help="Harmony rules file.")
+@click.option("--top", type=click.IntRange(1, 1000), default=10, show_default=True,
+              help="Partners per product and target category.")
+@click.option("--targets", default=None, metavar="CAT,...",
+              help="Partner categories to list, comma-separated (default: all).")
+@click.option("--diversity", type=click.FloatRange(0.0, 1.0), default=0.0, show_default=True,
+              help="0 = best scores; higher spreads near-identical partners apart (maximal marginal relevance).")
+@click.option("--format", "fmt", type=click.Choice(["jsonl", "csv", "parquet"]), default=None,
+              help="Output format (default: from the --out suffix).")
+@click.option("--out", required=True, type=click.Path(dir_okay=False), help="The feed file to write.")
+def feed(db, rules_path, top, targets, diversity, fmt, out):
+    """Write the cross-sell feed: each product's best partners in the other categories.
+
+    Out-of-stock partners are left out. Each row holds product, category, partner,
+    partner_category, rank, score and a one-sentence reason.
+    """
+    rules = load_rules(rules_path)
+    target_list = None
+    if targets is not None:
+        target_list = [t.strip() for t in targets.split(",") if t.strip()]
+        if not target_list:
+            raise HarmonyError("--targets: no category names given")
+    with Store(db) as store:
+        rows = build_feed(store, rules, top=top, targets=target_list, diversity=diversity, warn=_warn)
+    if not rows:
+        raise HarmonyError(
+            f"{db}: no feed rows: the rules pair none of the store's categories with an in-stock target"
+        )
+    path = write_feed(rows, out, fmt)
+    products = len({r.product for r in rows})
+    click.echo(f"wrote {len(rows)} rows for {products} products to {path}")
+
+
+@main.command("suggest")
+@click.argument("product_id")
+@click.option("--db", "db", required=True, type=click.Path(dir_okay=False), help="The palette store.")
+@click.option("--category", default=None, help="Only partners of this category.")
+@click.option("-n", "n", type=click.IntRange(1, 1000), default=5, show_default=True, help="How many partners.")
+@click.option("--json", "as_json", is_flag=True, help="Print JSON instead of a table.")
+@click.option("--rules", "rules_path", type=click.Path(dir_okay=False), default=str(DEFAULT_RULES),
+              show_default="rules/default.toml", help="Harmony rules file.")
+def suggest_cmd(product_id, db, category, n, as_json, rules_path):
+    """The best in-stock partners of PRODUCT_ID, with scores, reasons and their colours."""
+    rules = load_rules(rules_path)
+    with Store(db) as store:
+        found = suggest(store, rules, product_id, category=category, n=n)
+        own = store.palette(found[0].row.product)
+    if as_json:
+        payload = {
+            "product": found[0].row.product,
+            "category": found[0].row.category,
+            "colours": list(own.hex),
+            "suggestions": [
+                {**s.row.to_dict(), "raw": s.pair.raw, "colours": list(s.palette.hex)} for s in found
+            ],
+        }
+        click.echo(json.dumps(payload, ensure_ascii=False))
+        return
+    try:
+        from ..swatch import terminal_has_colour
+
+        colour = terminal_has_colour(sys.stdout)
+    except ImportError:
+        colour = False
+    first = found[0].row
+    click.echo(f"{first.product} ({first.category})  {colour_blocks(own.hex, colour)}")
+    for s in found:
+        r = s.row
+        click.echo(f"{r.rank:>3}. {r.partner} ({r.partner_category})  score {r.score:.2f}  "
+                   f"{colour_blocks(s.palette.hex, colour)}")
+        click.echo(f"     {r.reason}")

@@ -1,0 +1,382 @@
+"""The cross-sell feed and stylist suggestions: best partners of each product in other categories.
+
+For every product and every category the rules pair its category with, the feed lists the top-N
+partners by exact pair score (found by :mod:`harmony.screen`), out-of-stock partners excluded.
+With ``diversity > 0`` the list is chosen by maximal marginal relevance, so that near-identical
+partners (the same rug in three sizes) do not fill it.
+
+References
+----------
+J. Carbonell, J. Goldstein (1998). The use of MMR, diversity-based reranking for reordering
+    documents and producing summaries. Proc. 21st ACM SIGIR, 335-336.
+A. Gretton, K. M. Borgwardt, M. J. Rasch, B. Schoelkopf, A. Smola (2012). A kernel two-sample test.
+    Journal of Machine Learning Research 13:723-773 (kernel mean embeddings of distributions).
+"""
+
+import csv
+import difflib
+import json
+import warnings
+from dataclasses import asdict, dataclass
+from pathlib import Path
+
+import numpy as np
+
+from .catalogue import normalise_category
+from .errors import HarmonyError, StoreError
+from .palette import Palette
+from .score import PairScore, pair_score, to_unit
+from .screen import BinGrid, PaletteStack, exact_raw, screen_top_k
+
+__all__ = [
+    "FeedRow",
+    "Suggestion",
+    "FEED_COLUMNS",
+    "FEED_FORMATS",
+    "SIMILARITY_DELTA_E",
+    "palette_similarity",
+    "similarity_matrix",
+    "mmr_select",
+    "build_feed",
+    "suggest",
+    "write_feed",
+]
+
+#: Feed columns, in file order (the JSONL keys, CSV header and Parquet schema).
+FEED_COLUMNS = ("product", "category", "partner", "partner_category", "rank", "score", "reason")
+
+#: Output formats of :func:`write_feed`, by file suffix.
+FEED_FORMATS = {".jsonl": "jsonl", ".ndjson": "jsonl", ".csv": "csv", ".parquet": "parquet"}
+
+#: Length scale (CAM02-UCS Delta E) of the Gaussian colour kernel behind palette similarity.
+#: Hand-set: about ten just-noticeable differences (a JND is about 1 Delta E in CAM02-UCS, Luo,
+#: Cui & Li 2006), so two palettes of the same colours in a slightly different shade count as
+#: near-identical and a clearly different shade does not.
+SIMILARITY_DELTA_E = 10.0
+
+
+@dataclass(frozen=True)
+class FeedRow:
+    """One line of the feed: ``partner`` is the ``rank``-th best partner of ``product``.
+
+    Categories are normalised (:func:`harmony.catalogue.normalise_category`); ``rank`` starts
+    at 1; ``score`` is the exact pair score in [0, 1]; ``reason`` is its explanation sentence.
+    """
+
+    product: str
+    category: str
+    partner: str
+    partner_category: str
+    rank: int
+    score: float
+    reason: str
+
+    def to_dict(self):
+        return asdict(self)
+
+
+@dataclass(frozen=True, eq=False)
+class Suggestion:
+    """A partner for a stylist: the feed row, the full scored explanation, the partner's palette."""
+
+    row: FeedRow
+    pair: PairScore
+    palette: Palette
+
+
+def _embedding_gram(jab_a, w_a, jab_b, w_b, sigma):
+    """<mu_a, mu_b> for stacks: jab (n, k, 3), w (n, k) against (m, l, 3), (m, l) -> (n, m)."""
+    n, k = w_a.shape
+    m, l = w_b.shape
+    diff = jab_a.reshape(-1, 1, 3) - jab_b.reshape(1, -1, 3)
+    g = np.exp(-np.einsum("ijc,ijc->ij", diff, diff) / (2.0 * sigma * sigma)).reshape(n, k, m, l)
+    return np.einsum("ik,ikjl,jl->ij", w_a, g, w_b)
+
+
+def similarity_matrix(palettes, sigma=SIMILARITY_DELTA_E):
+    """Pairwise palette similarity in [0, 1], shape (n, n), 1 on the diagonal.
+
+    The cosine of the palettes' kernel mean embeddings (Gretton et al. 2012) under the Gaussian
+    colour kernel ``exp(-dE^2 / (2 sigma^2))`` in CAM02-UCS: 1 for the same colours in the same
+    shares, near 0 for palettes whose colours are all far apart.
+    """
+    stack = PaletteStack.from_palettes(palettes)
+    if len(stack) == 0:
+        return np.zeros((0, 0))
+    gram = _embedding_gram(stack.jab, stack.weights, stack.jab, stack.weights, float(sigma))
+    d = np.sqrt(np.clip(np.diag(gram), 1e-300, None))
+    return np.clip(gram / np.outer(d, d), 0.0, 1.0)
+
+
+def palette_similarity(pal_a, pal_b, sigma=SIMILARITY_DELTA_E):
+    """Similarity of two palettes in [0, 1] (see :func:`similarity_matrix`)."""
+    return float(similarity_matrix([pal_a, pal_b], sigma)[0, 1])
+
+
+def mmr_select(relevance, similarity, n, diversity):
+    """Choose ``n`` items by maximal marginal relevance (Carbonell & Goldstein 1998).
+
+    Repeatedly takes the item maximising
+    ``(1 - diversity) * relevance[i] - diversity * max_{j chosen} similarity[i, j]``;
+    the first pick is the most relevant item. Ties go to the lower index.
+
+    Parameters
+    ----------
+    relevance : array_like, shape (m,)
+    similarity : array_like, shape (m, m)
+    n : int
+    diversity : float in [0, 1]
+        0 is the plain relevance order; Carbonell & Goldstein's lambda is ``1 - diversity``.
+
+    Returns
+    -------
+    list of int
+        Indices in the order chosen, ``min(n, m)`` of them.
+    """
+    rel = np.asarray(relevance, dtype=float)
+    sim = np.asarray(similarity, dtype=float)
+    m = rel.shape[0]
+    if sim.shape != (m, m):
+        raise ValueError(f"similarity must have shape ({m}, {m}), got {sim.shape}")
+    if not 0.0 <= float(diversity) <= 1.0:
+        raise ValueError(f"diversity must lie in [0, 1], got {diversity!r}")
+    lam = 1.0 - float(diversity)
+    chosen = []
+    left = np.ones(m, dtype=bool)
+    redundancy = np.zeros(m)
+    for _ in range(min(int(n), m)):
+        value = np.where(left, lam * rel - (1.0 - lam) * redundancy, -np.inf)
+        i = int(np.argmax(value))
+        chosen.append(i)
+        left[i] = False
+        redundancy = np.maximum(redundancy, sim[:, i])
+    return chosen
+
+
+def _warn(warn, message):
+    if warn is None:
+        warnings.warn(message, UserWarning, stacklevel=3)
+    else:
+        warn(message)
+
+
+def _resolve_category(name, known, where):
+    key = normalise_category(name)
+    if key in known:
+        return key
+    close = difflib.get_close_matches(key, list(known), n=1)
+    hint = f" (did you mean '{close[0]}'?)" if close else f" (known: {', '.join(known) or 'none'})"
+    raise StoreError(f"{where}: unknown category '{name}'{hint}")
+
+
+def _sides(store):
+    """Per normalised category: ([ids with a palette], {id: palette}, {id: product})."""
+    products = store.products()
+    if not products:
+        raise StoreError(f"{store.path}: the store holds no products (run 'harmony extract' first)")
+    palettes = store.palettes()
+    if not palettes:
+        raise StoreError(f"{store.path}: no product has a palette yet (run 'harmony extract' first)")
+    by_cat = {}
+    for p in products:
+        by_cat.setdefault(p.category_key, []).append(p)
+    return by_cat, palettes
+
+
+def build_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, warn=None):
+    """The feed: for each product, its top partners in each category the rules pair it with.
+
+    Parameters
+    ----------
+    store : harmony.store.Store
+    rules : harmony.rules.RuleSet
+    top : int
+        Partners per product and target category.
+    targets : iterable of str, optional
+        Partner categories to list (default: every category of the store).
+    diversity : float in [0, 1]
+        Weight of the redundancy term of maximal marginal relevance; 0 lists the best scores.
+    pool : int, optional
+        With diversity, how many best-scoring partners MMR chooses from (default ``3 * top``).
+    warn : callable, optional
+        Called with a one-line message for each warning (default: :func:`warnings.warn`).
+
+    Returns
+    -------
+    list of FeedRow
+        Sorted by product id, partner category, rank.
+
+    Raises
+    ------
+    StoreError
+        Empty store, no palettes, or an unknown target category.
+    """
+    top = int(top)
+    if top < 1:
+        raise HarmonyError(f"top must be at least 1, got {top}")
+    if not 0.0 <= float(diversity) <= 1.0:
+        raise HarmonyError(f"diversity must lie in [0, 1], got {diversity!r}")
+    by_cat, palettes = _sides(store)
+    known = sorted(by_cat)
+    if targets is None:
+        target_keys = known
+    else:
+        target_keys = sorted({_resolve_category(t, known, str(store.path)) for t in targets})
+        if not target_keys:
+            raise HarmonyError("no target categories given")
+    pool_size = top if diversity == 0 else max(top, 3 * top if pool is None else int(pool))
+
+    partners = {}
+    for cat in target_keys:
+        ids = [p.id for p in by_cat[cat] if p.in_stock() and p.id in palettes]
+        if not ids:
+            _warn(warn, f"target category '{cat}' has no in-stock product with a palette; it gets no rows")
+        partners[cat] = ids
+    missing = sum(1 for p in store.products() if p.id not in palettes)
+    if missing:
+        _warn(warn, f"{missing} product(s) have no palette and are left out (see 'harmony extract' failures)")
+
+    rows = []
+    for cat_a in known:
+        ids_a = [p.id for p in by_cat[cat_a] if p.id in palettes]
+        for cat_b in target_keys:
+            if cat_b == cat_a or not rules.pairs_with(cat_a, cat_b):
+                continue
+            ids_b = partners[cat_b]
+            if not ids_a or not ids_b:
+                continue
+            pr = rules.for_pair(cat_a, cat_b)
+            pals_a = [palettes[i] for i in ids_a]
+            pals_b = [palettes[i] for i in ids_b]
+            grid = BinGrid(neutral_threshold=pr.neutral_threshold, neutral_fade=pr.neutral_fade)
+            res = screen_top_k(pals_a, pals_b, pr.kernel, k=pool_size, grid=grid)
+            for i, pid in enumerate(ids_a):
+                cand = res.indices[i]
+                if diversity > 0 and len(cand) > 1:
+                    sim = similarity_matrix([pals_b[j] for j in cand])
+                    chosen = [int(cand[c]) for c in mmr_select(to_unit(res.raw[i], pr), sim, top, diversity)]
+                else:
+                    chosen = [int(j) for j in cand[:top]]
+                for rank, j in enumerate(chosen, start=1):
+                    ps = pair_score(pals_a[i], pals_b[j], pr)
+                    rows.append(FeedRow(pid, cat_a, ids_b[j], cat_b, rank, float(ps.score), ps.reason))
+    rows.sort(key=lambda r: (r.product, r.partner_category, r.rank))
+    return rows
+
+
+def suggest(store, rules, product_id, category=None, n=5):
+    """The best in-stock partners of one product, with their explanations.
+
+    Parameters
+    ----------
+    store : harmony.store.Store
+    rules : harmony.rules.RuleSet
+    product_id : str
+    category : str, optional
+        Only partners of this category (default: every category the rules pair it with).
+    n : int
+
+    Returns
+    -------
+    list of Suggestion
+        Best score first (exact scores; every in-stock candidate is scored).
+
+    Raises
+    ------
+    StoreError
+        Unknown product id or category, a product without a palette, or nothing to suggest.
+    """
+    n = int(n)
+    if n < 1:
+        raise HarmonyError(f"n must be at least 1, got {n}")
+    product = store.product(product_id)
+    pal = store.palette(product.id)
+    if pal is None:
+        raise StoreError(f"{store.path}: product '{product.id}' has no palette (its images gave none)")
+    by_cat, palettes = _sides(store)
+    known = sorted(by_cat)
+    own = product.category_key
+    if category is not None:
+        cat = _resolve_category(category, known, str(store.path))
+        if cat == own:
+            raise StoreError(f"{store.path}: '{cat}' is the category of '{product.id}' itself")
+        if not rules.pairs_with(own, cat):
+            raise StoreError(f"{rules.path}: the rules do not score '{own}' with '{cat}'")
+        cats = [cat]
+    else:
+        cats = [c for c in known if c != own and rules.pairs_with(own, c)]
+        if not cats:
+            raise StoreError(f"{rules.path}: the rules pair '{own}' with no other category of the store")
+    found = []
+    for cat in cats:
+        ids = [p.id for p in by_cat[cat] if p.in_stock() and p.id in palettes]
+        if not ids:
+            continue
+        pr = rules.for_pair(own, cat)
+        raw = exact_raw(pal, [palettes[i] for i in ids], pr.kernel)
+        order = np.lexsort((np.arange(len(ids)), -raw))[:n]
+        for j in order:
+            ps = pair_score(pal, palettes[ids[j]], pr)
+            found.append((-ps.score, cat, ids[j], ps))
+    if not found:
+        where = f"category '{cats[0]}'" if category is not None else "the paired categories"
+        raise StoreError(f"{store.path}: no in-stock partner with a palette in {where}")
+    found.sort(key=lambda t: t[:3])
+    out = []
+    for rank, (_, cat, pid, ps) in enumerate(found[:n], start=1):
+        row = FeedRow(product.id, own, pid, cat, rank, float(ps.score), ps.reason)
+        out.append(Suggestion(row=row, pair=ps, palette=palettes[pid]))
+    return out
+
+
+def _format_of(path, fmt):
+    if fmt is not None:
+        if fmt not in ("jsonl", "csv", "parquet"):
+            raise HarmonyError(f"unknown feed format '{fmt}' (use jsonl, csv or parquet)")
+        return fmt
+    suffix = Path(path).suffix.lower()
+    if suffix not in FEED_FORMATS:
+        raise HarmonyError(f"{path}: cannot tell the feed format from the suffix (use .jsonl, .csv or .parquet, or --format)")
+    return FEED_FORMATS[suffix]
+
+
+def write_feed(rows, path, fmt=None):
+    """Write feed rows as JSON lines, CSV or Parquet (format from ``fmt`` or the file suffix).
+
+    Parquet needs pyarrow (the ``parquet`` extra). Returns the path written.
+    """
+    path = Path(path)
+    fmt = _format_of(path, fmt)
+    records = [r.to_dict() for r in rows]
+    try:
+        if fmt == "jsonl":
+            with open(path, "w", encoding="utf-8") as fh:
+                for rec in records:
+                    fh.write(json.dumps(rec, ensure_ascii=False) + "\n")
+        elif fmt == "csv":
+            with open(path, "w", encoding="utf-8", newline="") as fh:
+                writer = csv.DictWriter(fh, fieldnames=FEED_COLUMNS)
+                writer.writeheader()
+                writer.writerows(records)
+        else:
+            try:
+                import pyarrow as pa
+                import pyarrow.parquet as pq
+            except ImportError:
+                raise HarmonyError("Parquet output needs pyarrow: pip install 'harmony[parquet]'") from None
+            schema = pa.schema(
+                [
+                    ("product", pa.string()),
+                    ("category", pa.string()),
+                    ("partner", pa.string()),
+                    ("partner_category", pa.string()),
+                    ("rank", pa.int32()),
+                    ("score", pa.float64()),
+                    ("reason", pa.string()),
+                ]
+            )
+            table = pa.table({c: [rec[c] for rec in records] for c in FEED_COLUMNS}, schema=schema)
+            pq.write_table(table, path)
+    except OSError as exc:
+        raise HarmonyError(f"{path}: cannot write the feed: {exc.strerror or exc}") from None
+    return path
