@@ -19,6 +19,7 @@ import os
 import sys
 import time
 from concurrent.futures import ProcessPoolExecutor, as_completed
+from concurrent.futures.process import BrokenProcessPool
 from pathlib import Path
 
 from tqdm import tqdm
@@ -333,8 +334,13 @@ def _run_local(chunks, settings, extractor, workers):
     pool = ProcessPoolExecutor(max_workers=min(workers, len(chunks)))
     try:
         futures = [pool.submit(extract_chunk, chunk, settings, extractor) for chunk in chunks]
-        for future in as_completed(futures):
-            yield future.result()
+        try:
+            for future in as_completed(futures):
+                yield future.result()
+        except BrokenProcessPool:
+            raise HarmonyError(
+                "a worker process died (out of memory?); finished chunks are stored, run again to continue"
+            ) from None
     finally:
         # On an interrupt, drop the chunks not started; finished ones are already stored.
         pool.shutdown(wait=True, cancel_futures=True)

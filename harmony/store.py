@@ -189,19 +189,32 @@ class Store:
     # -- plumbing ------------------------------------------------------------------------------
 
     class _Tx:
-        def __init__(self, db):
-            self.db = db
+        """One write transaction; an SQLite failure becomes a StoreError naming the file."""
+
+        def __init__(self, db, path):
+            self.db, self.path = db, path
 
         def __enter__(self):
-            self.db.execute("BEGIN IMMEDIATE")
+            try:
+                self.db.execute("BEGIN IMMEDIATE")
+            except sqlite3.Error as exc:
+                raise StoreError(f"{self.path}: cannot write: {exc}") from None
             return self.db
 
         def __exit__(self, kind, value, tb):
-            self.db.execute("COMMIT" if kind is None else "ROLLBACK")
+            if kind is None:
+                try:
+                    self.db.execute("COMMIT")
+                    return False
+                except sqlite3.Error as exc:
+                    value = exc
+            self.db.execute("ROLLBACK")
+            if isinstance(value, sqlite3.Error):
+                raise StoreError(f"{self.path}: cannot write: {value}") from None
             return False
 
     def _transaction(self):
-        return Store._Tx(self._db)
+        return Store._Tx(self._db, self.path)
 
     def close(self):
         """Close the database connection."""

@@ -23,7 +23,7 @@ from PIL import Image
 from harmony import colour
 from harmony.catalogue import read_catalogue
 from harmony.engine import extract_chunk, hash_images, plan_chunks, run_extraction
-from harmony.errors import CatalogueError, HarmonyError, ImageError
+from harmony.errors import CatalogueError, HarmonyError, ImageError, StoreError
 from harmony.palette import Palette
 from harmony.store import Store
 
@@ -357,3 +357,41 @@ def test_cli_extract_errors(tmp_path, args, match):
     assert result.exit_code == 2
     assert re.search(match, result.output), result.output
     assert "Traceback" not in result.output
+
+
+def die(path, settings):
+    """Stand-in extractor that kills its own worker process, as the kernel's OOM killer would."""
+    os.kill(os.getpid(), signal.SIGKILL)
+
+
+def test_dead_worker_is_an_error_and_the_store_stays_valid(tmp_path):
+    csv = _shop(tmp_path, n=2)
+    with pytest.raises(HarmonyError, match=r"a worker process died .*run again to continue"):
+        _run(csv, tmp_path / "s.db", extractor=die)
+    with Store(tmp_path / "s.db") as store:
+        assert len(store) == 2 and store.integrity() == "ok"
+    assert _run(csv, tmp_path / "s.db").new == 2
+
+
+def test_progress_bar_when_asked(tmp_path, capsys):
+    csv = _shop(tmp_path, n=3)
+    _run(csv, tmp_path / "s.db", progress=True)
+    err = capsys.readouterr().err
+    assert "extract" in err and "3/3" in err
+    _run(csv, tmp_path / "t.db", progress=False)
+    assert capsys.readouterr().err == ""
+
+
+def test_store_write_failure_is_a_store_error(tmp_path):
+    csv = _shop(tmp_path, n=1)
+    _run(csv, tmp_path / "s.db")
+    locker = sqlite3.connect(tmp_path / "s.db", isolation_level=None)
+    locker.execute("BEGIN IMMEDIATE")  # another writer holds the lock
+    try:
+        with Store(tmp_path / "s.db") as store:
+            store._db.execute("PRAGMA busy_timeout = 50")
+            with pytest.raises(StoreError, match=r"s\.db: cannot write: database is locked"):
+                store.record([], "k")
+    finally:
+        locker.execute("ROLLBACK")
+        locker.close()
