@@ -142,3 +142,17 @@ def test_errors_are_one_line(shop, tmp_path, args, match):
     assert res.exit_code == 2
     assert re.search(match, res.output), res.output
     assert "Traceback" not in res.output and res.output.count("\n") == 1
+
+
+def test_page_escapes_names_and_reports_unwritable_out(shop, tmp_path):
+    db, log = shop
+    odd = tmp_path / "a<b>&c.toml"
+    odd.write_text(Path(RIGHT).read_text())
+    out = tmp_path / "page.html"
+    res = run("evaluate", "--db", db, "--events", log, "--rules", odd, "--out", out, "--resamples", 20)
+    assert res.exit_code == 0, res.output
+    html = out.read_text()
+    assert "a&lt;b&gt;&amp;c" in html and "a<b>" not in html
+    res = run("evaluate", "--db", db, "--events", log, "--rules", RIGHT, "--out", log / "page.html", "--resamples", 20)
+    assert res.exit_code == 2
+    assert re.search(r"^error: .*page.html: cannot write the evaluation page", res.output), res.output
