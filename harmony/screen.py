@@ -369,11 +369,21 @@ def _prepare(palettes_a, palettes_b, kernel, grid, rank_tol, block):
     idx_b, w_b = _weighted_shares(stack_b, grid)
     centres_a = bin_centres(grid, _bin_colourfulness(stack_a, idx_a, w_a, grid))
     centres_b = bin_centres(grid, _bin_colourfulness(stack_b, idx_b, w_b, grid))
-    k = bin_kernel(kernel, centres_a, centres_b)
-    u, sv, vt = np.linalg.svd(k)
+    # Only bins that some palette touches matter; the factorisation is done on those alone.
+    used_a = np.unique(idx_a[w_a != 0])
+    used_b = np.unique(idx_b[w_b != 0])
+    if used_a.size == 0 or used_b.size == 0:
+        used_a = used_a if used_a.size else np.array([0])
+        used_b = used_b if used_b.size else np.array([0])
+    k = bin_kernel(kernel, centres_a[used_a], centres_b[used_b])
+    u, sv, vt = np.linalg.svd(k, full_matrices=False)
     rank = max(1, int(np.count_nonzero(sv > rank_tol * sv[0]))) if sv[0] > 0 else 1
-    q, norm_a = _project(idx_a, w_a, u[:, :rank] * sv[:rank], grid.size, block)
-    hb, norm_b = _project(idx_b, w_b, vt[:rank].T, grid.size, block)
+    left = np.zeros((grid.size, rank))
+    left[used_a] = u[:, :rank] * sv[:rank]
+    right = np.zeros((grid.size, rank))
+    right[used_b] = vt[:rank].T
+    q, norm_a = _project(idx_a, w_a, left, grid.size, block)
+    hb, norm_b = _project(idx_b, w_b, right, grid.size, block)
     hb = np.ascontiguousarray(hb.T)
     bound = float(sv[rank]) * norm_a * norm_b if rank < len(sv) else 0.0
     return _Prepared(stack_a, stack_b, q, hb, rank, bound)
