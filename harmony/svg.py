@@ -28,9 +28,9 @@ __all__ = [
 ]
 
 #: Colourfulness M' drawn at the rim of the wheel. Saturated sRGB primaries reach M' of about
-#: 35-45 under the default viewing conditions; furniture colours rarely exceed 30. Colours beyond
-#: the rim are drawn on it.
-WHEEL_MAX_COLOURFULNESS = 40.0
+#: 35-45 under the default viewing conditions, but furniture colours rarely exceed 30, so the rim
+#: sits at 30 to spread them out. Colours beyond the rim are drawn on it.
+WHEEL_MAX_COLOURFULNESS = 30.0
 
 
 @dataclass(frozen=True)
@@ -245,7 +245,7 @@ def hue_wheel_svg(
     for palette, pos, name, shape in ((palette_a, pos_a, names[0], "disc"), (palette_b, pos_b, names[1], "diamond")):
         for i, (code, w) in enumerate(zip(palette.hex, palette.weights)):
             x, y = c + pos[i]
-            r = 3.0 + 9.0 * float(np.sqrt(w))
+            r = 3.5 + 9.5 * float(np.sqrt(w))
             tip = _attr(f"{name}: {code} {w * 100:.0f} %")
             if shape == "disc":
                 out.append(

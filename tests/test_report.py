@@ -390,3 +390,82 @@ def test_cli_report_errors(store_path, tmp_path, make, message):
     assert re.search(message, result.output), result.output
     assert "Traceback" not in result.output
     assert not (tmp_path / "r.html").exists()
+
+
+# ---------------------------------------------------------------------------------------- demo
+
+
+@pytest.fixture(scope="module")
+def small_shop(tmp_path_factory):
+    """The three cheapest products of each living-room category of the committed demo shop."""
+    import csv
+    import shutil
+
+    from harmony.paths import DEMO_DIR
+
+    source = DEMO_DIR / "shop" / "catalogue.csv"
+    if not source.is_file():
+        pytest.fail(f"{source} is missing: the demo shop is part of the repository")
+    with open(source, newline="", encoding="utf-8") as fh:
+        reader = csv.DictReader(fh)
+        fields, rows = reader.fieldnames, list(reader)
+    keep = []
+    for cat in ("sofa", "armchair", "rug", "coffee table", "cushion", "floor lamp"):
+        keep += sorted((r for r in rows if r["category"] == cat), key=lambda r: float(r["price"]))[:3]
+    folder = tmp_path_factory.mktemp("small-shop")
+    (folder / "images").mkdir()
+    for r in keep:
+        for image in r["image"].split("|"):  # the demo lists extra photos separated by "|"
+            shutil.copy(source.parent / image, folder / image)
+    with open(folder / "catalogue.csv", "w", newline="", encoding="utf-8") as fh:
+        writer = csv.DictWriter(fh, fieldnames=fields)
+        writer.writeheader()
+        writer.writerows(keep)
+    return folder / "catalogue.csv"
+
+
+def test_demo_runs_every_stage(small_shop, tmp_path):
+    from harmony.demo import run_demo
+    from harmony.paths import DEMO_DIR
+
+    lines = []
+    out = tmp_path / "demo"
+    result = run_demo(out, workers=1, progress=False, log=lines.append, catalogue=small_shop,
+                      rooms=[DEMO_DIR / "living_room.toml"])
+    assert [name for name, _ in result.stages] == ["extract", "feed", "bundles", "report"]
+    assert [line.split(":")[0] for line in lines] == ["extract", "feed", "bundles", "report"]
+    assert result.db_path == out / "harmony.db" and result.db_path.is_file()
+    feed = read_feed(result.feed_path)
+    assert feed and {r["category"] for r in feed} >= {"sofa", "rug"}
+    (bundle_path,) = result.bundle_paths
+    data = read_bundles(bundle_path)
+    assert data["room"] == "Living room" and data["bundles"]
+    for b in data["bundles"]:
+        assert b["total_price"] <= data["budget"]
+    html = result.report_path.read_text(encoding="utf-8")
+    assert html.count('class="card product"') == 18
+    assert 'class="card set"' in html and 'class="card pair"' in html
+    assert not result.evaluated  # no interaction log beside this catalogue
+
+
+def test_demo_command_prints_where_the_report_is(small_shop, tmp_path, monkeypatch):
+    import harmony.demo as demo
+    from harmony.paths import DEMO_DIR
+
+    # The command runs the real pipeline; only the catalogue and rooms are made smaller for speed.
+    real = demo.run_demo
+    monkeypatch.setattr(demo, "run_demo", lambda out, **kw: real(out, catalogue=small_shop,
+                                                                  rooms=[DEMO_DIR / "living_room.toml"], **kw))
+    out = tmp_path / "d"
+    result = _cli("demo", "--out", out, "--workers", "1", "--no-progress")
+    assert result.exit_code == 0, result.output
+    last = result.output.strip().splitlines()[-1]
+    assert last == f"report: {(out / 'report.html').resolve()}"
+
+
+def test_demo_command_reports_an_unusable_folder(tmp_path):
+    blocker = tmp_path / "file"
+    blocker.write_text("x")
+    result = _cli("demo", "--out", blocker / "sub", "--no-progress")
+    assert result.exit_code == 2
+    assert "error: " in result.output and "cannot make the output folder" in result.output

@@ -1,0 +1,173 @@
+"""``harmony demo``: the whole job on the invented demo shop, ending in the HTML report.
+
+Stages, each timed: the shop's photos are extracted into ``OUT/harmony.db``; a cross-sell feed
+is written to ``OUT/feed.jsonl``; the best sets of every room template ``demo_room_sets/*.toml``
+go to ``OUT/bundles/<room>.json``; when the shop has an interaction log, the rules are evaluated
+against it; and ``OUT/report.html`` shows it all. Nothing needs the network: when the committed
+demo shop is missing, its generator draws it into ``OUT/shop`` first.
+"""
+
+import json
+import sys
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+from .errors import HarmonyError
+from .paths import DEFAULT_RULES, DEMO_DIR
+from .report import gather_from_store, read_bundles, read_feed, write_report
+
+__all__ = ["DEFAULT_OUT", "DemoResult", "run_demo", "demo_catalogue"]
+
+#: Where ``harmony demo`` writes when ``--out`` is not given (relative to the working directory).
+DEFAULT_OUT = Path("harmony-demo")
+
+#: Suggested partners per product and target category in the demo feed.
+FEED_TOP = 3
+#: Maximal-marginal-relevance weight of the demo feed, so near-identical partners are spread out.
+FEED_DIVERSITY = 0.3
+#: Sets kept per room template.
+BUNDLES_PER_ROOM = 3
+#: Bootstrap resamples of the demo evaluation (fewer than the command's default: the demo is a tour).
+EVAL_RESAMPLES = 200
+
+
+@dataclass(frozen=True)
+class DemoResult:
+    """What a demo run wrote, and how long each stage took (``stages``: (name, seconds))."""
+
+    out_dir: Path
+    db_path: Path
+    feed_path: Path
+    bundle_paths: tuple
+    report_path: Path
+    evaluated: bool
+    seconds: float
+    stages: tuple
+
+
+def demo_catalogue(out_dir, progress=False):
+    """The demo shop's catalogue: the committed one, or one drawn into ``out_dir/shop``."""
+    committed = DEMO_DIR / "shop" / "catalogue.csv"
+    if committed.is_file():
+        return committed
+    from .demo_shop import write_shop
+
+    return write_shop(Path(out_dir) / "shop", progress=progress).catalogue
+
+
+def _bundle_json(store, rules, room_path):
+    """The ``harmony bundle --json`` object of one room template over the store."""
+    from .bundle import result_to_dict, search_bundles
+    from .room import load_room
+
+    result = search_bundles(store, load_room(room_path), rules, top=BUNDLES_PER_ROOM)
+    return result_to_dict(result)
+
+
+def _evaluation_tables(db_path, events_path, rules_path, progress):
+    from .cli.evaluate_cmd import run_evaluation
+    from .evaluate import result_table
+
+    result, _inputs = run_evaluation(db_path, events_path, [str(rules_path)], resamples=EVAL_RESAMPLES,
+                                     progress=progress)
+    header, rows = result_table(result)
+    heading = (f"Ranking real partners of the demo shoppers' log: {result.events} events, "
+               f"{result.anchors} anchor products")
+    return ((heading, (tuple(header), tuple(tuple(r) for r in rows))),)
+
+
+def run_demo(out_dir=DEFAULT_OUT, workers=None, progress=None, log=None, catalogue=None, rooms=None):
+    """Run every stage on the demo shop; return where everything went.
+
+    Parameters
+    ----------
+    out_dir : path
+        Output folder, created when missing. Re-runs reuse the palettes already in its store.
+    workers : int, optional
+        Extraction processes (default: all cores).
+    progress : bool, optional
+        Progress bars on stderr; by default when stderr is a terminal.
+    log : callable(str), optional
+        Receives one line per finished stage (the CLI prints them on stderr).
+    catalogue : path, optional
+        Another catalogue to run on instead of the demo shop (an ``events.csv`` beside it is used).
+    rooms : iterable of path, optional
+        Room templates (default: every ``demo_room_sets/*.toml``).
+
+    Raises
+    ------
+    HarmonyError
+        If a stage fails (its message names the file).
+    """
+    from .engine import run_extraction
+    from .rules import load_rules
+    from .store import Store
+
+    start = time.perf_counter()
+    out_dir = Path(out_dir)
+    if progress is None:
+        progress = sys.stderr.isatty()
+    say = log or (lambda line: None)
+    try:
+        (out_dir / "bundles").mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise HarmonyError(f"{out_dir}: cannot make the output folder: {exc.strerror or exc}") from None
+    stages = []
+
+    def lap(name, t0, detail):
+        seconds = time.perf_counter() - t0
+        stages.append((name, seconds))
+        say(f"{name}: {detail} ({seconds:.1f} s)")
+
+    t0 = time.perf_counter()
+    catalogue = Path(catalogue) if catalogue is not None else demo_catalogue(out_dir, progress=progress)
+    rooms = sorted(DEMO_DIR.glob("*.toml")) if rooms is None else [Path(r) for r in rooms]
+    db_path = out_dir / "harmony.db"
+    summary = run_extraction(catalogue, db_path, workers=workers, progress=progress)
+    lap("extract", t0, f"{summary.products} products, {summary.images} images ({summary.new} new, "
+                       f"{summary.cached} cached, {summary.failed} failed) into {db_path}")
+
+    rules = load_rules(DEFAULT_RULES)
+    with Store(db_path) as store:
+        t0 = time.perf_counter()
+        from .feed import build_feed, write_feed
+
+        feed_rows = build_feed(store, rules, top=FEED_TOP, diversity=FEED_DIVERSITY, warn=say)
+        feed_path = out_dir / "feed.jsonl"
+        write_feed(feed_rows, feed_path, fmt="jsonl")
+        lap("feed", t0, f"{len(feed_rows)} rows in {feed_path}")
+
+        t0 = time.perf_counter()
+        bundle_paths = []
+        for room_path in rooms:
+            data = _bundle_json(store, rules, room_path)
+            path = out_dir / "bundles" / f"{room_path.stem}.json"
+            path.write_text(json.dumps(data, indent=2, ensure_ascii=False) + "\n", encoding="utf-8")
+            bundle_paths.append(path)
+        lap("bundles", t0, f"{len(bundle_paths)} rooms in {out_dir / 'bundles'}")
+
+    evaluation = ()
+    events_path = catalogue.parent / "events.csv"
+    if events_path.is_file():
+        t0 = time.perf_counter()
+        evaluation = _evaluation_tables(db_path, events_path, DEFAULT_RULES, progress)
+        lap("evaluate", t0, f"rules and baselines against {events_path.name}")
+
+    t0 = time.perf_counter()
+    from .demo_shop import SHOP_NAME
+
+    with Store(db_path) as store:
+        data = gather_from_store(
+            store, read_feed(feed_path), [read_bundles(p) for p in bundle_paths], rules,
+            title=f"{SHOP_NAME}: demo report", evaluation=evaluation,
+            notes=(f"{SHOP_NAME} is an invented shop: its products, prices and photos were generated "
+                   "for this demo.",),
+        )
+    report_path = write_report(data, out_dir / "report.html")
+    lap("report", t0, f"{len(data.products)} products, {len(data.suggestions)} pairs, {len(data.bundles)} sets")
+    return DemoResult(
+        out_dir=out_dir, db_path=db_path, feed_path=feed_path, bundle_paths=tuple(bundle_paths),
+        report_path=report_path, evaluated=bool(evaluation), seconds=time.perf_counter() - start,
+        stages=tuple(stages),
+    )
