@@ -86,6 +86,20 @@ def _connected_to_edge(candidates):
     return keep[labels]
 
 
+def _side_spread(jab, transparent, width):
+    """Largest ΔE between the median colours of the four border strips of ``width`` pixels."""
+    medians = []
+    for rows, cols in ((slice(0, width), slice(None)), (slice(-width, None), slice(None)),
+                       (slice(None), slice(0, width)), (slice(None), slice(-width, None))):
+        strip = jab[rows, cols][~transparent[rows, cols]]
+        if len(strip):
+            medians.append(np.median(strip, axis=0))
+    if len(medians) < 2:
+        return 0.0
+    m = np.array(medians)
+    return float(np.max(np.sqrt(((m[:, None, :] - m[None, :, :]) ** 2).sum(axis=-1))))
+
+
 def _centre_prior(shape):
     h, w = shape
     y = (np.arange(h) + 0.5) / h - 0.5
@@ -120,6 +134,8 @@ def foreground_mask(
     uniform_share : float
         The border is uniform (a studio shot) when at least this share of its pixels lies within
         ``tolerance`` of its median colour.
+        The median colours of the four sides must also lie within ``tolerance`` of each other:
+        a room with a plain wall has a mostly uniform ring, but its floor fills the bottom side.
     shadow_ab : float
         Largest a'b' distance from the backdrop's a'b' of a shadow pixel (shadows are as neutral
         as the backdrop they fall on).
@@ -160,7 +176,7 @@ def foreground_mask(
     chroma_sq = da * da + db * db
     near = chroma_sq + dj * dj <= tolerance**2
     share = float(near[ring & ~transparent].mean())
-    if share < uniform_share:
+    if share < uniform_share or _side_spread(jab, transparent, width) > tolerance:
         weights = _centre_prior((h, w)) * ~transparent
         return Mask(weights, None, float(transparent.mean()), True, SCENE_CONFIDENCE)
 

@@ -214,7 +214,7 @@ JND_DELTA_E = 2.3
 
 #: Version of the extraction method; part of :attr:`PaletteSettings.key`, so stored palettes
 #: made by an older method are not mistaken for current ones.
-METHOD_VERSION = 1
+METHOD_VERSION = 2
 
 
 @dataclass(frozen=True)

@@ -89,3 +89,20 @@ def test_jpeg_noise_does_not_break_uniformity():
     img = decode_image(encode_jpeg(shot.srgb8, quality=75), max_side=128)
     mask = foreground_mask(_jab(img.srgb8))
     assert not mask.scene
+
+
+def test_plain_wall_over_a_different_floor_is_a_scene():
+    # A room with a plain grey wall: most of the border ring is one colour, but the floor fills
+    # the bottom side, 8 ΔE away from the wall. A studio backdrop never changes like that.
+    wall = colour.srgb1_to_jab([0.60, 0.60, 0.62])
+    floor = wall + np.array([-8.0, 0.0, 0.0])
+    jab = np.broadcast_to(wall, (100, 100, 3)).copy()
+    jab[80:] = floor
+    jab[40:85, 25:75] = colour.srgb1_to_jab([0.2, 0.2, 0.25])  # the sofa
+    mask = foreground_mask(jab)
+    assert mask.scene
+    assert mask.confidence == SCENE_CONFIDENCE
+    # The same picture with the floor the wall's colour is a studio shot.
+    jab[80:] = wall
+    jab[40:85, 25:75] = colour.srgb1_to_jab([0.2, 0.2, 0.25])
+    assert not foreground_mask(jab).scene
