@@ -36,7 +36,6 @@ a byte-identical file.
 import argparse
 import csv
 import io
-import math
 import sys
 import tempfile
 from datetime import datetime, timedelta, timezone
@@ -45,9 +44,10 @@ from pathlib import Path
 import numpy as np
 
 from .catalogue import normalise_category
-from .colour import hue_deg, lightness
+from .colour import hue_deg
 from .palette import neutrality
 from .paths import DEMO_DIR
+from .fileio import write_text_whole
 
 __all__ = [
     "DEFAULT_SEED",
@@ -247,12 +247,7 @@ def write_demo_events(out=DEFAULT_EVENTS_PATH, shop=DEMO_DIR / "shop", rooms_dir
             products = store.products()
             palettes = store.palettes()
     rows = simulate_sessions(products, palettes, _rooms(rooms_dir), np.random.default_rng(seed), sessions)
-    out = Path(out)
-    out.parent.mkdir(parents=True, exist_ok=True)
-    tmp_out = out.with_name(out.name + ".part")
-    tmp_out.write_text(events_csv(rows), encoding="utf-8")
-    tmp_out.replace(out)
-    return out, len(rows)
+    return write_text_whole(out, events_csv(rows), what="interaction log"), len(rows)
 
 
 def main(argv=None):

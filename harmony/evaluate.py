@@ -58,6 +58,7 @@ from scipy.stats import rankdata
 
 from .catalogue import normalise_category
 from .errors import EventsError, HarmonyError
+from .fileio import write_text_whole
 
 __all__ = [
     "CUTOFF",
@@ -851,13 +852,4 @@ def render_html(evaluation, inputs=(), title="Offline evaluation"):
 
 def write_html(evaluation, out, inputs=(), title="Offline evaluation"):
     """Write :func:`render_html` to ``out`` whole (through a temporary file); returns the path."""
-    out = Path(out)
-    html = render_html(evaluation, inputs=inputs, title=title)
-    try:
-        out.parent.mkdir(parents=True, exist_ok=True)
-        tmp = out.with_name(out.name + ".part")
-        tmp.write_text(html, encoding="utf-8")
-        tmp.replace(out)
-    except OSError as exc:
-        raise HarmonyError(f"{out}: cannot write the evaluation page: {exc.strerror or exc}") from None
-    return out
+    return write_text_whole(out, render_html(evaluation, inputs=inputs, title=title), what="evaluation page")

@@ -22,6 +22,7 @@ from markupsafe import Markup
 from . import colour
 from .errors import HarmonyError
 from .safety import CAUTION_NOTE, contrast_caution, is_floor_covering, stands_on_floor, surface_lrv
+from .fileio import write_text_whole
 from .svg import WheelLink, hue_wheel_svg, palette_strip_svg
 
 __all__ = [
@@ -640,13 +641,4 @@ def render_report(data):
 
 def write_report(data, out):
     """Render ``data`` into the file ``out`` (written whole, then moved into place)."""
-    out = Path(out)
-    html = render_report(data)
-    try:
-        out.parent.mkdir(parents=True, exist_ok=True)
-        tmp = out.with_name(out.name + ".part")
-        tmp.write_text(html, encoding="utf-8")
-        tmp.replace(out)
-    except OSError as exc:
-        raise HarmonyError(f"{out}: cannot write report: {exc.strerror or exc}") from None
-    return out
+    return write_text_whole(out, render_report(data), what="report")

@@ -228,7 +228,11 @@ def test_cli_palettes_errors(tmp_path):
     missing = runner.invoke(main, ["palettes", "--db", str(tmp_path / "none.db")])
     assert missing.exit_code == 2 and "none.db: no palette store here" in missing.stderr
     _stored(tmp_path)
-    bad = runner.invoke(main, ["palettes", "--db", str(tmp_path / "x.db"), "--out", str(tmp_path / "no" / "p.csv")])
-    assert bad.exit_code == 2 and "p.csv: cannot write: No such file or directory" in bad.stderr
+    # A missing folder is made; a folder that is really a file cannot be.
+    made = runner.invoke(main, ["palettes", "--db", str(tmp_path / "x.db"), "--out", str(tmp_path / "new" / "p.csv")])
+    assert made.exit_code == 0 and (tmp_path / "new" / "p.csv").read_text()
+    bad = runner.invoke(main, ["palettes", "--db", str(tmp_path / "x.db"), "--out", str(tmp_path / "x.db" / "p.csv")])
+    assert bad.exit_code == 2 and "p.csv: cannot write the palette export" in bad.stderr
+    assert "Traceback" not in bad.output
     wrong = runner.invoke(main, ["palettes", "--db", str(tmp_path / "x.db"), "--format", "xml"])
     assert wrong.exit_code == 2 and "Invalid value for '--format'" in wrong.stderr

@@ -3,8 +3,6 @@
 import csv
 import io
 import json
-import os
-import tempfile
 from pathlib import Path
 
 import click
@@ -13,6 +11,7 @@ from . import fail, main
 from ..catalogue import read_catalogue
 from ..engine import DEFAULT_DB_NAME, ENGINES, run_extraction
 from ..errors import HarmonyError
+from ..fileio import write_text_whole
 from ..store import Store
 
 __all__ = ["extract", "palettes", "PALETTE_CSV_COLUMNS"]
@@ -95,22 +94,8 @@ def palettes(db_path, fmt, out_path):
     if out_path is None:
         click.echo(buffer.getvalue(), nl=False)
     else:
-        _write_whole(Path(out_path), buffer.getvalue())
+        write_text_whole(Path(out_path), buffer.getvalue(), what="palette export")
     if missing:
         click.echo(f"note: {missing} product(s) without a palette left out (see failures in the store)", err=True)
 
 
-def _write_whole(path, text):
-    """Write ``text`` to ``path`` through a temporary file and a rename, so no half file remains."""
-    folder = path.parent if str(path.parent) else Path(".")
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=folder)
-    except OSError as exc:
-        raise HarmonyError(f"{path}: cannot write: {exc.strerror or exc}") from None
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="") as handle:
-            handle.write(text)
-        os.replace(tmp, path)
-    except OSError as exc:
-        Path(tmp).unlink(missing_ok=True)
-        raise HarmonyError(f"{path}: cannot write: {exc.strerror or exc}") from None
