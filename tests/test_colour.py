@@ -20,7 +20,8 @@ def test_cam02ucs_agrees_with_colour_science(colour_science):
     # Gold: colour-science's independent CIECAM02 / CAM02-UCS (Luo, Cui & Li 2006), same sRGB
     # viewing conditions. colour-science 0.4 takes XYZ and the white in [0, 1]. The residual
     # (about 0.011 max here) comes from the two libraries' different D65 white constants and
-    # rounding; 0.015 is far below a just-noticeable difference (about 1 in CAM02-UCS).
+    # rounding; 0.015 is far below a just-noticeable difference (about 1.7 in CAM02-UCS, see
+    # test_palette.test_jnd_constant_against_cielab).
     colour = colour_science
     rng = np.random.default_rng(20261201)
     srgb1 = rng.random((400, 3))

@@ -6,7 +6,7 @@ import pytest
 
 from harmony import colour
 from harmony.errors import HarmonyError, ImageError
-from harmony.palette import Palette, PaletteSettings, extract_palette, weighted_kmeans
+from harmony.palette import JND_DELTA_E, Palette, PaletteSettings, extract_palette, weighted_kmeans
 from harmony.synthetic import colour_chart, encode_jpeg, encode_png, studio_shot
 
 from reference_data import colorchecker_srgb1
@@ -132,3 +132,63 @@ def test_bad_inputs(tmp_path):
         extract_palette(encode_png(np.zeros((64, 64, 3), np.uint8)), PaletteSettings(max_pixels=100))
     with pytest.raises(ImageError, match="expected a file path or bytes"):
         extract_palette(12)
+
+
+@pytest.mark.parametrize("step, merged", [(3, True), (4, True), (6, False), (8, False)])
+def test_merge_threshold_is_the_jnd(step, merged):
+    # Two flat halves `step` sRGB levels apart: ΔE 1.2 and 1.7 (under JND_DELTA_E = 2.3) become
+    # one colour, ΔE 2.5 and 3.3 stay two.
+    a = np.array([120, 60, 40])
+    b = a + step
+    d = colour.delta_e(colour.srgb1_to_jab(a / 255), colour.srgb1_to_jab(b / 255))
+    assert (d < JND_DELTA_E) == merged
+    img = np.full((120, 120, 3), 245, np.uint8)
+    img[20:100, 20:60] = a
+    img[20:100, 60:100] = b
+    pal = extract_palette(encode_png(img), PaletteSettings(colours=5))
+    assert len(pal) == (1 if merged else 2)
+
+
+def test_jnd_constant_against_cielab():
+    # gold: colour-science's CIELAB (CIE 15:2004) and the CIELAB JND of 2.3 (Mahy, Van Eycken &
+    # Oosterlinck 1994, value from memory). Random steps of ΔE*ab = 2.3 from mid-gamut sRGB
+    # colours, measured in CAM02-UCS: JND_DELTA_E must be at least that step (the merge never
+    # keeps apart colours a viewer cannot tell apart) and at most 1.5 times it.
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        import colour as cs
+    rng = np.random.default_rng(3)
+    srgb = rng.uniform(0.1, 0.9, (500, 3))
+    d65 = cs.CCS_ILLUMINANTS["CIE 1931 2 Degree Standard Observer"]["D65"]
+    lab = cs.XYZ_to_Lab(cs.sRGB_to_XYZ(srgb), d65)
+    step = rng.normal(size=(500, 3))
+    step *= 2.3 / np.linalg.norm(step, axis=1, keepdims=True)
+    moved = cs.XYZ_to_sRGB(cs.Lab_to_XYZ(lab + step, d65))
+    ucs_step = np.median(colour.delta_e(colour.srgb1_to_jab(srgb), colour.srgb1_to_jab(moved)))
+    assert 1.0 <= JND_DELTA_E / ucs_step <= 1.5
+
+
+def test_textured_single_colour_product():
+    # A woven fabric of one blue: light and dark threads (a 2-pixel check), sensor noise and a
+    # gentle shading, on an off-white backdrop (invented test picture). Its palette is a run of
+    # neighbouring shades: all of the same hue, inside the painted lightness range, none closer
+    # than the JND to another, and together they average to the painted mean.
+    rng = np.random.default_rng(8)
+    yy, xx = np.mgrid[0:150, 0:180]
+    factor = 0.88 + 0.12 * ((xx // 2 + yy // 2) % 2) + 0.1 * (yy / 150) + rng.normal(0, 0.03, yy.shape)
+    fabric = np.clip(np.array([0.33, 0.41, 0.55]) * factor[..., None], 0.0, 1.0)
+    img = np.full((240, 240, 3), 244, np.uint8)
+    img[45:195, 30:210] = np.rint(fabric * 255).astype(np.uint8)
+    pal = extract_palette(encode_jpeg(img))
+    painted = colour.srgb1_to_jab(fabric.reshape(-1, 3))
+    lo, hi = np.percentile(painted[:, 0], [1, 99])
+    assert len(pal) >= 2
+    assert np.all((pal.jab[:, 0] > lo) & (pal.jab[:, 0] < hi))
+    hue = colour.hue_deg(pal.jab)
+    assert np.ptp(hue) < 3.0 and abs(hue.mean() - colour.hue_deg(painted.mean(axis=0))) < 3.0
+    d = colour.delta_e(pal.jab[:, None], pal.jab[None])
+    assert np.all(d[np.triu_indices(len(pal), 1)] >= JND_DELTA_E)
+    mean = pal.weights @ pal.jab
+    assert colour.delta_e(mean, painted.mean(axis=0)) < 1.0
