@@ -176,8 +176,20 @@ def iter_bundles(problem):
         options.append(opts)
     for choice in itertools.product(*options):
         cost = problem.cost(choice)
-        if cost <= problem.budget:
+        if cost <= problem.budget and _stock_ok(problem, choice):
             yield problem.value(choice), cost, choice
+
+
+def _stock_ok(problem, choice):
+    """Whether every product's known stock covers the units the bundle takes (over all its slots)."""
+    used, stock = {}, {}
+    for s, i in enumerate(choice):
+        if i is not None:
+            c = problem.pools[s][i]
+            used[c.id] = used.get(c.id, 0) + problem.slots[s].quantity
+            if c.stock is not None:
+                stock[c.id] = min(stock.get(c.id, c.stock), c.stock)
+    return all(used[pid] <= n for pid, n in stock.items())
 
 
 def brute_force_count(problem):
@@ -204,6 +216,19 @@ class _Searcher:
         self.required = [problem.slots[s].required for s in o]
         self.unit_cost = [np.array([c.price * problem.slots[s].quantity for c in problem.pools[s]], dtype=float)
                           for s in o]
+        # In stock for the slot's quantity (None = quantity unknown, taken as available).
+        self.avail = [np.array([c.stock is None or c.stock >= problem.slots[s].quantity for c in problem.pools[s]],
+                               dtype=bool) for s in o]
+        self.all_avail = [bool(a.all()) for a in self.avail]
+        # Products offered in more than one slot with a known stock: their units add up over slots.
+        seen, shared = {}, set()
+        for s in o:
+            for c in problem.pools[s]:
+                if c.stock is not None and seen.setdefault(c.id, s) != s:
+                    shared.add(c.id)
+        self.ids = [[c.id for c in problem.pools[s]] for s in o]
+        self.stock = [[c.stock for c in problem.pools[s]] for s in o]
+        self.shared = shared
         self.size = [len(problem.pools[s]) for s in o]
         # pair[d][e]: weighted values between the d-th and e-th slot of the order, shape (n_d, n_e).
         self.pair = [[problem.pair_matrix(o[d], o[e]) if d != e else None for e in range(n)] for d in range(n)]
@@ -221,10 +246,13 @@ class _Searcher:
                 f = f + best
             self.future.append(f)
         # Cheapest cost of the required slots from depth d on (used to keep the budget feasible).
-        mins = [float(c.min()) if (r and c.size) else 0.0 for c, r in zip(self.unit_cost, self.required)]
+        mins = [float(c[a].min()) if (r and a.any()) else 0.0
+                for c, a, r in zip(self.unit_cost, self.avail, self.required)]
         self.min_rest = [sum(mins[d:]) for d in range(n + 1)]
         self.min_cost = mins
         self.max_cost = [float(c.max()) if c.size else 0.0 for c in self.unit_cost]
+        # Slots after d with candidates (an optional slot with an empty pool adds nothing).
+        self.later = [[e for e in range(d + 1, n) if self.size[e]] for d in range(n)]
         # Scratch space for the one-level-ahead bounds (largest child count x pool of slot e).
         widest = max(self.size, default=0)
         self.buffer = [np.empty((widest, self.size[e])) for e in range(n)]
@@ -238,23 +266,22 @@ class _Searcher:
         Returns ``(children, own, bounds)``: candidate indices (-1 = empty), the exact value each
         child adds, and an upper bound on what the slots after ``depth`` can add below it.
         """
-        n = len(self.order)
         cost = self.unit_cost[depth]
-        cand = np.flatnonzero(cost <= budget_left - self.min_rest[depth + 1] + 1e-9)
+        cand = np.flatnonzero(self.avail[depth] & (cost <= budget_left - self.min_rest[depth + 1] + 1e-9))
         own = links[depth][cand]
         left = budget_left - cost[cand]                      # budget left below each child
         rest = np.zeros(cand.size)
-        for e in range(depth + 1, n):
+        for e in self.later[depth]:
             # Budget for slot e: what is left after the cheapest picks of the other required slots.
             allowed = left - (self.min_rest[depth + 1] - self.min_cost[e])
             mat = self.pair[depth][e]
             if cand.size < mat.shape[0]:
                 mat = mat[cand]
             vals = np.add(mat, links[e] + self.future[e], out=self.buffer[e][:cand.size])
-            if cand.size and self.max_cost[e] <= allowed.min() + 1e-9:
+            if cand.size and self.all_avail[e] and self.max_cost[e] <= allowed.min() + 1e-9:
                 term = vals.max(axis=1)             # every candidate of e fits under every child
             else:
-                ok = self.unit_cost[e][None, :] <= allowed[:, None] + 1e-9
+                ok = self.avail[e][None, :] & (self.unit_cost[e][None, :] <= allowed[:, None] + 1e-9)
                 term = np.max(np.where(ok, vals, -np.inf), axis=1, initial=-np.inf)
             if not self.required[e]:
                 term = np.maximum(term, 0.0)
@@ -263,9 +290,9 @@ class _Searcher:
         if not self.required[depth]:
             # The empty child: no value of its own, no links added.
             rest_empty = 0.0
-            for e in range(depth + 1, n):
+            for e in self.later[depth]:
                 allowed = budget_left - (self.min_rest[depth + 1] - self.min_cost[e])
-                ok = self.unit_cost[e] <= allowed + 1e-9
+                ok = self.avail[e] & (self.unit_cost[e] <= allowed + 1e-9)
                 term = float(np.max(np.where(ok, links[e] + self.future[e], -np.inf), initial=-np.inf))
                 if not self.required[e]:
                     term = max(term, 0.0)
@@ -274,6 +301,16 @@ class _Searcher:
             own = np.append(own, 0.0)
             rest = np.append(rest, rest_empty)
         return children, own, rest
+
+    def _stock_left(self, depth, c, chosen):
+        """Whether candidate c at ``depth`` still has stock after the same product's earlier slots."""
+        pid, need, limit = self.ids[depth][c], self.qty[depth], self.stock[depth][c]
+        for d, i in enumerate(chosen):
+            if i is not None and self.ids[d][i] == pid:
+                need += self.qty[d]
+                if self.stock[d][i] is not None:
+                    limit = self.stock[d][i] if limit is None else min(limit, self.stock[d][i])
+        return limit is None or need <= limit
 
     def _threshold(self):
         if len(self.heap) < self.top:
@@ -323,6 +360,9 @@ class _Searcher:
                 new_diffs = [d + (b[depth] != c) for d, b in zip(diffs, avoid)]
                 if any(d + left_after < min_difference for d in new_diffs):
                     continue
+            if self.shared and c is not None and self.ids[depth][c] in self.shared and not self._stock_left(
+                    depth, c, chosen):
+                continue
             self.nodes += 1
             c_cost = 0.0 if c is None else float(self.unit_cost[depth][c])
             if depth + 1 == n:

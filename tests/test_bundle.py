@@ -1,5 +1,6 @@
 """The bundle search against brute force (hypothesis) and against a MILP solved by HiGHS (scipy)."""
 
+import itertools
 import math
 
 import numpy as np
@@ -201,3 +202,96 @@ def test_bad_arguments():
     with pytest.raises(ValueError, match=r"scores\[0, 1\] must have shape \(1, 1\)"):
         BundleProblem((BundleSlot("a"), BundleSlot("b")), ((Candidate("x", 1.0),), (Candidate("y", 1.0),)),
                       {(0, 1): np.ones((2, 1))}, {})
+
+
+# --------------------------------------------------------------- harder instances for the bounds
+
+
+@st.composite
+def hard_instances(draw):
+    """Optional slots (some with empty pools), known stock, one product offered in two slots,
+    an anchor (a required singleton pool), negative or zero scores and weights, budgets that bind."""
+    seed = draw(st.integers(0, 2**32 - 1))
+    rng = np.random.default_rng(seed)
+    n = draw(st.integers(1, 4))
+    optional = draw(st.sets(st.integers(0, n - 1), max_size=n - 1))
+    anchor = draw(st.one_of(st.none(), st.integers(0, n - 1)))
+    slots, pools = [], []
+    for s in range(n):
+        required = s not in optional or s == anchor
+        size = 1 if s == anchor else draw(st.integers(1 if required else 0, 4))
+        qty = draw(st.integers(1, 3))
+        slots.append(BundleSlot(f"s{s}", quantity=qty, required=required))
+        pool = []
+        for i in range(size):
+            stock = draw(st.one_of(st.none(), st.integers(0, 4)))
+            pool.append(Candidate(f"p{s}-{i}", float(rng.integers(1, 50) * 10), stock))
+        pools.append(pool)
+    if n > 1 and pools[0] and pools[1] and draw(st.booleans()):
+        pools[1][0] = pools[0][0]  # the same product can fill two slots: its stock is shared
+    scale = draw(st.sampled_from([0.0, 1.0]))
+    scores = {(s, t): np.round(rng.uniform(-0.5, 1.0, (len(pools[s]), len(pools[t]))), 1) * scale
+              + (1.0 - scale) * rng.integers(0, 2, (len(pools[s]), len(pools[t])))
+              for s in range(n) for t in range(s + 1, n)}
+    weights = {(s, t): float(draw(st.sampled_from([-1.0, 0.0, 0.5, 1.0, 3.0])))
+               for s in range(n) for t in range(s + 1, n)}
+    lo = sum(min((c.price for c in p), default=0) * sl.quantity for sl, p in zip(slots, pools) if sl.required)
+    hi = sum(max((c.price for c in p), default=0) * sl.quantity for sl, p in zip(slots, pools))
+    budget = draw(st.one_of(st.just(math.inf), st.floats(0.0, 1.2).map(lambda f: lo + f * (hi - lo))))
+    return BundleProblem(tuple(slots), tuple(map(tuple, pools)), scores, weights, budget)
+
+
+def reference_bundles(problem):
+    """Every feasible bundle by enumeration, the stock rule written out independently here:
+    units of one product over all the slots it fills <= its stock (None = no limit)."""
+    out = []
+    options = [list(range(len(p))) + ([] if sl.required else [None]) for sl, p in zip(problem.slots, problem.pools)]
+    for choice in itertools.product(*options):
+        units, stock, cost, value = {}, {}, 0.0, 0.0
+        for s, i in enumerate(choice):
+            if i is None:
+                continue
+            c = problem.pools[s][i]
+            units[c.id] = units.get(c.id, 0) + problem.slots[s].quantity
+            if c.stock is not None:
+                stock[c.id] = c.stock
+            cost += c.price * problem.slots[s].quantity
+        for (s, t), mat in problem.scores.items():
+            if choice[s] is not None and choice[t] is not None:
+                value += problem.weights[s, t] * mat[choice[s], choice[t]]
+        if cost <= problem.budget and all(units[p] <= n for p, n in stock.items()):
+            out.append((value, cost, choice))
+    return sorted(out, key=lambda b: -b[0])
+
+
+@settings(max_examples=300, deadline=None)
+@given(hard_instances(), st.integers(1, 5))
+def test_hard_instances_equal_enumeration(problem, k):
+    # Reference: exhaustive enumeration with the budget and stock rules applied independently.
+    want = reference_bundles(problem)
+    result = search(problem, top=k)
+    assert result.exact
+    assert [round(b.value, 9) for b in result.bundles] == [round(w[0], 9) for w in want[:k]]
+    assert [round(v, 9) for v, _, _ in sorted(iter_bundles(problem), key=lambda b: -b[0])] == \
+        [round(w[0], 9) for w in want]
+    feasible = {w[2] for w in want}
+    assert all(b.choice in feasible for b in result.bundles)
+
+
+@settings(max_examples=150, deadline=None)
+@given(hard_instances(), st.integers(1, 4), st.integers(2, 3))
+def test_hard_instances_diverse_top_k(problem, k, n):
+    # Reference: the greedy rule by enumeration; ties make the chosen bundles ambiguous, so only
+    # the first value and the pairwise differences are compared beyond it.
+    n = min(n, len(problem.slots))
+    want = reference_bundles(problem)
+    result = search(problem, top=k, min_difference=n)
+    if want:
+        assert result.bundles[0].value == pytest.approx(want[0][0], abs=1e-9)
+    else:
+        assert result.bundles == ()
+    feasible = {w[2] for w in want}
+    for i, a in enumerate(result.bundles):
+        assert a.choice in feasible
+        for b in result.bundles[:i]:
+            assert sum(x != y for x, y in zip(a.choice, b.choice)) >= n
