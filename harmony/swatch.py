@@ -1,6 +1,8 @@
 """Pictures of palettes: PNG strips whose segment widths are the weights, and terminal blocks."""
 
+import io
 import os
+import tempfile
 from pathlib import Path
 
 import numpy as np
@@ -46,6 +48,9 @@ def swatch_array(palettes, width=600, height=48, gap=4):
 def write_swatch(palettes, path, width=600, height=48):
     """Write the strips of ``palettes`` (a Palette or a sequence of them) as a PNG file.
 
+    The file is written whole: through a temporary file in the same folder and a rename, so a
+    failed or interrupted write leaves no half-written picture and keeps any older file.
+
     Raises
     ------
     HarmonyError
@@ -53,13 +58,21 @@ def write_swatch(palettes, path, width=600, height=48):
     """
     if hasattr(palettes, "jab"):
         palettes = [palettes]
-    img = Image.fromarray(swatch_array(palettes, width=width, height=height), "RGB")
+    buf = io.BytesIO()
+    Image.fromarray(swatch_array(palettes, width=width, height=height), "RGB").save(buf, format="PNG")
+    path = Path(path)
     try:
-        img.save(Path(path), format="PNG")
-    except (OSError, ValueError) as exc:
-        reason = getattr(exc, "strerror", None) or str(exc)
-        raise HarmonyError(f"{path}: cannot write swatch: {reason}") from None
-    return Path(path)
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
+    except OSError as exc:
+        raise HarmonyError(f"{path}: cannot write swatch: {exc.strerror or exc}") from None
+    try:
+        with os.fdopen(fd, "wb") as handle:
+            handle.write(buf.getvalue())
+        os.replace(tmp, path)
+    except OSError as exc:
+        Path(tmp).unlink(missing_ok=True)
+        raise HarmonyError(f"{path}: cannot write swatch: {exc.strerror or exc}") from None
+    return path
 
 
 def ansi_block(hex_code, width=2):

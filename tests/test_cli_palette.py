@@ -6,7 +6,9 @@ from click.testing import CliRunner
 from PIL import Image
 
 from harmony.cli import main
-from harmony.swatch import ansi_block, segment_widths
+from harmony.errors import HarmonyError
+from harmony.palette import extract_palette
+from harmony.swatch import ansi_block, segment_widths, write_swatch
 from harmony.synthetic import encode_jpeg, encode_png, studio_shot
 
 from reference_data import ANSI_TRUECOLOUR_EXAMPLE
@@ -106,3 +108,43 @@ def test_ansi_block():
     assert ansi_block(code) == expected
     with pytest.raises(ValueError, match="#rrggbb"):
         ansi_block("orange")
+
+
+def test_swatch_failure_leaves_no_partial_file(files, tmp_path):
+    # The target is an existing folder: the rename fails, and neither a half-written picture nor
+    # a temporary file is left behind.
+    _, good, *_ = files
+    target = tmp_path / "taken.png"
+    target.mkdir()
+    with pytest.raises(HarmonyError, match=r"taken\.png: cannot write swatch: Is a directory$"):
+        write_swatch(extract_palette(good), target)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["taken.png"]
+
+
+def test_swatch_replaces_an_older_file(files, tmp_path):
+    _, good, *_ = files
+    out = tmp_path / "sw.png"
+    out.write_bytes(b"old")
+    res = CliRunner().invoke(main, ["palette", "--swatch", str(out), str(good)])
+    assert res.exit_code == 0
+    assert Image.open(out).size == (600, 48)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["sw.png"]
+
+
+def test_swatch_failed_write_keeps_the_older_file(files, tmp_path, monkeypatch):
+    # A disk that fills up at the last step: the older swatch is kept as it was, no temporary
+    # file is left, and the error names the path.
+    import harmony.swatch
+
+    _, good, *_ = files
+    out = tmp_path / "sw.png"
+    out.write_bytes(b"old")
+
+    def full_disk(src, dst):
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(harmony.swatch.os, "replace", full_disk)
+    with pytest.raises(HarmonyError, match=r"sw\.png: cannot write swatch: No space left on device"):
+        write_swatch(extract_palette(good), out)
+    assert out.read_bytes() == b"old"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["sw.png"]
