@@ -65,8 +65,10 @@ __all__ = [
 ]
 
 DEFAULT_SEED = 2026_02
-#: Sessions in the demo log (a few thousand rows, well under 1 MB; few enough that most products
-#: meet only some of their possible partners).
+#: Sessions in the demo log (a few thousand rows, well under 1 MB). The demo's categories are small
+#: (9 to 22 products), so a product ends up combined with about 60 % of a partner category's
+#: products, and nearly every order puts one of them in the first ten: hit@10 is close to 1 for
+#: every method here, and AUC and NDCG@10 are the columns that tell the methods apart.
 SESSIONS = 400
 #: Share of sessions with each taste (invented).
 TASTE_SHARES = {"tone": 0.55, "accent": 0.25, "price": 0.20}

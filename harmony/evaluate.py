@@ -37,7 +37,8 @@ References
 K. Järvelin, J. Kekäläinen (2002). Cumulated gain-based evaluation of IR techniques. ACM
     Transactions on Information Systems 20(4):422-446.
 C. Burges et al. (2005). Learning to rank using gradient descent. ICML 2005 (the discount
-    1/log2(rank + 1) now standard, as in scikit-learn's ``ndcg_score``).
+    1/log2(rank + 1) now standard, as in scikit-learn's ``ndcg_score``; the gain here stays
+    linear, as in Järvelin & Kekäläinen).
 F. McSherry, M. Najork (2008). Computing information retrieval performance measures efficiently
     in the presence of tied scores. ECIR 2008, LNCS 4956:414-421.
 J. A. Hanley, B. J. McNeil (1982). The meaning and use of the area under a receiver operating
@@ -161,11 +162,16 @@ def ndcg_at_k(scores, gains, k=CUTOFF):
 
     Notes
     -----
-    DCG@k = sum over ranks i <= k of gain_i / log2(i + 1), the form of Burges et al. (2005) that
-    scikit-learn's ``ndcg_score`` also uses (Järvelin & Kekäläinen's original leaves the first
-    b ranks undiscounted and divides by log_b(i) after them). Candidates with equal scores share
-    the mean of their gains at each of their positions (McSherry & Najork 2008), which is the
-    expected DCG over random orders of the tie.
+    DCG@k = sum over ranks i <= k of gain_i / log2(i + 1), and NDCG@k = DCG@k divided by the
+    DCG@k of the candidates sorted by gain. The gain is the graded relevance itself (linear), as
+    in Järvelin & Kekäläinen and in scikit-learn's ``ndcg_score``, not the 2**rel - 1 of Burges
+    et al. (2005). The discount 1/log2(i + 1) is Burges et al.'s, also scikit-learn's;
+    Järvelin & Kekäläinen's original leaves the first b ranks undiscounted and divides by
+    log_b(i) after them, which for b = 2 differs from it at every rank after the first.
+    Candidates with equal scores share the mean of their gains at each of their positions
+    (McSherry & Najork 2008), which is the expected DCG over random orders of the tie and what
+    ``ndcg_score(..., ignore_ties=False)`` computes. Unlike scikit-learn, which scores a list
+    without any gain as 0, this returns NaN for it (such a query is never formed).
     """
     s, g = _as_list(scores, gains, "gains")
     if np.any(g < 0):
@@ -483,16 +489,25 @@ class RulesMethod:
 
 @dataclass(frozen=True, eq=False)
 class SameColoursMethod:
-    """Rank by palette likeness: minus the earth mover's distance (Rubner et al. 2000)."""
+    """Rank by palette likeness: minus the earth mover's distance (Rubner et al. 2000).
+
+    The distance is symmetric, and a pair usually comes back with its roles swapped (when the
+    partner is an anchor too), so each unordered pair is solved once and remembered.
+    """
 
     palettes: dict
     name: str = "same colours (EMD)"
     kind: str = field(default="baseline", init=False)
+    _known: dict = field(default_factory=dict, init=False, repr=False)
 
     def __call__(self, anchor, candidates):
-        pa = self.palettes[anchor.id]
-        others = [(self.palettes[c.id].jab, self.palettes[c.id].weights) for c in candidates]
-        return -emd_one_to_many(pa.jab, pa.weights, others)
+        keys = [(min(anchor.id, c.id), max(anchor.id, c.id)) for c in candidates]
+        todo = [(key, c.id) for key, c in zip(keys, candidates) if key not in self._known]
+        if todo:
+            pa = self.palettes[anchor.id]
+            others = [(self.palettes[cid].jab, self.palettes[cid].weights) for _, cid in todo]
+            self._known.update(zip([key for key, _ in todo], emd_one_to_many(pa.jab, pa.weights, others).tolist()))
+        return -np.array([self._known[key] for key in keys])
 
 
 def _colour_words(product, attribute):

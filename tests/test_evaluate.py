@@ -1,3 +1,4 @@
+import importlib
 import itertools
 import math
 from pathlib import Path
@@ -119,6 +120,42 @@ def test_emd_matches_scipy_wasserstein_in_one_dimension():
         pal_b = np.c_[jb, np.zeros(m), np.zeros(m)]
         ref = wasserstein_distance(ja, jb, wa, wb)
         assert emd(pal_a, wa, pal_b, wb) == pytest.approx(ref, rel=1e-6, abs=1e-7)
+
+
+def test_emd_matches_scipy_in_three_dimensions():
+    # Reference: scipy.stats.wasserstein_distance_nd (scipy >= 1.13), the EMD of two weighted
+    # point sets with Euclidean ground distance, solved by its own linear programme.
+    pytest.importorskip("scipy", minversion="1.13")
+    from scipy.stats import wasserstein_distance_nd
+
+    rng = np.random.default_rng(17)
+    for _ in range(15):
+        n, m = rng.integers(1, 9, 2)
+        a, b = rng.normal(50, 20, (n, 3)), rng.normal(50, 20, (m, 3))
+        wa, wb = rng.random(n) + 0.01, rng.random(m) + 0.01
+        ref = wasserstein_distance_nd(a, b, wa, wb)
+        assert emd(a, wa, b, wb) == pytest.approx(ref, rel=1e-6, abs=1e-7)
+
+
+def test_same_colours_solves_each_pair_once_with_the_right_distance(tmp_path, monkeypatch):
+    # The package re-exports the function evaluate(), which hides the module of the same name.
+    ev = importlib.import_module("harmony.evaluate")
+
+    products, palettes, _ = known_relation_shop(tmp_path, n=6)
+    sofas = [p for p in products if p.category == "Sofa"]
+    cushions = [p for p in products if p.category == "Cushion"]
+    solved = []
+    real = ev.emd_one_to_many
+    monkeypatch.setattr(ev, "emd_one_to_many", lambda a, w, others, **kw: solved.append(len(others)) or real(a, w, others, **kw))
+    method = SameColoursMethod(palettes)
+    first = method(sofas[0], cushions)
+    swapped = method(cushions[2], sofas)  # (sofa 0, cushion 2) is already known
+    assert solved == [len(cushions), len(sofas) - 1]
+    # Reference: each distance solved alone, in the direction the query asks (EMD is symmetric).
+    want = [emd(palettes[sofas[0].id].jab, palettes[sofas[0].id].weights, palettes[c.id].jab, palettes[c.id].weights) for c in cushions]
+    np.testing.assert_allclose(-first, want, atol=1e-7)
+    want = [emd(palettes[cushions[2].id].jab, palettes[cushions[2].id].weights, palettes[s.id].jab, palettes[s.id].weights) for s in sofas]
+    np.testing.assert_allclose(-swapped, want, atol=1e-7)
 
 
 def test_emd_is_a_metric_and_chunking_does_not_change_it():
@@ -376,3 +413,9 @@ def test_demo_log_regenerates_identically(tmp_path):
     a, n = demo_events.write_demo_events(tmp_path / "a.csv", db_path=db, sessions=60)
     b, _ = demo_events.write_demo_events(tmp_path / "b.csv", db_path=db, sessions=60)
     assert a.read_bytes() == b.read_bytes() and n > 60
+    # The committed log is the one today's photos and palettes give (a change to the masking
+    # or the palettes changes what the simulated shoppers see).
+    full, _ = demo_events.write_demo_events(tmp_path / "full.csv", db_path=db)
+    assert full.read_bytes() == demo_events.DEFAULT_EVENTS_PATH.read_bytes(), (
+        "demo_room_sets/shop/events.csv is stale: regenerate it with python -m harmony.demo_events"
+    )
