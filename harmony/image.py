@@ -82,6 +82,15 @@ class DecodedImage:
     source: str
 
 
+def _read_error(name, exc):
+    """The ImageError for an OSError raised while reading file ``name``."""
+    if isinstance(exc, FileNotFoundError):
+        return ImageError(f"{name}: no such file")
+    if isinstance(exc, IsADirectoryError):
+        return ImageError(f"{name}: is a directory, not an image")
+    return ImageError(f"{name}: cannot read: {exc.strerror or exc}")
+
+
 def sha256_bytes(data):
     """Hex SHA-256 digest of ``data`` (FIPS 180-4)."""
     return hashlib.sha256(data).hexdigest()
@@ -94,12 +103,8 @@ def sha256_file(path):
         with open(path, "rb") as fh:
             for block in iter(lambda: fh.read(1 << 20), b""):
                 digest.update(block)
-    except FileNotFoundError:
-        raise ImageError(f"{path}: no such file") from None
-    except IsADirectoryError:
-        raise ImageError(f"{path}: is a directory, not an image") from None
     except OSError as exc:
-        raise ImageError(f"{path}: cannot read: {exc.strerror or exc}") from None
+        raise _read_error(path, exc) from None
     return digest.hexdigest()
 
 
@@ -112,12 +117,8 @@ def read_source(source):
     name = str(source)
     try:
         return Path(source).read_bytes(), name
-    except FileNotFoundError:
-        raise ImageError(f"{name}: no such file") from None
-    except IsADirectoryError:
-        raise ImageError(f"{name}: is a directory, not an image") from None
     except OSError as exc:
-        raise ImageError(f"{name}: cannot read: {exc.strerror or exc}") from None
+        raise _read_error(name, exc) from None
 
 
 def _orientation(img):

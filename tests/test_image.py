@@ -30,6 +30,8 @@ def test_sha256_fips_example(tmp_path):
 def test_sha256_missing_file(tmp_path):
     with pytest.raises(ImageError, match=r"nope\.jpg: no such file"):
         sha256_file(tmp_path / "nope.jpg")
+    with pytest.raises(ImageError, match=r": is a directory, not an image$"):
+        sha256_file(tmp_path)
 
 
 def test_decode_records_hash_and_size():
