@@ -567,6 +567,35 @@ def _money(x, currency):
     return f"{x:,.2f} {currency}"
 
 
+def _prune_pool(room, s, pools, palettes, rules, pool_limit):
+    """The ``pool_limit`` candidates of slot ``s`` with the best weighted partner scores.
+
+    A candidate's potential is ``sum over partner slots t of w_st * (its best score with pool t)``,
+    the best partner found by the screen (:func:`harmony.screen.screen_top_k`, exact re-rank of
+    the screened candidates), so no full score matrix of a large category is ever formed. With an
+    anchor, the anchor is the whole pool of its slot, so the pool gathers around it. The cheapest
+    candidate is always kept, so a budget that admits some complete set still does.
+    """
+    from .score import to_unit
+    from .screen import screen_top_k
+
+    slot, pool = room.slots[s], pools[s]
+    potential = np.zeros(len(pool))
+    mine = [palettes[p.id] for p in pool]
+    for t, other in enumerate(room.slots):
+        w = room.pair_weight(slot.name, other.name)
+        if t == s or w == 0 or not pools[t] or not rules.pairs_with(slot.category, other.category):
+            continue
+        pr = rules.for_pair(slot.category, other.category)
+        best = screen_top_k(mine, [palettes[p.id] for p in pools[t]], pr, k=1)
+        potential += w * np.asarray(to_unit(best.raw[:, 0], pr), dtype=float)
+    order = list(np.argsort(-potential, kind="stable")[:pool_limit])
+    cheapest_i = int(np.argmin([p.price for p in pool]))
+    if cheapest_i not in order:
+        order[-1] = cheapest_i
+    return [pool[i] for i in sorted(order)]
+
+
 def build_problem(store, room, rules, budget=None, anchor=None, exclude=(), pool_limit=60):
     """Candidate pools, pair scores and the graph of a room, as a :class:`BundleProblem`.
 
@@ -574,12 +603,13 @@ def build_problem(store, room, rules, budget=None, anchor=None, exclude=(), pool
     slot's quantity, have a palette, are not excluded, and whose price x quantity fits the budget
     left after the cheapest picks of the other required slots. With an ``anchor`` product, its
     slot holds only the anchor. A pool larger than ``pool_limit`` keeps the candidates with the
-    best weighted partner scores (and the cheapest one, so the budget stays reachable).
+    best weighted partner scores found by the screen (and the cheapest one, so the budget stays
+    reachable); the search is then exact over the kept pools only, which ``eligible`` shows.
 
     Returns
     -------
     problem : BundleProblem
-    eligible : tuple of (slot name, n) before pruning
+    eligible : tuple of (slot name, n) before pruning to ``pool_limit``
     palettes : dict id -> Palette
 
     Raises
@@ -657,26 +687,11 @@ def build_problem(store, room, rules, budget=None, anchor=None, exclude=(), pool
                 weights[s, t] = w
         return scores, weights
 
+    if pool_limit < 1:
+        raise RoomError(f"pool limit must be at least 1, got {pool_limit}")
+    pools = [_prune_pool(room, s, pools, palettes, rules, pool_limit) if len(pool) > pool_limit else pool
+             for s, pool in enumerate(pools)]
     scores, weights = matrices(pools)
-    if any(len(p) > pool_limit for p in pools):
-        kept = []
-        for s, pool in enumerate(pools):
-            if len(pool) <= pool_limit:
-                kept.append(pool)
-                continue
-            potential = np.zeros(len(pool))
-            for (a, b), mat in scores.items():
-                if a == s:
-                    potential += weights[a, b] * mat.max(axis=1)
-                elif b == s:
-                    potential += weights[a, b] * mat.max(axis=0)
-            order = list(np.argsort(-potential, kind="stable")[:pool_limit])
-            cheapest_i = int(np.argmin([p.price for p in pool]))
-            if cheapest_i not in order:
-                order[-1] = cheapest_i
-            kept.append([pool[i] for i in sorted(order)])
-        pools = kept
-        scores, weights = matrices(pools)
 
     # The anchor's slot must be filled even when the template makes it optional.
     slots = tuple(BundleSlot(s.name, s.category, s.quantity, s.required or s.name == anchor_slot)
@@ -757,5 +772,7 @@ def result_to_dict(result):
         "currency": result.currency,
         "exact": bool(result.exact),
         "pool_sizes": {name: int(n) for name, n in result.pool_sizes},
+        # Candidates per slot before pruning to the pool limit: "exact" holds over pool_sizes only.
+        "eligible_sizes": {name: int(n) for name, n in result.eligible},
         "bundles": [bundle_to_dict(b) for b in result.bundles],
     }

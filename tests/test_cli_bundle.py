@@ -30,7 +30,7 @@ def test_json_shape_and_consistency(db):
     res = run("--db", db, "--room", DEMO_DIR / "dining_corner.toml", "--top", 3, "--json")
     assert res.exit_code == 0, res.output
     data = json.loads(res.output)
-    assert set(data) == {"room", "budget", "currency", "exact", "pool_sizes", "bundles"}
+    assert set(data) == {"room", "budget", "currency", "exact", "pool_sizes", "eligible_sizes", "bundles"}
     assert data["room"] == "Dining corner" and data["currency"] == "EUR" and data["exact"] is True
     room = load_room(DEMO_DIR / "dining_corner.toml")
     assert set(data["pool_sizes"]) == {s.name for s in room.slots}
@@ -147,3 +147,58 @@ def test_bad_room_file_and_options(db, tmp_path):
     assert res.exit_code == 2 and "budget must be a positive number" in res.output
     res = run("--db", tmp_path / "missing.db", "--room", "dining_corner")
     assert res.exit_code == 2 and "no palette store here" in res.output
+
+
+def test_pool_limit_keeps_the_best_partners_and_says_so(db):
+    # Independent potential: every product's best exact pair_score (harmony.score) with each
+    # partner slot's eligible pool, weighted as in the template; the kept pool is the top 3 by it
+    # (or the top 2 and the cheapest product, which is always kept).
+    from harmony.bundle import build_problem
+
+    room = load_room(DEMO_DIR / "dining_corner.toml")
+    rules = load_rules(DEFAULT_RULES)
+    with Store(db) as store:
+        problem, eligible, _ = build_problem(store, room, rules, pool_limit=3)
+        full, _, _ = build_problem(store, room, rules, pool_limit=1000)
+        for s, slot in enumerate(room.slots):
+            pool = full.pools[s]
+            assert dict(eligible)[slot.name] == len(pool)
+            potential = {}
+            for c in pool:
+                total = 0.0
+                for t, other in enumerate(room.slots):
+                    w = room.pair_weight(slot.name, other.name)
+                    if t == s or w == 0 or not rules.pairs_with(slot.category, other.category):
+                        continue
+                    pr = rules.for_pair(slot.category, other.category)
+                    total += w * max(pair_score(store.palette(c.id), store.palette(o.id), pr).score
+                                     for o in full.pools[t])
+                potential[c.id] = total
+            ranked = sorted(pool, key=lambda c: -potential[c.id])
+            cheapest = min(pool, key=lambda c: c.price).id
+            kept = {c.id for c in problem.pools[s]}
+            want = {c.id for c in ranked[:3]}
+            if cheapest not in want:
+                want = {c.id for c in ranked[:2]} | {cheapest}
+            assert kept == want, slot.name
+    res = run("--db", db, "--room", "dining_corner", "--pool-limit", 3, "--json")
+    data = json.loads(res.output)
+    assert data["pool_sizes"] == {s.name: 3 for s in room.slots}
+    assert data["eligible_sizes"] == dict(eligible)
+    res = run("--db", db, "--room", "dining_corner", "--pool-limit", 3, "--top", 1)
+    assert "table 3 of " in res.output and "raise --pool-limit" in res.output
+    res = run("--db", db, "--room", "dining_corner", "--pool-limit", 0)
+    assert res.exit_code == 2 and res.output == "error: pool limit must be at least 1, got 0\n"
+
+
+def test_anchor_with_an_empty_optional_slot(db):
+    # Every pendant excluded: the optional pendant slot has an empty pool behind the anchored table.
+    with Store(db) as store:
+        pendants = ",".join(p.id for p in store.products("pendant lamp"))
+        table = store.products("dining table")[0].id
+    res = run("--db", db, "--room", "dining_corner", "--anchor", table, "--exclude", pendants, "--json")
+    assert res.exit_code == 0, res.output
+    data = json.loads(res.output)
+    assert data["pool_sizes"]["pendant"] == 0 and data["pool_sizes"]["table"] == 1
+    for b in data["bundles"]:
+        assert {i["slot"] for i in b["items"]} == {"table", "chairs", "rug"}

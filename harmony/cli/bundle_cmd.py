@@ -36,24 +36,30 @@ def _ids(value):
 @click.option("--top", type=int, default=3, show_default=True, help="How many sets.")
 @click.option("--min-difference", type=int, default=1, show_default=True,
               help="Any two sets differ in at least this many slots.")
+@click.option("--pool-limit", type=int, default=60, show_default=True,
+              help="Largest candidate pool per slot; larger ones keep the best partners by the screen.")
 @click.option("--rules", "rules_file", default=str(DEFAULT_RULES), show_default="rules/default.toml",
               type=click.Path(dir_okay=False), help="Rules file (TOML).")
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON object.")
-def bundle(db_path, room_file, budget, anchor, exclude, top, min_difference, rules_file, as_json):
+def bundle(db_path, room_file, budget, anchor, exclude, top, min_difference, pool_limit, rules_file, as_json):
     """Assemble the best-coordinated room sets within a budget."""
     room = load_room(_room_path(room_file))
     rules = load_rules(rules_file)
     with Store(db_path) as store:
         result = search_bundles(store, room, rules, budget=budget, anchor=anchor, exclude=_ids(exclude),
-                                top=top, min_difference=min_difference)
+                                top=top, min_difference=min_difference, pool_limit=pool_limit)
         titles = {pid: store.product(pid).title for b in result.bundles for _, pid, _, _ in b.items}
     if as_json:
         click.echo(json.dumps(result_to_dict(result)))
         return
     if not result.bundles:
         raise RoomError(f"room '{room.name}': no set fits the budget with the candidates left")
-    pools = ", ".join(f"{name} {n}" for name, n in result.pool_sizes)
+    eligible = dict(result.eligible)
+    pools = ", ".join(f"{name} {n}" + (f" of {eligible[name]}" if eligible.get(name, n) > n else "")
+                      for name, n in result.pool_sizes)
     exact = "exact over the pools" if result.exact else "search stopped early: not proven best"
+    if result.exact and any(eligible.get(name, n) > n for name, n in result.pool_sizes):
+        exact += " (pools cut to the best partners; raise --pool-limit to search more)"
     click.echo(f"{result.room}: budget {result.budget:,.2f} {result.currency}; pools: {pools}; {exact}")
     for rank, b in enumerate(result.bundles, start=1):
         click.echo(f"\n{rank}. score {b.score:.3f}   total {b.total_price:,.2f} {result.currency}")
