@@ -71,18 +71,22 @@ _FLIP_DIRECTION = {"either": "either", "lighter": "darker", "darker": "lighter"}
 
 
 class _Side:
-    """Per-colour quantities of one side of a kernel, computed once per call."""
+    """Per-colour quantities of one side of a kernel, computed once per call.
+
+    Every attribute keeps the leading shape of ``jab`` (``(...)``; ``lab`` is ``(..., 3)``), so the
+    two sides of a kernel call combine by numpy broadcasting.
+    """
 
     __slots__ = ("jab", "j", "cos_h", "sin_h", "chroma", "neutral", "_lab")
 
     def __init__(self, jab, threshold, fade):
         self.jab = jab
-        self.j = jab[:, 0]
-        m = np.hypot(jab[:, 1], jab[:, 2])
+        self.j = jab[..., 0]
+        m = np.hypot(jab[..., 1], jab[..., 2])
         safe = np.where(m > 0.0, m, 1.0)
         # A colour with M' = 0 has no hue; it is fully neutral, so its hue terms vanish anyway.
-        self.cos_h = np.where(m > 0.0, jab[:, 1] / safe, 1.0)
-        self.sin_h = np.where(m > 0.0, jab[:, 2] / safe, 0.0)
+        self.cos_h = np.where(m > 0.0, jab[..., 1] / safe, 1.0)
+        self.sin_h = np.where(m > 0.0, jab[..., 2] / safe, 0.0)
         self.neutral = neutrality(jab, threshold=threshold, fade=fade)
         self.chroma = 1.0 - self.neutral
         self._lab = None
@@ -96,12 +100,51 @@ class _Side:
         return self._lab
 
 
+class _Geometry:
+    """What the rules need of a pair of colours, each quantity computed at most once per call.
+
+    ``a`` and ``b`` are :class:`_Side` objects whose leading shapes broadcast against each other;
+    every quantity has the broadcast shape. The hue rules share :attr:`hue_difference` (cosine and
+    unsigned sine of the hue difference) and :attr:`chroma` (the product of the two colours'
+    chromaticity ``1 - neutrality``).
+    """
+
+    __slots__ = ("a", "b", "_hue", "_chroma")
+
+    def __init__(self, a, b):
+        self.a, self.b = a, b
+        self._hue = None
+        self._chroma = None
+
+    @property
+    def hue_difference(self):
+        if self._hue is None:
+            a, b = self.a, self.b
+            cos_d = a.cos_h * b.cos_h + a.sin_h * b.sin_h
+            sin_d = np.abs(a.cos_h * b.sin_h - a.sin_h * b.cos_h)
+            self._hue = (cos_d, sin_d)
+        return self._hue
+
+    @property
+    def chroma(self):
+        if self._chroma is None:
+            self._chroma = self.a.chroma * self.b.chroma
+        return self._chroma
+
+
 def _as_colours(jab, name):
     arr = np.asarray(jab, dtype=float)
     if arr.ndim == 1 and arr.shape == (3,):
         arr = arr[None, :]
     if arr.ndim != 2 or arr.shape[1] != 3:
         raise ValueError(f"{name} must have shape (n, 3), got {arr.shape}")
+    return arr
+
+
+def _as_broadcast_colours(jab, name):
+    arr = np.asarray(jab, dtype=float)
+    if arr.ndim == 0 or arr.shape[-1] != 3:
+        raise ValueError(f"{name} must have a trailing axis of 3, got shape {arr.shape}")
     return arr
 
 
@@ -140,15 +183,25 @@ class HueRule:
     phrase: str = ""
     kind = "hue"
 
-    def term(self, a, b):
-        cos_d = np.multiply.outer(a.cos_h, b.cos_h) + np.multiply.outer(a.sin_h, b.sin_h)
-        sin_d = np.abs(np.multiply.outer(a.cos_h, b.sin_h) - np.multiply.outer(a.sin_h, b.cos_h))
+    def bumps(self, cos_d, sin_d):
+        """Sum of the rule's von Mises bumps at hue differences given by their cosine and
+        unsigned sine, without the chromaticity factor (same shape as ``cos_d``)."""
         kappa = 1.0 / math.radians(self.spread) ** 2
-        total = np.zeros_like(cos_d)
+        total = None
         for c in self.centres:
             rc = math.radians(c)
-            total += np.exp((cos_d * math.cos(rc) + sin_d * math.sin(rc) - 1.0) * kappa)
-        return total * np.multiply.outer(a.chroma, b.chroma)
+            cos_c, sin_c = math.cos(rc), math.sin(rc)
+            # cos(d - c) - 1; the sine term is skipped at c = 0 and c = 180 (sin c = 0 there).
+            if c in (0.0, 180.0):
+                x = np.asarray(cos_d * (cos_c * kappa) - kappa)
+            else:
+                x = np.asarray(cos_d * (cos_c * kappa) + sin_d * (sin_c * kappa) - kappa)
+            np.exp(x, out=x)
+            total = x if total is None else total + x
+        return total
+
+    def term(self, geometry):
+        return self.bumps(*geometry.hue_difference) * geometry.chroma
 
     def profile(self, hue_difference_deg):
         """The rule's value for two fully chromatic colours ``hue_difference_deg`` apart."""
@@ -192,8 +245,8 @@ class NeutralRule:
     phrase: str = ""
     kind = "neutral"
 
-    def term(self, a, b):
-        na, nb = a.neutral[:, None], b.neutral[None, :]
+    def term(self, geometry):
+        na, nb = geometry.a.neutral, geometry.b.neutral
         return na + nb - na * nb
 
     @property
@@ -226,8 +279,8 @@ class LightnessRule:
     phrase: str = ""
     kind = "lightness"
 
-    def term(self, a, b):
-        d = b.j[None, :] - a.j[:, None]
+    def term(self, geometry):
+        d = geometry.b.j - geometry.a.j
         if self.direction == "either":
             x = np.abs(d)
         elif self.direction == "lighter":
@@ -259,10 +312,10 @@ class OuLuoRule:
     phrase: str = ""
     kind = "ou_luo"
 
-    def term(self, a, b):
+    def term(self, geometry):
         from .ou_luo import two_colour_harmony
 
-        return two_colour_harmony(a.lab[:, None, :], b.lab[None, :, :])
+        return two_colour_harmony(geometry.a.lab, geometry.b.lab)
 
     @property
     def symmetric(self):
@@ -326,13 +379,69 @@ class PairRules:
         """The hue rules with their effective weights, for drawings."""
         return tuple((rule, w) for rule, w in self.terms if rule.kind == "hue")
 
-    def _sides(self, jab_a, jab_b):
-        a = _Side(_as_colours(jab_a, "jab_a"), self.neutral_threshold, self.neutral_fade)
-        b = _Side(_as_colours(jab_b, "jab_b"), self.neutral_threshold, self.neutral_fade)
-        return a, b
+    def _geometry(self, jab_a, jab_b):
+        a = _Side(jab_a, self.neutral_threshold, self.neutral_fade)
+        b = _Side(jab_b, self.neutral_threshold, self.neutral_fade)
+        return _Geometry(a, b)
+
+    def _evaluate(self, g, shape):
+        """Sum of the weighted terms on a geometry; the hue rules' bumps are summed first and
+        scaled by the chromaticity product once."""
+        total = np.zeros(shape)
+        hue = None
+        for rule, w in self.terms:
+            if w == 0.0:
+                continue
+            if rule.kind == "hue":
+                part = rule.bumps(*g.hue_difference)
+                part *= w
+                hue = part if hue is None else hue + part
+            else:
+                total += w * rule.term(g)
+        if hue is not None:
+            total += hue * g.chroma
+        return total
+
+    def pairwise(self, jab_a, jab_b):
+        """Signed harmony of colour pairs, element by element with numpy broadcasting.
+
+        Parameters
+        ----------
+        jab_a : array_like, shape (..., 3)
+            CAM02-UCS colours of the first category's product.
+        jab_b : array_like, shape (..., 3)
+            CAM02-UCS colours of the second category's product; its leading shape must
+            broadcast against that of ``jab_a``.
+
+        Returns
+        -------
+        ndarray, shape = broadcast of the two leading shapes
+            Sum over the pair's rules of effective weight times the rule's term, for each pair
+            ``(jab_a[i], jab_b[i])`` after broadcasting.
+
+        Raises
+        ------
+        ValueError
+            If a trailing axis is not 3 or the leading shapes do not broadcast.
+
+        Notes
+        -----
+        Per-colour quantities (hue direction, neutrality, CIELAB for the Ou & Luo rule) are
+        computed on each side's own shape before broadcasting, so ``pairwise(a[:, None],
+        b[None, :])`` costs the same per pair as an outer product; :meth:`kernel` is exactly that.
+        """
+        jab_a = _as_broadcast_colours(jab_a, "jab_a")
+        jab_b = _as_broadcast_colours(jab_b, "jab_b")
+        try:
+            shape = np.broadcast_shapes(jab_a.shape[:-1], jab_b.shape[:-1])
+        except ValueError:
+            raise ValueError(
+                f"jab_a and jab_b must broadcast, got shapes {jab_a.shape} and {jab_b.shape}"
+            ) from None
+        return self._evaluate(self._geometry(jab_a, jab_b), shape)
 
     def kernel(self, jab_a, jab_b):
-        """Signed harmony of every colour pair, shape (n, m).
+        """Signed harmony of every colour pair, shape (n, m): ``pairwise(a[:, None], b[None, :])``.
 
         Parameters
         ----------
@@ -346,17 +455,17 @@ class PairRules:
         ndarray, shape (n, m)
             Sum over the pair's rules of effective weight times the rule's term.
         """
-        a, b = self._sides(jab_a, jab_b)
-        total = np.zeros((a.jab.shape[0], b.jab.shape[0]))
-        for rule, w in self.terms:
-            if w != 0.0:
-                total += w * rule.term(a, b)
-        return total
+        a = _as_colours(jab_a, "jab_a")
+        b = _as_colours(jab_b, "jab_b")
+        return self.pairwise(a[:, None, :], b[None, :, :])
 
     def kernel_terms(self, jab_a, jab_b):
         """Each rule's weighted kernel: tuple of (rule name, ndarray (n, m)); they sum to :meth:`kernel`."""
-        a, b = self._sides(jab_a, jab_b)
-        return tuple((rule.name, w * rule.term(a, b)) for rule, w in self.terms)
+        a = _as_colours(jab_a, "jab_a")
+        b = _as_colours(jab_b, "jab_b")
+        g = self._geometry(a[:, None, :], b[None, :, :])
+        shape = (a.shape[0], b.shape[0])
+        return tuple((rule.name, np.broadcast_to(w * rule.term(g), shape)) for rule, w in self.terms)
 
     def rule(self, name):
         for rule, _ in self.terms:
