@@ -47,10 +47,15 @@ __all__ = [
     "histograms",
     "bin_centres",
     "bin_kernel",
+    "low_rank",
+    "FULL_SVD_SIZE",
     "screen_scores",
     "top_k_blocked",
     "exact_raw",
     "exact_raw_candidates",
+    "pairwise_form",
+    "outer_form",
+    "RERANK_CHUNK",
     "exact_top_k",
     "screen_top_k",
 ]
@@ -329,8 +334,10 @@ def bin_centres(grid=BinGrid(), bin_colourfulness=None):
 
 
 def bin_kernel(kernel, centres_a, centres_b):
-    """K = kernel(centres_a, centres_b), checked to have shape (len(a), len(b)) and finite values."""
-    k = np.asarray(kernel(centres_a, centres_b), dtype=float)
+    """K = kernel(centres_a, centres_b), checked to have shape (len(a), len(b)) and finite values.
+
+    ``kernel`` as in :func:`pairwise_form`."""
+    k = np.asarray(outer_form(kernel)(centres_a, centres_b), dtype=float)
     want = (len(centres_a), len(centres_b))
     if k.shape != want:
         raise ValueError(f"kernel returned shape {k.shape}, expected {want}")
@@ -370,23 +377,97 @@ def _prepare(palettes_a, palettes_b, kernel, grid, rank_tol, block):
     centres_a = bin_centres(grid, _bin_colourfulness(stack_a, idx_a, w_a, grid))
     centres_b = bin_centres(grid, _bin_colourfulness(stack_b, idx_b, w_b, grid))
     # Only bins that some palette touches matter; the factorisation is done on those alone.
-    used_a = np.unique(idx_a[w_a != 0])
-    used_b = np.unique(idx_b[w_b != 0])
+    used_a = np.flatnonzero(np.bincount(idx_a[w_a != 0], minlength=grid.size))
+    used_b = np.flatnonzero(np.bincount(idx_b[w_b != 0], minlength=grid.size))
     if used_a.size == 0 or used_b.size == 0:
         used_a = used_a if used_a.size else np.array([0])
         used_b = used_b if used_b.size else np.array([0])
     k = bin_kernel(kernel, centres_a[used_a], centres_b[used_b])
-    u, sv, vt = np.linalg.svd(k, full_matrices=False)
-    rank = max(1, int(np.count_nonzero(sv > rank_tol * sv[0]))) if sv[0] > 0 else 1
+    factor_a, factor_b, rank, residual = low_rank(k, rank_tol)
     left = np.zeros((grid.size, rank))
-    left[used_a] = u[:, :rank] * sv[:rank]
+    left[used_a] = factor_a
     right = np.zeros((grid.size, rank))
-    right[used_b] = vt[:rank].T
+    right[used_b] = factor_b
     q, norm_a = _project(idx_a, w_a, left, grid.size, block)
     hb, norm_b = _project(idx_b, w_b, right, grid.size, block)
     hb = np.ascontiguousarray(hb.T)
-    bound = float(sv[rank]) * norm_a * norm_b if rank < len(sv) else 0.0
+    bound = residual * norm_a * norm_b
     return _Prepared(stack_a, stack_b, q, hb, rank, bound)
+
+
+#: Bin kernels with both sides at most this size are factorised by a full SVD; larger ones by
+#: the randomised range finder of :func:`low_rank`.
+FULL_SVD_SIZE = 160
+
+
+def low_rank(k, rank_tol=1e-6, rng=None, sketch=128):
+    """A truncated factorisation ``k ~ left @ right.T`` keeping singular values above
+    ``rank_tol`` times the largest, and a bound on the spectral norm of what it leaves out.
+
+    Parameters
+    ----------
+    k : ndarray, shape (n, m)
+    rank_tol : float
+    rng : numpy.random.Generator, optional
+        Draws the random test matrix of the range finder; default ``default_rng(0)`` so the
+        screen is deterministic.
+    sketch : int
+        First width of the random test matrix; doubled until the sketch's smallest singular
+        value falls below the tolerance (so every kept direction was inside the sketch).
+
+    Returns
+    -------
+    left : ndarray, shape (n, r)
+        ``U_r S_r``.
+    right : ndarray, shape (m, r)
+        ``V_r``.
+    rank : int
+        r >= 1.
+    residual : float
+        An upper bound of ``||k - left @ right.T||_2``: the (r+1)-th singular value after a
+        full SVD (exact), the Frobenius norm of the remainder after the randomised one (the
+        spectral norm never exceeds the Frobenius norm).
+
+    Notes
+    -----
+    Small matrices (both sides at most :data:`FULL_SVD_SIZE`) get the full SVD. Larger ones get
+    the randomised range finder of Halko, Martinsson & Tropp (2011), Algorithm 4.1 (no power
+    iterations, which would square away the small singular values that the tolerance keeps),
+    followed by the SVD of the small projected matrix (their Algorithm 5.1). A full SVD of a
+    1,000 x 1,000 bin kernel takes about 0.3 s and much longer when other processes share the
+    cores; the range finder needs two matrix products of 1,000 x 1,000 by 1,000 x 128.
+
+    References
+    ----------
+    N. Halko, P.-G. Martinsson, J. A. Tropp (2011). Finding structure with randomness:
+        probabilistic algorithms for constructing approximate matrix decompositions.
+        SIAM Review 53(2):217-288.
+    """
+    k = np.asarray(k, dtype=float)
+    n, m = k.shape
+    small = min(n, m)
+
+    def keep(sv):
+        return max(1, int(np.count_nonzero(sv > rank_tol * sv[0]))) if sv[0] > 0 else 1
+
+    if max(n, m) <= FULL_SVD_SIZE or small <= sketch:
+        u, sv, vt = np.linalg.svd(k, full_matrices=False)
+        rank = keep(sv)
+        residual = float(sv[rank]) if rank < len(sv) else 0.0
+        return u[:, :rank] * sv[:rank], vt[:rank].T, rank, residual
+    rng = np.random.default_rng(0) if rng is None else rng
+    width = int(sketch)
+    while True:
+        q, _ = np.linalg.qr(k @ rng.standard_normal((m, width)))
+        ub, sv, vt = np.linalg.svd(q.T @ k, full_matrices=False)
+        if width >= small or (sv[0] > 0 and sv[-1] <= rank_tol * sv[0]) or sv[0] == 0:
+            break
+        width = min(2 * width, small)
+    rank = keep(sv)
+    left = (q @ ub[:, :rank]) * sv[:rank]
+    right = vt[:rank].T
+    residual = float(np.linalg.norm(k - left @ right.T))
+    return left, right, rank, residual
 
 
 def screen_scores(palettes_a, palettes_b, kernel, grid=BinGrid(), rank_tol=1e-6):
@@ -449,11 +530,52 @@ def top_k_blocked(q, hb, k, block=2048):
     return out
 
 
+#: Colour pairs per broadcast kernel call of :func:`exact_raw_candidates`; each temporary of the
+#: kernel holds this many floats (2**19 is 4 MB), e.g. 349 products x 15 candidates x 10 x 10.
+RERANK_CHUNK = 1 << 19
+
+
+def pairwise_form(kernel):
+    """The broadcasting form of a kernel, or None when only the outer form is known.
+
+    The screen's kernel contract: ``kernel`` is either
+
+    * an object with a broadcasting ``pairwise(jab_a (..., 3), jab_b (..., 3)) -> (...)`` method
+      (such as :class:`harmony.rules.PairRules`), whose outer form is
+      ``pairwise(a[:, None], b[None, :])``; a bound ``PairRules.kernel`` counts as its rules; or
+    * any callable outer kernel ``kernel(jab_a (n, 3), jab_b (m, 3)) -> (n, m)``.
+
+    Both forms give the same numbers; the broadcasting form lets the exact re-rank score many
+    products in one call, the outer form is evaluated once per product.
+    """
+    pairwise = getattr(kernel, "pairwise", None)
+    if callable(pairwise):
+        return pairwise
+    owner = getattr(kernel, "__self__", None)
+    if owner is not None and getattr(kernel, "__name__", "") == "kernel":
+        pairwise = getattr(owner, "pairwise", None)
+        if callable(pairwise):
+            return pairwise
+    return None
+
+
+def outer_form(kernel):
+    """The outer form ``(n, 3), (m, 3) -> (n, m)`` of a kernel given either way (see :func:`pairwise_form`)."""
+    if callable(kernel):
+        return kernel
+    pairwise = getattr(kernel, "pairwise", None)
+    if not callable(pairwise):
+        raise TypeError(f"a kernel must be callable or have a pairwise method, got {type(kernel).__name__}")
+    return lambda a, b: pairwise(np.asarray(a, dtype=float)[:, None, :], np.asarray(b, dtype=float)[None, :, :])
+
+
 def exact_raw(palette_a, palettes_b, kernel):
     """Exact raw scores of one palette against every palette of a stack, shape (n_b,).
 
     One kernel call over all colours of side b, so this is the honest vectorised baseline.
+    ``kernel`` as in :func:`pairwise_form`.
     """
+    kernel = outer_form(kernel)
     stack_a = PaletteStack.from_palettes([palette_a]) if isinstance(palette_a, Palette) else palette_a
     stack_b = PaletteStack.from_palettes(palettes_b)
     ja, wa = stack_a.jab[0], stack_a.weights[0]
@@ -464,7 +586,7 @@ def exact_raw(palette_a, palettes_b, kernel):
     return ((wa @ kmat).reshape(n_b, kb) * stack_b.weights).sum(axis=1)
 
 
-def exact_raw_candidates(stack_a, stack_b, candidates, kernel, workers=1):
+def exact_raw_candidates(stack_a, stack_b, candidates, kernel, workers=1, chunk=RERANK_CHUNK):
     """Exact raw scores of each product of side a against its own candidates of side b.
 
     Parameters
@@ -472,15 +594,21 @@ def exact_raw_candidates(stack_a, stack_b, candidates, kernel, workers=1):
     stack_a, stack_b : PaletteStack
     candidates : ndarray of int, shape (n_a, c)
         Indices into side b.
-    kernel : callable
-        Must be safe to call from several threads at once when ``workers > 1`` (a kernel made of
-        numpy operations is: numpy releases the interpreter lock inside its loops).
+    kernel : PairRules, bound PairRules.kernel, or outer callable
+        See :func:`pairwise_form`. With a broadcasting form, many products are scored per
+        kernel call on arrays of shape (products, c, k_a, k_b); an outer callable is called once
+        per product. Must be safe to call from several threads at once when ``workers > 1`` (a
+        kernel made of numpy operations is: numpy releases the interpreter lock inside its loops).
     workers : int
         Threads sharing the products; 1 computes in the calling thread.
+    chunk : int
+        Colour pairs per broadcast kernel call (bounds the memory of the temporaries); at least
+        one product is scored per call.
 
     Returns
     -------
     raw : ndarray, shape (n_a, c)
+        ``raw[i, t] = w_a[i] @ kernel(jab_a[i], jab_b[cand[i, t]]) @ w_b[cand[i, t]]``.
     """
     candidates = np.asarray(candidates)
     n_a, c = candidates.shape
@@ -488,13 +616,26 @@ def exact_raw_candidates(stack_a, stack_b, candidates, kernel, workers=1):
     if c == 0 or n_a == 0:
         return out
     kb = stack_b.weights.shape[1]
+    rows = max(1, int(chunk) // (c * stack_a.weights.shape[1] * kb))
+    pairwise = pairwise_form(kernel)
+    outer = outer_form(kernel)
 
-    def run(lo, hi):
+    def run_batched(lo, hi):
+        for r0 in range(lo, hi, rows):
+            r1 = min(hi, r0 + rows)
+            cand = candidates[r0:r1]
+            ja = stack_a.jab[r0:r1, None, :, None, :]  # (p, 1, k_a, 1, 3)
+            jb = stack_b.jab[cand][:, :, None, :, :]  # (p, c, 1, k_b, 3)
+            kmat = np.asarray(pairwise(ja, jb), dtype=float)  # (p, c, k_a, k_b)
+            out[r0:r1] = np.einsum("pa,pcab,pcb->pc", stack_a.weights[r0:r1], kmat, stack_b.weights[cand])
+
+    def run_looped(lo, hi):
         for i in range(lo, hi):
             cand = candidates[i]
-            kmat = np.asarray(kernel(stack_a.jab[i], stack_b.jab[cand].reshape(-1, 3)), dtype=float)
+            kmat = np.asarray(outer(stack_a.jab[i], stack_b.jab[cand].reshape(-1, 3)), dtype=float)
             out[i] = ((stack_a.weights[i] @ kmat).reshape(c, kb) * stack_b.weights[cand]).sum(axis=1)
 
+    run = run_looped if pairwise is None else run_batched
     workers = max(1, min(int(workers), n_a))
     if workers == 1:
         run(0, n_a)
@@ -534,16 +675,18 @@ def exact_top_k(palettes_a, palettes_b, kernel, k=10):
 
 
 def screen_top_k(palettes_a, palettes_b, kernel, k=10, *, candidates=None, grid=BinGrid(),
-                 block=2048, exact=True, rank_tol=1e-6, workers=1):
+                 block=2048, exact=True, rank_tol=1e-6, workers=1, exact_below=0):
     """Top-k partners in side b of every product of side a, by the screen and an exact re-rank.
 
     Parameters
     ----------
     palettes_a, palettes_b : sequence of Palette or PaletteStack
         Side a is the oriented first category of the kernel.
-    kernel : callable
-        ``kernel(jab_a (n, 3), jab_b (m, 3)) -> (n, m)`` raw kernel per colour pair, e.g.
-        :meth:`harmony.rules.PairRules.kernel`.
+    kernel : PairRules, bound PairRules.kernel, or callable
+        The raw kernel per colour pair (see :func:`pairwise_form`): a
+        :class:`harmony.rules.PairRules` or its bound ``kernel`` (the exact re-rank then scores
+        many products per broadcast call, see :data:`RERANK_CHUNK`), or any outer callable
+        ``kernel(jab_a (n, 3), jab_b (m, 3)) -> (n, m)`` (re-rank called once per product).
     k : int
         Partners per product (clipped to the size of side b).
     candidates : int, optional
@@ -560,6 +703,10 @@ def screen_top_k(palettes_a, palettes_b, kernel, k=10, *, candidates=None, grid=
         Singular values of K below ``rank_tol`` times the largest are dropped (see Notes).
     workers : int
         Threads for the exact re-rank.
+    exact_below : int
+        When ``exact`` and ``n_a * n_b`` is at most this, skip the screen and score every pair
+        exactly (the result then equals :func:`exact_top_k`, ``candidates = n_b``, ``rank = 0``).
+        For small categories the exact scores cost less than factorising the bin kernel.
 
     Returns
     -------
@@ -579,6 +726,16 @@ def screen_top_k(palettes_a, palettes_b, kernel, k=10, *, candidates=None, grid=
     c = -(-3 * k // 2) if candidates is None else int(candidates)
     if c < k:
         raise ValueError(f"candidates ({c}) must be at least k ({k})")
+    if exact:
+        stack_a = PaletteStack.from_palettes(palettes_a)
+        stack_b = PaletteStack.from_palettes(palettes_b)
+        n_a, n_b = len(stack_a), len(stack_b)
+        if n_a * n_b <= int(exact_below):
+            every = np.broadcast_to(np.arange(n_b), (n_a, n_b))
+            raw = exact_raw_candidates(stack_a, stack_b, every, kernel, workers=workers)
+            idx, raw = _order(np.ascontiguousarray(every), raw, min(k, n_b))
+            return ScreenResult(indices=idx, raw=raw, exact=True, candidates=n_b)
+        palettes_a, palettes_b = stack_a, stack_b
     prep = _prepare(palettes_a, palettes_b, kernel, grid, rank_tol, max(int(block), 1))
     n_b = len(prep.stack_b)
     k_eff = min(k, n_b)
