@@ -25,7 +25,7 @@ import numpy as np
 from .catalogue import normalise_category
 from .errors import HarmonyError, StoreError
 from .palette import Palette
-from .score import PairScore, pair_score, to_unit
+from .score import PairScore, colour_labels, pair_score, to_unit
 from .screen import BinGrid, PaletteStack, exact_raw, screen_top_k
 
 __all__ = [
@@ -34,6 +34,7 @@ __all__ = [
     "FEED_COLUMNS",
     "FEED_FORMATS",
     "SIMILARITY_DELTA_E",
+    "EXACT_PAIRS",
     "palette_similarity",
     "similarity_matrix",
     "mmr_select",
@@ -53,6 +54,12 @@ FEED_FORMATS = {".jsonl": "jsonl", ".ndjson": "jsonl", ".csv": "csv", ".parquet"
 #: Cui & Li 2006), so two palettes of the same colours in a slightly different shade count as
 #: near-identical and a clearly different shade does not.
 SIMILARITY_DELTA_E = 10.0
+
+
+#: Category pairs with at most this many product pairs are scored exactly pair by pair instead of
+#: screened (``screen_top_k(..., exact_below=EXACT_PAIRS)``): below it the exact scores cost less
+#: than factorising the screen's bin kernel (about 0.1 s for 20,000 pairs of 10-colour palettes).
+EXACT_PAIRS = 20_000
 
 
 @dataclass(frozen=True)
@@ -236,6 +243,14 @@ def build_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, 
     if missing:
         _warn(warn, f"{missing} product(s) have no palette and are left out (see 'harmony extract' failures)")
 
+    labels = {}
+
+    def labels_of(pid, threshold):
+        key = (pid, threshold)
+        if key not in labels:
+            labels[key] = colour_labels(palettes[pid].jab, threshold)
+        return labels[key]
+
     rows = []
     for cat_a in known:
         ids_a = [p.id for p in by_cat[cat_a] if p.id in palettes]
@@ -249,7 +264,8 @@ def build_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, 
             pals_a = [palettes[i] for i in ids_a]
             pals_b = [palettes[i] for i in ids_b]
             grid = BinGrid(neutral_threshold=pr.neutral_threshold, neutral_fade=pr.neutral_fade)
-            res = screen_top_k(pals_a, pals_b, pr.kernel, k=pool_size, grid=grid)
+            res = screen_top_k(pals_a, pals_b, pr, k=pool_size, grid=grid, exact_below=EXACT_PAIRS)
+            t = pr.neutral_threshold
             for i, pid in enumerate(ids_a):
                 cand = res.indices[i]
                 if diversity > 0 and len(cand) > 1:
@@ -258,7 +274,8 @@ def build_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, 
                 else:
                     chosen = [int(j) for j in cand[:top]]
                 for rank, j in enumerate(chosen, start=1):
-                    ps = pair_score(pals_a[i], pals_b[j], pr)
+                    ps = pair_score(pals_a[i], pals_b[j], pr,
+                                    labels_a=labels_of(pid, t), labels_b=labels_of(ids_b[j], t))
                     rows.append(FeedRow(pid, cat_a, ids_b[j], cat_b, rank, float(ps.score), ps.reason))
     rows.sort(key=lambda r: (r.product, r.partner_category, r.rank))
     return rows

@@ -22,6 +22,8 @@ __all__ = [
     "pair_score",
     "explain_reason",
     "colour_name",
+    "ColourLabels",
+    "colour_labels",
 ]
 
 
@@ -187,6 +189,32 @@ def colour_name(jab, threshold=7.0):
     return light if j >= 75.0 else mid
 
 
+@dataclass(frozen=True)
+class ColourLabels:
+    """The words of one palette's colours, worked out once and reused for every pair it is in.
+
+    Attributes
+    ----------
+    hex : tuple of str
+        '#rrggbb' of each colour, in palette order (:func:`harmony.colour.jab_to_hex`).
+    names : tuple of str
+        :func:`colour_name` of each colour.
+    threshold : float
+        The neutral threshold the names were made with.
+    """
+
+    hex: tuple
+    names: tuple
+    threshold: float
+
+
+def colour_labels(jab, threshold=7.0):
+    """:class:`ColourLabels` of the colours ``jab`` (k, 3): one colour conversion for all of them."""
+    jab = np.asarray(jab, dtype=float).reshape(-1, 3)
+    codes = tuple(colour.jab_to_hex(jab)) if len(jab) else ()
+    return ColourLabels(codes, tuple(colour_name(c, threshold) for c in jab), float(threshold))
+
+
 # --------------------------------------------------------------------------------------------
 # The score and its explanation
 # --------------------------------------------------------------------------------------------
@@ -239,7 +267,20 @@ def explain_reason(pairs, categories, pair_rules, jab_a, jab_b, raw):
     return clause(best)
 
 
-def pair_score(pal_a, pal_b, pair_rules, top=5):
+def _labels_of(labels, jab, used, threshold, name):
+    """(hex by index, name by index) for the colours ``used``, from ``labels`` or computed."""
+    if labels is None:
+        fresh = colour_labels(jab[used], threshold) if used else ColourLabels((), (), threshold)
+        return dict(zip(used, fresh.hex)), dict(zip(used, fresh.names))
+    if len(labels.hex) != len(jab) or labels.threshold != threshold:
+        raise ValueError(
+            f"{name} must label the palette's {len(jab)} colours with threshold {threshold:g}, "
+            f"got {len(labels.hex)} colours and threshold {labels.threshold:g}"
+        )
+    return labels.hex, labels.names
+
+
+def pair_score(pal_a, pal_b, pair_rules, top=5, *, labels_a=None, labels_b=None):
     """The exact score of two palettes under ``pair_rules``, with its explanation.
 
     Parameters
@@ -251,6 +292,9 @@ def pair_score(pal_a, pal_b, pair_rules, top=5):
         From :meth:`harmony.rules.RuleSet.for_pair`.
     top : int
         How many colour pairs to keep in :attr:`PairScore.pairs`.
+    labels_a, labels_b : ColourLabels, optional
+        The palettes' :func:`colour_labels` made with ``pair_rules.neutral_threshold``, when the
+        caller scores one palette many times (the feed); computed here when not given.
 
     Returns
     -------
@@ -279,16 +323,14 @@ def pair_score(pal_a, pal_b, pair_rules, top=5):
         count = min(top, int(np.count_nonzero(flat)))
         order = np.argsort(-flat, kind="stable")[:count]
         r_idx, i_idx, j_idx = np.unravel_index(order, stack.shape)
-        used_a = sorted(set(i_idx.tolist()))
-        used_b = sorted(set(j_idx.tolist()))
-        hex_a = dict(zip(used_a, colour.jab_to_hex(jab_a[used_a]))) if used_a else {}
-        hex_b = dict(zip(used_b, colour.jab_to_hex(jab_b[used_b]))) if used_b else {}
         t = pair_rules.neutral_threshold
+        hex_a, word_a = _labels_of(labels_a, jab_a, sorted(set(i_idx.tolist())), t, "labels_a")
+        hex_b, word_b = _labels_of(labels_b, jab_b, sorted(set(j_idx.tolist())), t, "labels_b")
         pairs = tuple(
             ColourPair(
                 hex_a=hex_a[i], hex_b=hex_b[j], rule=names[r], value=float(stack[r, i, j]),
                 share_a=float(w_a[i]), share_b=float(w_b[j]),
-                name_a=colour_name(jab_a[i], t), name_b=colour_name(jab_b[j], t),
+                name_a=word_a[i], name_b=word_b[j],
                 index_a=int(i), index_b=int(j),
             )
             for r, i, j in zip(r_idx.tolist(), i_idx.tolist(), j_idx.tolist())
