@@ -40,7 +40,8 @@ class HueTemplate:
 #: The eight templates. Widths as described by Cohen-Or et al. (2006, Fig. 2) and carried by open
 #: implementations of the paper as fractions of the circle (0.05 = 18 deg, 0.26 = 93.6 deg,
 #: 0.22 = 79.2 deg; checked against the ``HueTemplates`` table of the ColorHarmonization Python
-#: code on GitHub, tartarskunk/ColorHarmonization). L's two sectors are a quarter-turn apart;
+#: code on GitHub, tartarskunk/ColorHarmonization, where T is centred a quarter-turn on, which a
+#: rotation absorbs). L's two sectors are a quarter-turn apart;
 #: I, Y and X have their two sectors opposite each other; T is a half circle; N holds greys only.
 TEMPLATES = {
     "i": HueTemplate("i", ((0.0, 18.0),)),
@@ -135,8 +136,8 @@ def best_template(jab, weights, tolerance_deg=1.0):
         Their shares.
     tolerance_deg : float
         Templates within this mean arc of the best distance count as fitting equally well;
-        the one with the narrowest total sector width wins (wider templates contain narrower
-        ones, so the plain minimum would always favour X or T).
+        the one with the narrowest total sector width wins (wide templates such as T and X
+        cover so much of the circle that the plain minimum would nearly always pick them).
 
     Returns
     -------

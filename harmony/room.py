@@ -24,7 +24,8 @@ A room template is a TOML file a stylist edits::
     slots = ["table", "chairs"]     # two different slot names
     weight = 3.0                    # how much this pair's score counts (>= 0)
 
-Every problem in a file is reported at once, one per line, as ``FILE:LINE: key: reason``.
+Every problem in a file is reported at once, as for rule files: ``FILE:LINE: key: reason``, the
+problems joined by ``"; "`` on one line (also listed on the error's ``problems`` attribute).
 """
 
 import math
@@ -129,7 +130,8 @@ def parse_room(text, path="<room>"):
     Raises
     ------
     RoomError
-        Listing every problem, one per line, as ``FILE:LINE: key: reason``.
+        Listing every problem as ``FILE:LINE: key: reason``, joined by ``"; "`` (one line); the
+        list is also on ``err.problems``.
     """
     try:
         data = tomllib.loads(text)
@@ -143,6 +145,18 @@ def parse_room(text, path="<room>"):
 
     def bad(line, key, reason):
         problems.append(f"{path}:{line}: {key}: {reason}")
+
+    def table_ok(table, i, item, allowed):
+        """Whether ``[[table]]`` number i is a table; reports its unknown keys."""
+        tag = f"{table}[{i + 1}]"
+        if not isinstance(item, dict):
+            bad(where.find(None, table, i), tag, "must be a table")
+            return False
+        for key in item:
+            if key not in allowed:
+                bad(where.find(key, table, i), f"{tag}.{key}",
+                    f"unknown key (expected one of {', '.join(sorted(allowed))})")
+        return True
 
     for key in data:
         if key not in _TOP_KEYS:
@@ -168,13 +182,8 @@ def parse_room(text, path="<room>"):
     names = set()
     for i, s in enumerate(raw_slots):
         tag = f"slot[{i + 1}]"
-        if not isinstance(s, dict):
-            bad(where.find(None, "slot", i), tag, "must be a table")
+        if not table_ok("slot", i, s, _SLOT_KEYS):
             continue
-        for key in s:
-            if key not in _SLOT_KEYS:
-                bad(where.find(key, "slot", i), f"{tag}.{key}",
-                    f"unknown key (expected one of {', '.join(sorted(_SLOT_KEYS))})")
         ok = True
         sname = s.get("name")
         if not isinstance(sname, str) or not sname.strip():
@@ -215,13 +224,8 @@ def parse_room(text, path="<room>"):
     seen = set()
     for i, p in enumerate(raw_pairs):
         tag = f"pair[{i + 1}]"
-        if not isinstance(p, dict):
-            bad(where.find(None, "pair", i), tag, "must be a table")
+        if not table_ok("pair", i, p, _PAIR_KEYS):
             continue
-        for key in p:
-            if key not in _PAIR_KEYS:
-                bad(where.find(key, "pair", i), f"{tag}.{key}",
-                    f"unknown key (expected one of {', '.join(sorted(_PAIR_KEYS))})")
         pair = p.get("slots")
         line = where.find("slots", "pair", i)
         good = True
@@ -248,7 +252,9 @@ def parse_room(text, path="<room>"):
             weights.append((pair[0], pair[1], float(weight)))
 
     if problems:
-        raise RoomError("\n".join(problems) if len(problems) > 1 else problems[0])
+        err = RoomError("; ".join(problems))
+        err.problems = tuple(problems)
+        raise err
     return RoomTemplate(name=name.strip(), budget=float(budget), currency=currency, slots=tuple(slots),
                         weights=tuple(weights), default_weight=float(default_weight), path=str(path))
 

@@ -95,7 +95,8 @@ def combine_palettes(palettes, visible):
 
 
 def colour_groups(jab, weights, merge_delta_e=GROUP_DELTA_E):
-    """Group colours greedily, heaviest first: each joins the first group whose lead is close.
+    """Group colours greedily, heaviest first: each joins the group with the nearest lead, when
+    that lead is within ``merge_delta_e`` (CAM02-UCS), or else leads a new group.
 
     Returns the leading colours, shape (g, 3), and group shares, shape (g,), heaviest first.
     """

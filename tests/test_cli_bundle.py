@@ -202,3 +202,13 @@ def test_anchor_with_an_empty_optional_slot(db):
     assert data["pool_sizes"]["pendant"] == 0 and data["pool_sizes"]["table"] == 1
     for b in data["bundles"]:
         assert {i["slot"] for i in b["items"]} == {"table", "chairs", "rug"}
+
+
+def test_invalid_room_file_is_one_error_line(db):
+    from pathlib import Path
+
+    bad = Path(__file__).parent / "data" / "rooms" / "many_problems.toml"
+    res = run("--db", db, "--room", bad)
+    assert res.exit_code == 2 and "Traceback" not in res.output
+    assert res.output.count("\n") == 1 and res.output.startswith(f"error: {bad}:4: colour: unknown key")
+    assert res.output.count(f"{bad}:") == 11

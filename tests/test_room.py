@@ -44,7 +44,10 @@ def test_every_problem_listed_with_line_and_key():
     path = BAD / "many_problems.toml"
     with pytest.raises(RoomError) as info:
         load_room(path)
-    lines = str(info.value).splitlines()
+    # One line, as for rule files: the problems joined by "; " and listed on err.problems.
+    assert "\n" not in str(info.value)
+    lines = str(info.value).split("; ")
+    assert list(info.value.problems) == lines
     assert len(lines) == 11
     expected = [
         ":4: colour: unknown key",
