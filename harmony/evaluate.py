@@ -632,7 +632,15 @@ class Evaluation:
     k: int = CUTOFF
 
     def to_dict(self):
-        """The JSON of ``harmony evaluate --json`` (``events``, ``anchors``, ``results`` and more)."""
+        """The JSON of ``harmony evaluate --json``.
+
+        ``events``, ``anchors`` and ``results`` (each with ``name``, ``auc``, ``ndcg_at_10``,
+        ``hit_at_10``, ``auc_ci``), plus what a reader needs to trust them: each result's
+        ``kind`` and the intervals of the other two metrics; the ``coverage`` with the counts it
+        comes from (``products_seen``, ``queries``); the ids left out (``unknown_products`` with
+        their row counts, ``no_palette``); and how the intervals were drawn
+        (``confidence_level``, ``bootstrap_resamples``).
+        """
         return {
             "events": self.events,
             "anchors": self.anchors,
@@ -644,7 +652,6 @@ class Evaluation:
             "no_palette": list(self.no_palette),
             "confidence_level": self.level,
             "bootstrap_resamples": self.resamples,
-            "k": self.k,
         }
 
 

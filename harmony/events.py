@@ -243,6 +243,8 @@ def read_events(path, weights=None, known_products=None):
     path = Path(path)
     weights = {str(k).casefold(): v for k, v in (DEFAULT_EVENT_WEIGHTS if weights is None else weights).items()}
     _check_weights(weights, str(path))
+    if path.is_dir():
+        raise EventsError(f"{path}: is a folder, expected a log file")
     if not path.is_file():
         raise EventsError(f"{path}: no such file")
     suffix = path.suffix.casefold()

@@ -73,10 +73,17 @@ def test_json_output_has_the_documented_keys(shop):
     assert res.exit_code == 0, res.output
     data = json.loads(res.output)
     assert {"events", "anchors", "results"} <= set(data)
+    # Every extra key is deliberate (coverage and what was left out, how intervals were drawn).
+    assert set(data) == {
+        "events", "anchors", "results", "products_seen", "queries", "coverage", "unknown_products",
+        "no_palette", "confidence_level", "bootstrap_resamples",
+    }
+    assert data["coverage"] == pytest.approx(data["anchors"] / data["products_seen"])
+    assert data["bootstrap_resamples"] == 200 and data["confidence_level"] == 0.95
     names = [r["name"] for r in data["results"]]
     assert names == ["complementary_only", "complementary_inverted", "same colours (EMD)", "colour attribute", "random order"]
     for r in data["results"]:
-        assert {"name", "auc", "ndcg_at_10", "hit_at_10", "auc_ci"} <= set(r)
+        assert set(r) == {"name", "kind", "auc", "ndcg_at_10", "hit_at_10", "auc_ci", "ndcg_at_10_ci", "hit_at_10_ci"}
         lo, hi = r["auc_ci"]
         assert lo <= r["auc"] <= hi
     by = {r["name"]: r for r in data["results"]}

@@ -115,6 +115,9 @@ def test_many_bad_rows_are_summarised_on_one_line(tmp_path):
 def test_missing_and_binary_files(tmp_path):
     with pytest.raises(EventsError, match=r"nope.csv: no such file"):
         read_events(tmp_path / "nope.csv")
+    (tmp_path / "logs.csv").mkdir()
+    with pytest.raises(EventsError, match=r"logs.csv: is a folder, expected a log file"):
+        read_events(tmp_path / "logs.csv")
     (tmp_path / "bin.csv").write_bytes(b"session,product,event\n\xff\xfe,A,view\n")
     with pytest.raises(EventsError, match=r"bin.csv: not UTF-8 text"):
         read_events(tmp_path / "bin.csv")
