@@ -139,7 +139,16 @@ class Catalogue:
         Joined to the (resolved) catalogue folder and normalised lexically; symbolic links
         inside the image path are kept as written.
         """
-        return Path(os.path.normpath(os.path.join(self.root, image)))
+        return Path(self.image_file(image))
+
+    def image_file(self, image):
+        """:meth:`image_path` as a string (the form the store keys images by; cheaper in loops)."""
+        return _join(os.path.dirname(self.path), image)
+
+
+def _join(folder, image):
+    """``folder`` joined with ``image`` and normalised lexically, as a string."""
+    return os.path.normpath(os.path.join(folder, image))
 
 
 def read_catalogue(path):
@@ -179,7 +188,7 @@ def read_catalogue(path):
     except OSError as exc:
         raise CatalogueError(f"{path}: cannot read: {exc.strerror or exc}") from None
     rows = _csv_rows(path, text) if kind == "csv" else _jsonl_rows(path, text)
-    root = path.resolve().parent
+    root = str(path.resolve().parent)
     products, problems, seen = [], [], set()
     skipped = 0
     for line, record, early in rows:
@@ -312,7 +321,7 @@ def _validate(record, root):
         problems.append(("image", "missing required field"))
     images = tuple(images or ())
     for image in images:
-        if not (root / image).is_file():
+        if not os.path.isfile(_join(root, image)):
             problems.append(("image", f"file not found: {image}"))
 
     if problems:

@@ -124,7 +124,7 @@ def hash_images(catalogue, known=None):
     out = {}
     for product in catalogue.products:
         for image in product.images:
-            path = str(catalogue.image_path(image))
+            path = catalogue.image_file(image)
             if path in out:
                 continue
             try:
@@ -248,7 +248,8 @@ def run_extraction(
     Raises
     ------
     CatalogueError
-        The catalogue cannot be read, or no row of it is valid (the store is then left as it was).
+        The catalogue cannot be read, or it has no valid product row (the store is then left as
+        it was: an empty export never empties the store).
     StoreError
         The store is of another schema version or not a store.
     HarmonyError
@@ -267,10 +268,10 @@ def run_extraction(
         settings = PaletteSettings()
     key = str(settings.key)
     cat = catalogue if isinstance(catalogue, Catalogue) else read_catalogue(catalogue)
-    if not cat.products and cat.problems:
-        raise CatalogueError(
-            f"{cat.path}: no valid product ({len(cat.problems)} problems, first: {cat.problems[0]}); store left unchanged"
-        )
+    if not cat.products:
+        # An empty export must not wipe a store (and every cached palette with it).
+        detail = f"{len(cat.problems)} problems, first: {cat.problems[0]}" if cat.problems else "no product rows"
+        raise CatalogueError(f"{cat.path}: no valid product ({detail}); store left unchanged")
     db_path = Path(db_path) if db_path is not None else cat.path.parent / DEFAULT_DB_NAME
 
     with Store(db_path, create=True) as store:
@@ -357,7 +358,7 @@ def _run_dask(chunks, settings, extractor, workers, scheduler):
         if scheduler:
             try:
                 client = Client(scheduler, timeout=SCHEDULER_TIMEOUT)
-            except (OSError, TimeoutError) as exc:
+            except (OSError, TimeoutError, ValueError) as exc:  # ValueError: a malformed address
                 raise HarmonyError(f"cannot reach the Dask scheduler {scheduler!r}: {exc}") from None
         else:
             cluster = LocalCluster(

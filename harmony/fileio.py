@@ -26,7 +26,10 @@ def write_text_whole(path, text, what="file"):
         with os.fdopen(fd, "w", encoding="utf-8", newline="") as handle:
             handle.write(text)
         os.replace(tmp, path)
-    except OSError as exc:
+    except BaseException as exc:
+        # Any failure (full disk, text that is not encodable, an interrupt) leaves no temporary.
         Path(tmp).unlink(missing_ok=True)
-        raise HarmonyError(f"{path}: cannot write the {what}: {exc.strerror or exc}") from None
+        if isinstance(exc, OSError):
+            raise HarmonyError(f"{path}: cannot write the {what}: {exc.strerror or exc}") from None
+        raise
     return path

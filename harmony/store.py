@@ -431,7 +431,7 @@ class Store:
         ----------
         catalogue : harmony.catalogue.Catalogue
         hashes : dict of str to FileHash
-            By absolute image path (``str(catalogue.image_path(image))``), for every image.
+            By absolute image path (``catalogue.image_file(image)``), for every image.
         settings_key : str
             The extraction settings of this run; reading methods use its palettes from now on.
 
@@ -440,34 +440,32 @@ class Store:
         Removed products go; images no longer used by any product go with their palettes and
         failures (of every settings key).
         """
+        products, images, links = [], {}, []
+        for row, product in enumerate(catalogue.products):
+            products.append((
+                product.id,
+                product.category,
+                product.category_key,
+                float(product.price),
+                product.stock,
+                product.title,
+                product.currency,
+                json.dumps(product.attributes, sort_keys=True),
+                row,
+            ))
+            for position, image in enumerate(product.images):
+                info = hashes[catalogue.image_file(image)]
+                if info.sha256 is not None:
+                    images.setdefault(info.sha256, info.size)
+                links.append(
+                    (product.id, position, image, info.abs_path, info.sha256, info.size, info.mtime_ns, info.error)
+                )
         with self._transaction() as db:
             db.execute("DELETE FROM product_images")
             db.execute("DELETE FROM products")
-            for row, product in enumerate(catalogue.products):
-                db.execute(
-                    "INSERT INTO products VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                    (
-                        product.id,
-                        product.category,
-                        product.category_key,
-                        float(product.price),
-                        product.stock,
-                        product.title,
-                        product.currency,
-                        json.dumps(product.attributes, sort_keys=True),
-                        row,
-                    ),
-                )
-                for position, image in enumerate(product.images):
-                    info = hashes[str(catalogue.image_path(image))]
-                    if info.sha256 is not None:
-                        db.execute(
-                            "INSERT OR IGNORE INTO images (sha256, size) VALUES (?, ?)", (info.sha256, info.size)
-                        )
-                    db.execute(
-                        "INSERT INTO product_images VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
-                        (product.id, position, image, info.abs_path, info.sha256, info.size, info.mtime_ns, info.error),
-                    )
+            db.executemany("INSERT INTO products VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)", products)
+            db.executemany("INSERT OR IGNORE INTO images (sha256, size) VALUES (?, ?)", images.items())
+            db.executemany("INSERT INTO product_images VALUES (?, ?, ?, ?, ?, ?, ?, ?)", links)
             db.execute("DELETE FROM images WHERE sha256 NOT IN (SELECT sha256 FROM product_images WHERE sha256 IS NOT NULL)")
             db.execute("INSERT OR REPLACE INTO meta VALUES ('catalogue_path', ?)", (str(catalogue.path),))
             db.execute("INSERT OR REPLACE INTO meta VALUES ('settings_key', ?)", (settings_key,))

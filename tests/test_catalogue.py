@@ -143,3 +143,15 @@ def test_missing_and_undecodable_files(tmp_path):
 )
 def test_normalise_category(name, expected):
     assert normalise_category(name) == expected
+
+
+def test_image_paths_are_joined_and_normalised_lexically(tmp_path):
+    (tmp_path / "img").mkdir()
+    (tmp_path / "img" / "a.png").write_bytes(b"x")
+    (tmp_path / "c.csv").write_text("id,category,price,image\nA,Sofa,1,img/../img/./a.png\n", encoding="utf-8")
+    cat = read_catalogue(tmp_path / "c.csv")
+    [product] = cat.products
+    want = str((tmp_path / "img" / "a.png").resolve())
+    # os.path.normpath drops '.' and folds 'x/..' without touching the file system (Python docs).
+    assert cat.image_file(product.images[0]) == want
+    assert cat.image_path(product.images[0]) == Path(want)

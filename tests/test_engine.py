@@ -343,6 +343,8 @@ def test_cli_extract_summary_warnings_and_strict(tmp_path):
         (["extract", "{csv}", "--workers", "0"], r"Invalid value for '--workers'"),
         (["extract", "{csv}", "--engine", "spark"], r"Invalid value for '--engine'"),
         (["extract", "{csv}", "--db", "{tmp}/text.db"], r"error: .*text\.db: not a palette store"),
+        (["extract", "{csv}", "--engine", "dask", "--scheduler", "tcp://no:port:here"],
+         r"error: cannot reach the Dask scheduler 'tcp://no:port:here'"),
     ],
 )
 def test_cli_extract_errors(tmp_path, args, match):
@@ -357,6 +359,39 @@ def test_cli_extract_errors(tmp_path, args, match):
     assert result.exit_code == 2
     assert re.search(match, result.output), result.output
     assert "Traceback" not in result.output
+
+
+def test_header_only_catalogue_leaves_the_store_alone(tmp_path):
+    # A truncated nightly export must not remove every product (and its cached palettes).
+    csv = _shop(tmp_path, n=2)
+    _run(csv, tmp_path / "s.db")
+    csv.write_text("id,category,price,image\n")
+    with pytest.raises(CatalogueError, match=r"shop\.csv: no valid product \(no product rows\); store left unchanged"):
+        _run(csv, tmp_path / "s.db")
+    with Store(tmp_path / "s.db") as store:
+        assert len(store) == 2 and store.counts()["palettes"] == 2
+
+
+def test_cli_extract_lists_images_without_a_palette(tmp_path, monkeypatch):
+    from click.testing import CliRunner
+
+    from harmony.cli import extract_cmd, main
+
+    monkeypatch.setattr(extract_cmd, "SHOWN_FAILURES", 2)
+    csv = _shop(tmp_path, n=1)
+    for name in ("b1", "b2", "b3"):
+        (tmp_path / "img" / f"{name}.png").write_bytes(f"{name} is not an image".encode())
+    with open(csv, "a") as f:
+        f.write("B1,rug,5,img/b1.png\nB2,rug,5,img/b2.png|img/p0.png\nB3,rug,5,img/b3.png\n")
+    result = CliRunner().invoke(main, ["extract", str(csv), "--workers", "1", "--db", str(tmp_path / "s.db")])
+    assert result.exit_code == 0, result.output
+    lines = [line for line in result.stderr.splitlines() if line.startswith("warning: ")]
+    assert lines == [
+        f"warning: product B1: no palette from {tmp_path / 'img' / 'b1.png'}: not an image (unrecognised format)",
+        f"warning: product B2: no palette from {tmp_path / 'img' / 'b2.png'}: not an image (unrecognised format)",
+        "warning: ... and 1 more image(s) without a palette",
+    ]
+    assert "4 products, 4 images: 1 new, 0 cached, 3 failed" in result.stdout
 
 
 def die(path, settings):

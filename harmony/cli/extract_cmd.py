@@ -14,7 +14,10 @@ from ..errors import HarmonyError
 from ..fileio import write_text_whole
 from ..store import Store
 
-__all__ = ["extract", "palettes", "PALETTE_CSV_COLUMNS"]
+__all__ = ["extract", "palettes", "PALETTE_CSV_COLUMNS", "SHOWN_FAILURES"]
+
+#: Images without a palette listed after ``harmony extract`` (the store keeps them all).
+SHOWN_FAILURES = 10
 
 #: Columns of ``harmony palettes --format csv``: one row per palette colour.
 PALETTE_CSV_COLUMNS = (
@@ -45,6 +48,12 @@ def extract(catalogue, db_path, workers, engine, scheduler, strict):
     if strict and cat.problems:
         fail(f"{cat.path}: {len(cat.problems)} problem(s) in {cat.skipped_rows} row(s); nothing written (--strict)")
     summary = run_extraction(cat, db_path, workers=workers, engine=engine, scheduler=scheduler)
+    with Store(summary.db_path) as store:
+        failures = store.failures()
+    for product_id, _image, reason in failures[:SHOWN_FAILURES]:
+        click.echo(f"warning: product {product_id}: no palette from {reason}", err=True)
+    if len(failures) > SHOWN_FAILURES:
+        click.echo(f"warning: ... and {len(failures) - SHOWN_FAILURES} more image(s) without a palette", err=True)
     click.echo(summary.line())
 
 
@@ -96,6 +105,6 @@ def palettes(db_path, fmt, out_path):
     else:
         write_text_whole(Path(out_path), buffer.getvalue(), what="palette export")
     if missing:
-        click.echo(f"note: {missing} product(s) without a palette left out (see failures in the store)", err=True)
+        click.echo(f"note: {missing} product(s) without a palette left out (harmony extract lists why)", err=True)
 
 

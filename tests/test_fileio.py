@@ -1,0 +1,50 @@
+"""Tests of harmony.fileio.write_text_whole: whole files or none, one-line errors."""
+
+import os
+
+import pytest
+
+from harmony.errors import HarmonyError
+from harmony.fileio import write_text_whole
+
+
+def _leftovers(folder):
+    return sorted(p.name for p in folder.iterdir() if p.name.endswith(".part"))
+
+
+def test_writes_utf8_text_exactly_and_makes_folders(tmp_path):
+    out = tmp_path / "a" / "b" / "report.html"
+    text = "café\r\nline two\n"  # newline="" keeps line endings as given
+    assert write_text_whole(out, text) == out
+    assert out.read_bytes() == text.encode("utf-8")
+    assert _leftovers(out.parent) == []
+
+
+def test_replaces_an_existing_file_whole(tmp_path):
+    out = tmp_path / "feed.jsonl"
+    out.write_text("old\n", encoding="utf-8")
+    inode = out.stat().st_ino
+    write_text_whole(out, "new\n")
+    # os.replace swaps in a new file (POSIX rename(2)): a reader holding the old one keeps it.
+    assert out.read_text(encoding="utf-8") == "new\n" and out.stat().st_ino != inode
+
+
+def test_a_failed_write_keeps_the_old_file_and_leaves_no_temporary(tmp_path):
+    out = tmp_path / "feed.jsonl"
+    out.write_text("old\n", encoding="utf-8")
+    with pytest.raises(UnicodeEncodeError):
+        write_text_whole(out, "half \udcff")  # a lone surrogate cannot be written as UTF-8
+    assert out.read_text(encoding="utf-8") == "old\n"
+    assert _leftovers(tmp_path) == []
+
+
+def test_unwritable_targets_are_one_line_errors(tmp_path):
+    blocker = tmp_path / "file"
+    blocker.write_text("x")
+    with pytest.raises(HarmonyError, match=r"^.*file/out\.csv: cannot write the palette export: .+$"):
+        write_text_whole(blocker / "out.csv", "a", what="palette export")
+    folder = tmp_path / "folder"
+    folder.mkdir()
+    with pytest.raises(HarmonyError, match=r"folder: cannot write the report: .+$"):
+        write_text_whole(folder, "a", what="report")  # the target is a folder: rename fails
+    assert _leftovers(tmp_path) == [] and os.listdir(folder) == []
