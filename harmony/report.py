@@ -21,7 +21,15 @@ from markupsafe import Markup
 
 from . import colour
 from .errors import HarmonyError
-from .safety import CAUTION_NOTE, contrast_caution, is_floor_covering, stands_on_floor, surface_lrv
+from .safety import (
+    CAUTION_NOTE,
+    close_band,
+    contrast_caution,
+    is_floor_covering,
+    required_difference,
+    stands_on_floor,
+    surface_lrv,
+)
 from .fileio import write_text_whole
 from .svg import WheelLink, hue_wheel_svg, palette_strip_svg
 
@@ -32,6 +40,7 @@ __all__ = [
     "BundleView",
     "FlagView",
     "CautionView",
+    "FloorView",
     "ReportData",
     "LOW_CONFIDENCE",
     "FEED_KEYS",
@@ -138,6 +147,21 @@ class CautionView:
 
 
 @dataclass(frozen=True)
+class FloorView:
+    """A rug of the report's pairs and sets against the floor it lies on.
+
+    ``band`` holds the floor LRVs to avoid (within ``required`` points of the rug); ``caution``
+    is the check against a floor of known LRV (None when it passes or when no floor was given).
+    """
+
+    rug: ProductView
+    required: float
+    band: tuple  # (low, high)
+    caution: object = None  # harmony.safety.ContrastCaution | None
+    where: str = ""
+
+
+@dataclass(frozen=True)
 class ReportData:
     """Everything the report shows, as plain data."""
 
@@ -147,6 +171,9 @@ class ReportData:
     bundles: tuple = ()
     flagged: tuple = ()
     cautions: tuple = ()
+    floors: tuple = ()
+    floor_lrv: float | None = None
+    floor_hex: str = ""
     caution_note: str = CAUTION_NOTE
     rules_path: str = ""
     rules_text: str = ""
@@ -465,18 +492,22 @@ def _bundle_views(data, views, palettes, rules, where, per_room):
     return out
 
 
-def _cautions(suggestions, bundles, illuminance_lux=None):
-    found = {}
+def _cautions(suggestions, bundles):
+    """Rug-and-furniture cautions, and the rugs met (id -> (rug view, where)) in order."""
+    found, rugs = {}, {}
 
     def consider(x, y, where):
         for rug, other in ((x, y), (y, x)):
+            if is_floor_covering(rug.category) and rug.lrv is not None:
+                rugs.setdefault(rug.id, (rug, where))
             if is_floor_covering(rug.category) and stands_on_floor(other.category):
                 if rug.lrv is None or other.lrv is None:
                     continue
                 key = (rug.id, other.id)
                 if key in found:
                     continue
-                c = contrast_caution(rug.title, rug.lrv, other.title, other.lrv, illuminance_lux=illuminance_lux)
+                # Furniture on a rug is not a large area: the 30-point figure applies.
+                c = contrast_caution(rug.title, rug.lrv, other.title, other.lrv)
                 if c is not None:
                     found[key] = CautionView(rug, other, c.difference, c.required, c.message, where)
 
@@ -486,7 +517,36 @@ def _cautions(suggestions, bundles, illuminance_lux=None):
         for i, x in enumerate(b.items):
             for y in b.items[i + 1:]:
                 consider(x.product, y.product, f"{b.room}, set {b.rank}")
-    return tuple(sorted(found.values(), key=lambda c: (c.difference, c.rug.id, c.other.id)))
+    return tuple(sorted(found.values(), key=lambda c: (c.difference, c.rug.id, c.other.id))), rugs
+
+
+def _grey_hex(lrv):
+    """The sRGB grey whose CIE Y is ``lrv / 100`` (a neutral has R = G = B = Y in linear sRGB).
+
+    Encoded with the sRGB transfer function of IEC 61966-2-1:1999.
+    """
+    y = min(max(float(lrv) / 100.0, 0.0), 1.0)
+    v = 12.92 * y if y <= 0.0031308 else 1.055 * y ** (1.0 / 2.4) - 0.055
+    return colour.srgb1_to_hex(np.full(3, v))
+
+
+def _floor_views(rugs, floor_lrv, illuminance_lux):
+    """Each rug against the floor: the band of floor LRVs to avoid, and the check when known.
+
+    A rug and the floor under it are both large areas, so the 20-point allowance of BS 8300-2
+    Annex B applies when the illuminance is known to exceed 200 lux.
+    """
+    need = required_difference(large_area=True, illuminance_lux=illuminance_lux)
+    out = []
+    for rug, where in rugs.values():
+        caution = None
+        if floor_lrv is not None:
+            caution = contrast_caution(rug.title, rug.lrv, "the floor", floor_lrv, large_area=True,
+                                       illuminance_lux=illuminance_lux)
+        out.append(FloorView(rug, need, close_band(rug.lrv, need), caution, where))
+    # Rugs that fail against the given floor first, then the closest, then by id.
+    return tuple(sorted(out, key=lambda f: (f.caution is None,
+                                            f.caution.difference if f.caution else 0.0, f.rug.id)))
 
 
 def gather_report(
@@ -503,6 +563,8 @@ def gather_report(
     thumbnails=True,
     evaluation=(),
     notes=(),
+    floor_lrv=None,
+    illuminance_lux=None,
 ):
     """Gather the report's content into a :class:`ReportData`.
 
@@ -524,12 +586,27 @@ def gather_report(
         The rules used; its colour pairs draw the wheel links and its file is shown.
     evaluation : iterable of (heading, (header, rows))
         Optional tables of an offline evaluation.
+    floor_lrv : float, optional
+        Measured or stated LRV (0-100) of the floor the rugs will lie on; each rug of the pairs
+        and sets is checked against it. Without it the report lists the floor LRVs to avoid.
+    illuminance_lux : float, optional
+        Illuminance on the floor; above 200 lux the rug-and-floor check asks for 20 points.
 
     Raises
     ------
     HarmonyError
-        If a feed row or bundle names a product that is not among ``products``.
+        If a feed row or bundle names a product that is not among ``products``, or the floor LRV
+        or the illuminance is out of range.
     """
+    for name, value, top in (("floor LRV", floor_lrv, 100.0), ("illuminance", illuminance_lux, math.inf)):
+        if value is not None:
+            try:
+                v = float(value)
+            except (TypeError, ValueError):
+                v = math.nan
+            if not (0.0 <= v <= top):
+                limit = "between 0 and 100" if top == 100.0 else "a non-negative number of lux"
+                raise HarmonyError(f"{name} must be {limit}, got {value!r}")
     products = sorted(products, key=lambda p: (str(p.category).casefold(), str(p.id)))
     palettes = dict(palettes)
     image_paths = dict(image_paths or {})
@@ -584,13 +661,17 @@ def gather_report(
             rules_text = Path(rules.path).read_text(encoding="utf-8")
         except OSError:
             rules_text = ""
+    cautions, rugs = _cautions(suggestions, bundles)
     return ReportData(
         title=str(title),
         products=tuple(views.values()),
         suggestions=tuple(suggestions),
         bundles=tuple(bundles),
         flagged=tuple(flagged),
-        cautions=_cautions(suggestions, bundles),
+        cautions=cautions,
+        floors=_floor_views(rugs, None if floor_lrv is None else float(floor_lrv), illuminance_lux),
+        floor_lrv=None if floor_lrv is None else float(floor_lrv),
+        floor_hex="" if floor_lrv is None else _grey_hex(floor_lrv),
         rules_path=rules_path,
         rules_text=rules_text,
         categories=tuple(sorted(counts.items(), key=lambda kv: kv[0].casefold())),

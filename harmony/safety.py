@@ -32,6 +32,7 @@ __all__ = [
     "LARGE_AREA_MIN_LUX",
     "CAUTION_NOTE",
     "ContrastCaution",
+    "close_band",
     "surface_lrv",
     "required_difference",
     "contrast_caution",
@@ -46,12 +47,14 @@ LARGE_AREA_MIN_LRV_DIFFERENCE = 20.0
 #: The illuminance (lux) above which the large-area allowance of BS 8300-2:2018 Annex B applies.
 LARGE_AREA_MIN_LUX = 200.0
 
-#: The sentence the report prints beside every caution.
+#: The paragraph the report prints above its cautions.
 CAUTION_NOTE = (
+    "A rug needs to stand out in luminance from the floor it lies on and from the furniture that "
+    "stands on it, so that people with low vision can see its edges and the legs and bases on it. "
     "BS 8300-2:2018 (Annex B) asks for at least 30 points of light reflectance value (LRV) "
-    "difference between adjacent surfaces for people with low vision; 20 points may do for large "
-    "areas lit above 200 lux. LRV is CIE Y on a 0-100 scale, measured to BS 8493. These values are "
-    "estimated from product photos and are only approximate: defer to local codes and measure a sample."
+    "difference between adjacent surfaces; 20 points may do for large areas lit above 200 lux. "
+    "LRV is CIE Y on a 0-100 scale, measured to BS 8493. The LRVs here are estimated from product "
+    "photos and are only approximate: local codes and a measured sample of the rug and the floor decide."
 )
 
 # Category words (common retail usage) for what lies on the floor and what stands on it.
@@ -125,6 +128,37 @@ def required_difference(large_area=False, illuminance_lux=None):
     return MIN_LRV_DIFFERENCE
 
 
+def close_band(lrv, required=MIN_LRV_DIFFERENCE):
+    """The LRVs an adjacent surface must avoid: those within ``required`` points of ``lrv``.
+
+    A floor whose LRV lies strictly inside the returned interval (clipped to 0-100) is closer to
+    the rug than BS 8300-2:2018 Annex B recommends.
+
+    Parameters
+    ----------
+    lrv : float
+        LRV of the surface (0-100), e.g. a rug's :func:`surface_lrv`.
+    required : float
+        The difference asked for (see :func:`required_difference`).
+
+    Returns
+    -------
+    (float, float)
+        ``(max(0, lrv - required), min(100, lrv + required))``.
+
+    Raises
+    ------
+    ValueError
+        If ``lrv`` is not a number in [0, 100] or ``required`` is not positive.
+    """
+    v, need = float(lrv), float(required)
+    if not (math.isfinite(v) and 0.0 <= v <= 100.0):
+        raise ValueError(f"LRV must lie in [0, 100], got {lrv!r}")
+    if not (math.isfinite(need) and need > 0):
+        raise ValueError(f"required difference must be positive, got {required!r}")
+    return max(0.0, v - need), min(100.0, v + need)
+
+
 @dataclass(frozen=True)
 class ContrastCaution:
     """Two adjacent surfaces whose estimated LRVs differ by less than the recommendation.
@@ -151,9 +185,13 @@ class ContrastCaution:
     @property
     def message(self):
         """One sentence for people."""
+        # One decimal where rounding would show the difference as already meeting the figure.
+        diff = f"{self.difference:.0f}"
+        if float(diff) >= self.required:
+            diff = f"{math.floor(self.difference * 10) / 10:.1f}"
         return (
             f"{self.a} (LRV about {self.lrv_a:.0f}) and {self.b} (LRV about {self.lrv_b:.0f}) differ by "
-            f"{self.difference:.0f} points; BS 8300-2 Annex B asks for at least {self.required:.0f}."
+            f"{diff} points; BS 8300-2 Annex B asks for at least {self.required:.0f}."
         )
 
 

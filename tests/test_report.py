@@ -469,3 +469,188 @@ def test_demo_command_reports_an_unusable_folder(tmp_path):
     result = _cli("demo", "--out", blocker / "sub", "--no-progress")
     assert result.exit_code == 2
     assert "error: " in result.output and "cannot make the output folder" in result.output
+
+
+# ------------------------------------------------------------------------- hostile strings, floor
+
+EVIL = '"><img src=x onerror=alert(1)><script>alert(2)</script>'
+
+HOSTILE_RULES = f"""
+format = 1
+[neutral]
+threshold = 7.0
+fade = 4.0
+[rule.'close{EVIL}']
+kind = "hue"
+centre = 0.0
+spread = 40.0
+weight = 1.0
+phrase = 'sits {EVIL} near'
+[default]
+rules = {{ 'close{EVIL}' = 1.0 }}
+"""
+
+
+class _Tags(__import__("html.parser").parser.HTMLParser):
+    """Every element and attribute of a page, and its text."""
+
+    def __init__(self):
+        super().__init__()
+        self.tags, self.attrs, self.text = set(), set(), []
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.add(tag)
+        self.attrs.update(name for name, _ in attrs)
+
+    def handle_data(self, data):
+        self.text.append(data)
+
+
+def test_every_user_string_is_escaped(tmp_path):
+    # Hostile ids, titles, categories, currency, rule names and phrases, rooms, slots and reasons:
+    # none may become markup. The category still reads as a rug, so the caution box shows it too.
+    from harmony.rules import parse_rules
+
+    rules = parse_rules(HOSTILE_RULES, where="hostile.toml")
+    products = [
+        Product(id=f"s{EVIL}", category=f"sofa {EVIL}", price=500.0, stock=1, title=f"Sofa {EVIL}",
+                currency=f"E{EVIL}"),
+        Product(id=f"r{EVIL}", category=f"rug {EVIL}", price=90.0, stock=1, title=f"Rug {EVIL}",
+                currency=f"E{EVIL}"),
+    ]
+    palettes = {
+        f"s{EVIL}": _pal([[120, 60, 50], [110, 64, 58]], [0.6, 0.4]),
+        f"r{EVIL}": _pal([[125, 70, 52]], [1.0]),
+    }
+    feed = [{"product": f"s{EVIL}", "category": f"sofa {EVIL}", "partner": f"r{EVIL}",
+             "partner_category": f"rug {EVIL}", "rank": 1, "score": 0.5, "reason": f"Because {EVIL}"}]
+    bundle = {"room": f"Room {EVIL}", "budget": 1000, "currency": f"E{EVIL}", "exact": False,
+              "pool_sizes": {f"slot {EVIL}": 1},
+              "bundles": [{"score": 1.0, "total_price": 590.0,
+                           "items": [{"slot": f"seat {EVIL}", "id": f"s{EVIL}", "quantity": 1, "price": 500.0},
+                                     {"slot": f"floor {EVIL}", "id": f"r{EVIL}", "quantity": 1, "price": 90.0}],
+                           "pairs": [{"a": f"seat {EVIL}", "b": f"floor {EVIL}", "score": 0.5, "weight": 1.0}],
+                           "proportions": {f"key {EVIL}": f"value {EVIL}"}}]}
+    path = tmp_path / "b.json"
+    path.write_text(json.dumps(bundle))
+    failures = [(f"s{EVIL}", f"images/{EVIL}.jpg", f"reason {EVIL}")]
+    data = gather_report(products, palettes, {}, failures, feed, [read_bundles(path)], rules=rules,
+                         title=f"Shop {EVIL}", notes=(f"note {EVIL}",), floor_lrv=20.0)
+    assert data.suggestions[0].links, "the hostile rule linked colours"
+    assert data.cautions and data.floors
+    html = render_report(data)
+    parser = _Tags()
+    parser.feed(html)
+    assert "script" not in parser.tags and "img" not in parser.tags  # no thumbnails were given
+    assert not any(a.startswith("on") for a in parser.attrs)
+    assert "alert(2)" not in "".join(re.findall(r"<script[^>]*>(.*?)</script>", html, re.S))
+    text = "".join(parser.text)
+    for needle in (f"Sofa {EVIL}", f"Room {EVIL}", f"seat {EVIL}", f"Because {EVIL}", f"close{EVIL}",
+                   f"value {EVIL}", f"reason {EVIL}"):
+        assert needle in text, needle  # shown, as text
+    # Inside the SVG drawings (tooltips, labels) the markup is escaped as well.
+    for svg in re.findall(r"<svg.*?</svg>", html, re.S):
+        root = ET.fromstring(svg)  # well-formed XML: nothing broke out of an attribute
+        assert not [el for el in root.iter() if el.tag.split("}")[-1] in ("script", "img", "foreignObject")]
+
+
+def test_rug_against_a_given_floor(shop):
+    products, palettes, images, failures = shop
+    rug_lrv = surface_lrv(palettes["r1"])
+    feed = _feed_rows()
+    # A floor within 30 points of the rug: cautioned (BS 8300-2:2018 Annex B, 30 points).
+    data = gather_report(products, palettes, {}, failures, feed, rules=load_rules(), thumbnails=False,
+                         floor_lrv=rug_lrv + 10.0)
+    (floor,) = data.floors
+    assert floor.rug.id == "r1" and floor.required == 30.0
+    assert floor.caution is not None and floor.caution.difference == pytest.approx(10.0)
+    assert floor.band == pytest.approx((max(0.0, rug_lrv - 30.0), rug_lrv + 30.0))
+    html = render_report(data)
+    assert "and the floor (LRV about" in html and "Rug and floor" in html
+    # A floor 35 points away passes; with more than 200 lux, rug and floor (both large areas)
+    # need only 20 points (BS 8300-2:2018 Annex B), so 25 points pass too.
+    clear = gather_report(products, palettes, {}, failures, feed, thumbnails=False, floor_lrv=rug_lrv + 35.0)
+    assert clear.floors[0].caution is None
+    assert "clear of the floor" in render_report(clear)
+    dim = gather_report(products, palettes, {}, failures, feed, thumbnails=False, floor_lrv=rug_lrv + 25.0)
+    bright = gather_report(products, palettes, {}, failures, feed, thumbnails=False, floor_lrv=rug_lrv + 25.0,
+                           illuminance_lux=300.0)
+    assert dim.floors[0].caution is not None and bright.floors[0].caution is None
+    assert bright.floors[0].required == 20.0
+
+
+def test_without_a_floor_the_report_names_the_floor_lrvs_to_avoid(report):
+    data, html = report
+    (floor,) = data.floors
+    assert floor.caution is None and data.floor_lrv is None
+    lo, hi = floor.band
+    assert f"a floor with an LRV between {lo:.0f} and {hi:.0f} would sit within 30 points" in html
+    assert "--floor-lrv" in html
+    # The note speaks of the floor and the furniture on the rug, and defers to codes and a sample.
+    for words in ("floor it lies on", "furniture that stands on it", "BS 8300-2:2018 (Annex B)", "30 points",
+                  "20 points", "200 lux", "BS 8493", "local codes", "measured sample"):
+        assert words in html, words
+
+
+def test_floor_swatch_has_the_floor_lrv(shop):
+    # Gold: the sRGB transfer function of IEC 61966-2-1, via harmony.colour.lrv (CIE Y x 100).
+    products, palettes, _, _ = shop
+    for lrv in (0.0, 12.0, 45.0, 100.0):
+        data = gather_report(products, palettes, {}, thumbnails=False, floor_lrv=lrv)
+        got = colour.lrv(colour.hex_to_srgb1(data.floor_hex), space="srgb1")
+        assert got == pytest.approx(lrv, abs=0.5)  # 8-bit rounding
+
+
+@pytest.mark.parametrize("kw, message", [
+    ({"floor_lrv": 120.0}, r"floor LRV must be between 0 and 100, got 120\.0"),
+    ({"floor_lrv": float("nan")}, r"floor LRV must be between 0 and 100"),
+    ({"illuminance_lux": -5.0}, r"illuminance must be a non-negative number of lux, got -5\.0"),
+])
+def test_bad_floor_values_are_refused(shop, kw, message):
+    products, palettes, _, _ = shop
+    with pytest.raises(HarmonyError, match=message):
+        gather_report(products, palettes, {}, thumbnails=False, **kw)
+
+
+def test_cli_report_floor_lrv(store_path, tmp_path):
+    out = tmp_path / "r.html"
+    bad = _cli("report", "--db", store_path, "--floor-lrv", "101", "--out", out)
+    assert bad.exit_code == 2 and bad.output.strip().splitlines() == [
+        "error: floor LRV must be between 0 and 100, got 101.0"]
+    assert not out.exists()
+    good = _cli("report", "--db", store_path, "--floor-lrv", "40", "--lux", "300", "--out", out)
+    assert good.exit_code == 0, good.output
+    assert out.is_file()
+
+
+_BLOCK_OPTIONAL = """
+import importlib.abc, sys
+BLOCKED = {"colour", "dask", "distributed", "pyarrow", "hypothesis", "pytest"}
+class Block(importlib.abc.MetaPathFinder):
+    def find_spec(self, name, path=None, target=None):
+        if name.split(".")[0] in BLOCKED:
+            raise ImportError(f"{name} is blocked: not a runtime dependency")
+        return None
+sys.meta_path.insert(0, Block())
+for name in list(sys.modules):
+    if name.split(".")[0] in BLOCKED:
+        del sys.modules[name]
+from harmony.cli import main
+from harmony.demo import run_demo
+from harmony.paths import DEMO_DIR
+result = run_demo(sys.argv[1], workers=1, progress=False, catalogue=sys.argv[2],
+                  rooms=[DEMO_DIR / "living_room.toml"])
+print(result.report_path.is_file())
+"""
+
+
+def test_demo_needs_only_the_runtime_dependencies(small_shop, tmp_path):
+    # `pip install -e .` without the test extras has no colour-science, dask, pyarrow or
+    # hypothesis (pyproject.toml): the CLI (every command module) and the demo must not import them.
+    import subprocess
+    import sys
+
+    done = subprocess.run([sys.executable, "-c", _BLOCK_OPTIONAL, str(tmp_path / "d"), str(small_shop)],
+                          capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr[-3000:]
+    assert done.stdout.strip() == "True"

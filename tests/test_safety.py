@@ -113,3 +113,23 @@ def test_caution_note_defers_to_codes_and_measurement():
 def test_category_roles(category, covering, on_floor):
     assert is_floor_covering(category) is covering
     assert stands_on_floor(category) is on_floor
+
+
+def test_close_band_is_the_floor_lrvs_within_the_required_difference():
+    # BS 8300-2:2018 Annex B: a floor must differ from the rug by at least 30 LRV points.
+    from harmony.safety import close_band
+
+    assert close_band(45.0) == (15.0, 75.0)
+    assert close_band(10.0) == (0.0, 40.0)  # clipped to the 0-100 LRV scale (BS 8493)
+    assert close_band(90.0, required=20.0) == (70.0, 100.0)
+    with pytest.raises(ValueError, match="LRV must lie in"):
+        close_band(101.0)
+    with pytest.raises(ValueError, match="required difference must be positive"):
+        close_band(50.0, required=0.0)
+
+
+def test_message_never_rounds_a_shortfall_up_to_the_figure():
+    c = contrast_caution("rug", 60.0, "floor", 30.4, large_area=True)
+    assert c is not None and c.difference == pytest.approx(29.6)
+    assert "differ by 29.6 points" in c.message and "at least 30" in c.message
+    assert "differ by 12 points" in contrast_caution("rug", 40.0, "sofa", 28.0).message

@@ -16,8 +16,12 @@ __all__ = ["report"]
               help="A bundle result in JSON (from 'harmony bundle --json'); repeat for several rooms.")
 @click.option("--rules", "rules_path", metavar="FILE", help="Rules file the scores used (default: the bundled rules).")
 @click.option("--title", default=None, help="Heading of the report (default: from the catalogue's name).")
+@click.option("--floor-lrv", type=float, default=None, metavar="LRV",
+              help="LRV (0-100) of the floor the rugs will lie on, from a measured sample; each rug is checked against it.")
+@click.option("--lux", "illuminance_lux", type=float, default=None, metavar="LUX",
+              help="Illuminance on the floor; above 200 lux a rug and the floor need 20 LRV points, not 30.")
 @click.option("--out", "out_path", required=True, metavar="FILE.html", help="Where to write the report.")
-def report(db_path, feed_path, bundle_paths, rules_path, title, out_path):
+def report(db_path, feed_path, bundle_paths, rules_path, title, floor_lrv, illuminance_lux, out_path):
     """Write a static HTML report: product photos with palettes, pairs, room sets, flags, cautions."""
     from ..errors import StoreError
     from ..paths import DEFAULT_RULES
@@ -34,9 +38,10 @@ def report(db_path, feed_path, bundle_paths, rules_path, title, out_path):
         if title is None:
             where = store.catalogue_path
             title = f"harmony report: {Path(where).parent.name}" if where else "harmony report"
-        data = gather_from_store(store, feed_rows, bundles, rules, title=title)
+        data = gather_from_store(store, feed_rows, bundles, rules, title=title, floor_lrv=floor_lrv,
+                                 illuminance_lux=illuminance_lux)
     out = write_report(data, out_path)
     click.echo(
         f"wrote {out} ({len(data.products)} products, {len(data.suggestions)} pairs, "
-        f"{len(data.bundles)} sets, {len(data.flagged)} flagged, {len(data.cautions)} contrast cautions)"
+        f"{len(data.bundles)} sets, {len(data.flagged)} flagged, {len(data.cautions) + sum(f.caution is not None for f in data.floors)} contrast cautions)"
     )
