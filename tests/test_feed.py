@@ -215,3 +215,18 @@ def test_write_feed_formats_round_trip(shop, rules, tmp_path):
         write_feed(rows, tmp_path / "f.txt")
     with pytest.raises(HarmonyError, match="cannot write the feed"):
         write_feed(rows, tmp_path / "missing" / "f.jsonl")
+
+
+def test_screened_and_exactly_scored_feeds_agree(shop, rules, monkeypatch):
+    # Small category pairs are scored exactly; forcing the screen must give the same rows
+    # (the screen's re-rank is exact, and here the screened top-c holds the exact top-3).
+    import harmony.feed as feed_module
+
+    db, _ = shop
+    with Store(db) as store:
+        exact = build_feed(store, rules, top=3, warn=lambda m: None)
+        monkeypatch.setattr(feed_module, "EXACT_PAIRS", 0)
+        screened = build_feed(store, rules, top=3, warn=lambda m: None)
+    assert [(r.product, r.partner, r.rank) for r in screened] == [(r.product, r.partner, r.rank) for r in exact]
+    for s, e in zip(screened, exact):
+        assert s.score == pytest.approx(e.score, abs=1e-12) and s.reason == e.reason

@@ -365,3 +365,71 @@ def test_readme_worked_example():
     assert round(result.raw, 3) == 0.820 and round(result.score, 3) == 0.964
     assert dict(result.contributions) == pytest.approx({"complementary": 0.113, "anchor": 0.432, "rug_lighter": 0.275}, abs=5e-4)
     assert result.reason == "the rug's beige (60 %) anchors the sofa's teal (70 %): anchor"
+
+
+# ---- the broadcasting form of the kernel -------------------------------------------------------
+
+
+def _random_jab(rng, shape):
+    # Colours spread over lightness, colourfulness (neutral to vivid) and hue.
+    j = rng.uniform(5.0, 95.0, shape)
+    m = rng.choice([0.0, 3.0, 7.0, 15.0, 35.0], shape) + rng.uniform(0.0, 2.0, shape)
+    h = rng.uniform(0.0, 2.0 * np.pi, shape)
+    return np.stack([j, m * np.cos(h), m * np.sin(h)], axis=-1)
+
+
+@pytest.mark.parametrize("section", [("sofa", "rug"), ("rug", "sofa"), ("sofa", "cushion"), ("", "")])
+def test_pairwise_is_the_kernel_elementwise(default_rules, section):
+    pr = default_rules.default_rules() if section == ("", "") else default_rules.for_pair(*section)
+    rng = np.random.default_rng(40)
+    a, b = _random_jab(rng, (7,)), _random_jab(rng, (9,))
+    outer = pr.kernel(a, b)
+    np.testing.assert_allclose(pr.pairwise(a[:, None], b[None, :]), outer, rtol=0, atol=1e-13)
+    # The diagonal: pairs (a[i], b[i]) with no outer product.
+    np.testing.assert_allclose(pr.pairwise(a, b[:7]), np.diag(outer[:, :7]), rtol=0, atol=1e-13)
+    # Deeper broadcasting: (2, 1, 7) against (9, 1) gives (2, 9, 7), a still the first side.
+    stacked = np.stack([a, a[::-1]])[:, None, :, :]
+    got = pr.pairwise(stacked, b[:, None, :])
+    assert got.shape == (2, 9, 7)
+    np.testing.assert_allclose(got[0], outer.T, atol=1e-13)
+    np.testing.assert_allclose(got[1], outer[::-1].T, atol=1e-13)
+    # One colour against one colour gives a 0-d value.
+    assert np.shape(pr.pairwise(a[0], b[0])) == () and float(pr.pairwise(a[0], b[0])) == pytest.approx(outer[0, 0], abs=1e-13)
+    # The per-rule terms still sum to the kernel.
+    np.testing.assert_allclose(sum(t for _, t in pr.kernel_terms(a, b)), outer, atol=1e-12)
+
+
+def test_pairwise_ou_luo_rule_broadcasts(default_rules):
+    from harmony.ou_luo import jab_to_lab, two_colour_harmony
+
+    pr = _only(default_rules, "ou_luo")
+    rng = np.random.default_rng(41)
+    a, b = _random_jab(rng, (4,)), _random_jab(rng, (5,))
+    want = pr.terms[0][1] * two_colour_harmony(jab_to_lab(a)[:, None], jab_to_lab(b)[None, :])
+    np.testing.assert_allclose(pr.kernel(a, b), want, atol=1e-12)
+    np.testing.assert_allclose(pr.pairwise(a[:, None, :], b[None, :, :]), want, atol=1e-12)
+
+
+def test_hue_bumps_are_von_mises_densities(default_rules):
+    # Gold: scipy.stats.vonmises, pdf(x, kappa) = exp(kappa cos x) / (2 pi I0(kappa)), so
+    # exp(kappa (cos x - 1)) = 2 pi i0e(kappa) pdf(x, kappa) with i0e(k) = I0(k) exp(-k).
+    from scipy.special import i0e
+    from scipy.stats import vonmises
+
+    rule = default_rules.rules["split_complementary"]
+    kappa = 1.0 / np.radians(rule.spread) ** 2
+    d = np.linspace(0.0, 180.0, 37)
+    pr = _only(default_rules, "split_complementary")
+    vivid = np.array([60.0, 40.0, 0.0])
+    rot = np.radians(d)
+    others = np.stack([np.full_like(d, 60.0), 40.0 * np.cos(rot), 40.0 * np.sin(rot)], axis=-1)
+    want = 2.0 * np.pi * i0e(kappa) * vonmises.pdf(np.radians(d - rule.centres[0]), kappa)
+    np.testing.assert_allclose(pr.pairwise(vivid, others) / pr.terms[0][1], want, rtol=1e-9, atol=1e-12)
+
+
+def test_pairwise_shape_errors(default_rules):
+    pr = default_rules.default_rules()
+    with pytest.raises(ValueError, match=r"jab_b must have a trailing axis of 3, got shape \(4, 2\)"):
+        pr.pairwise(np.zeros((4, 3)), np.zeros((4, 2)))
+    with pytest.raises(ValueError, match=r"jab_a and jab_b must broadcast, got shapes \(4, 3\) and \(5, 3\)"):
+        pr.pairwise(np.zeros((4, 3)), np.zeros((5, 3)))

@@ -148,3 +148,18 @@ def test_neutral_names_by_lightness():
     names = [colour_name([j, 0.5, 0.3]) for j in (10, 30, 50, 70, 90, 98)]
     assert names == ["black", "charcoal", "grey", "stone", "off-white", "white"]
     assert colour_name([97.0, 1.5, 4.0]) == "cream"
+
+
+def test_cached_colour_labels_give_the_same_score(rules):
+    from harmony.colour import jab_to_hex
+    from harmony.score import colour_labels
+
+    rng = np.random.default_rng(50)
+    a, b = _random_palette(rng, 6), _random_palette(rng, 4)
+    pr = rules.for_pair("sofa", "cushion")
+    la, lb = colour_labels(a.jab, pr.neutral_threshold), colour_labels(b.jab, pr.neutral_threshold)
+    # The hex codes are harmony.colour.jab_to_hex, colour by colour.
+    assert la.hex == tuple(jab_to_hex(a.jab[i : i + 1])[0] for i in range(6))
+    assert pair_score(a, b, pr, labels_a=la, labels_b=lb) == pair_score(a, b, pr)
+    with pytest.raises(ValueError, match="labels_b must label the palette's 4 colours with threshold 7, got 6 colours"):
+        pair_score(a, b, pr, labels_a=la, labels_b=la)

@@ -175,3 +175,95 @@ def test_bad_arguments_raise_clear_errors():
         sc.BinGrid(interpolation="spline")
     with pytest.raises(TypeError, match="not a Palette"):
         sc.PaletteStack.from_palettes([np.zeros((2, 3))])
+
+
+# ---- batched exact re-rank, kernel forms, factorisation ----------------------------------------
+
+
+class MoonSpencerPairwise:
+    """moon_spencer_kernel in broadcasting form (the same published relations, elementwise)."""
+
+    def pairwise(self, jab_a, jab_b):
+        ja, jb = np.asarray(jab_a, float), np.asarray(jab_b, float)
+        d = np.abs((np.degrees(np.arctan2(ja[..., 2], ja[..., 1]) - np.arctan2(jb[..., 2], jb[..., 1])) + 180.0) % 360.0 - 180.0)
+
+        def bump(centre, spread):
+            return np.exp(-0.5 * ((d - centre) / spread) ** 2)
+
+        hue = bump(0.0, 10.0) + bump(34.0, 10.0) + bump(140.0, 25.0) - 0.8 * bump(72.0, 14.0)
+        na, nb = neutrality(ja), neutrality(jb)
+        return (1 - na) * (1 - nb) * hue + 0.5 * (na + nb - na * nb)
+
+
+def test_pairwise_form_of_the_independent_kernel_matches_its_outer_form():
+    rng = np.random.default_rng(30)
+    a, b = synthetic_stack(2, rng), synthetic_stack(3, rng)
+    ja, jb = a.jab.reshape(-1, 3), b.jab.reshape(-1, 3)
+    np.testing.assert_allclose(sc.outer_form(MoonSpencerPairwise())(ja, jb), moon_spencer_kernel(ja, jb), atol=1e-12)
+
+
+@pytest.mark.parametrize("form", ["rules", "bound_kernel", "independent"])
+@pytest.mark.parametrize("chunk", [1, 700, sc.RERANK_CHUNK])
+def test_batched_rerank_equals_the_per_product_rerank(form, chunk, sofa_rug):
+    batched, looped = {
+        "rules": (sofa_rug, lambda x, y: sofa_rug.kernel(x, y)),
+        "bound_kernel": (sofa_rug.kernel, lambda x, y: sofa_rug.kernel(x, y)),
+        "independent": (MoonSpencerPairwise(), moon_spencer_kernel),
+    }[form]
+    assert sc.pairwise_form(batched) is not None and sc.pairwise_form(looped) is None
+    rng = np.random.default_rng(31)
+    a, b = synthetic_stack(23, rng, k=7), synthetic_stack(40, rng, k=9)
+    cand = np.stack([rng.choice(40, size=6, replace=False) for _ in range(23)])
+    want = sc.exact_raw_candidates(a, b, cand, looped)
+    for workers in (1, 2):
+        got = sc.exact_raw_candidates(a, b, cand, batched, workers=workers, chunk=chunk)
+        np.testing.assert_allclose(got, want, rtol=0, atol=1e-12)
+    # The independent kernel's per-product re-rank is its bilinear sum, product by product.
+    if form == "independent":
+        i, t = 5, 2
+        k = moon_spencer_kernel(a.jab[i], b.jab[cand[i, t]])
+        assert want[i, t] == pytest.approx(a.weights[i] @ k @ b.weights[cand[i, t]], abs=1e-12)
+
+
+@pytest.mark.parametrize("kernel", ["rules", "independent"])
+def test_screen_with_a_broadcasting_kernel_equals_exact_top10(kernel, sofa_rug):
+    kern = sofa_rug if kernel == "rules" else MoonSpencerPairwise()
+    outer = sofa_rug.kernel if kernel == "rules" else moon_spencer_kernel
+    rng = np.random.default_rng(32)
+    a, b = synthetic_stack(40, rng), synthetic_stack(120, rng)
+    exact = sc.exact_top_k(a, b, outer, k=10)
+    screened = sc.screen_top_k(a, b, kern, k=10)
+    assert screened.candidates == 15 and screened.rank > 0
+    np.testing.assert_array_equal(screened.indices, exact.indices)
+    np.testing.assert_allclose(screened.raw, exact.raw, rtol=0, atol=1e-12)
+    # Below exact_below every pair is scored exactly: the same answer without the screen.
+    small = sc.screen_top_k(a, b, kern, k=10, exact_below=40 * 120)
+    assert small.candidates == 120 and small.rank == 0
+    np.testing.assert_array_equal(small.indices, exact.indices)
+    np.testing.assert_allclose(small.raw, exact.raw, rtol=0, atol=1e-12)
+
+
+def test_not_a_kernel_is_a_type_error():
+    rng = np.random.default_rng(33)
+    a, b = synthetic_stack(3, rng), synthetic_stack(4, rng)
+    with pytest.raises(TypeError, match="a kernel must be callable or have a pairwise method, got int"):
+        sc.screen_top_k(a, b, 3, k=1)
+
+
+@pytest.mark.parametrize("shape, rank", [((240, 200), 30), ((260, 200), 150), ((90, 120), 30)])
+def test_low_rank_matches_numpy_svd(shape, rank):
+    # Gold: numpy.linalg.svd (LAPACK gesdd) of the same matrix. A matrix of known rank plus a
+    # tail of small singular values below the tolerance.
+    rng = np.random.default_rng(34)
+    n, m = shape
+    u, _ = np.linalg.qr(rng.normal(size=(n, rank + 10)))
+    v, _ = np.linalg.qr(rng.normal(size=(m, rank + 10)))
+    s = np.concatenate([np.geomspace(100.0, 1.0, rank), np.full(10, 1e-7)])
+    k = (u * s) @ v.T
+    left, right, got_rank, residual = sc.low_rank(k, rank_tol=1e-6)
+    sv = np.linalg.svd(k, compute_uv=False)
+    assert got_rank == int(np.count_nonzero(sv > 1e-6 * sv[0])) == rank
+    np.testing.assert_allclose(np.linalg.svd(left @ right.T, compute_uv=False)[:rank], sv[:rank], rtol=1e-9)
+    err = np.linalg.norm(k - left @ right.T, 2)
+    assert err <= residual * (1 + 1e-9) + 1e-15
+    assert residual <= np.sqrt(10) * 1e-7 * (1 + 1e-6)
