@@ -23,7 +23,7 @@ __all__ = ["DEFAULT_OUT", "DemoResult", "run_demo", "demo_catalogue"]
 DEFAULT_OUT = Path("harmony-demo")
 
 #: Suggested partners per product and target category in the demo feed.
-FEED_TOP = 3
+FEED_TOP = 5
 #: Maximal-marginal-relevance weight of the demo feed, so near-identical partners are spread out.
 FEED_DIVERSITY = 0.3
 #: Sets kept per room template.
