@@ -24,6 +24,21 @@ def fail(message, code=2):
 
 
 class _Group(click.Group):
+    def main(self, args=None, prog_name=None, complete_var=None, standalone_mode=True, **extra):
+        """As click's, but a usage error (bad option, missing argument) is one ``error:`` line too."""
+        if not standalone_mode:
+            return super().main(args, prog_name, complete_var, standalone_mode, **extra)
+        try:
+            code = super().main(args, prog_name, complete_var, standalone_mode=False, **extra)
+        except click.UsageError as exc:
+            where = f" (see '{exc.ctx.command_path} --help')" if exc.ctx is not None else ""
+            fail(f"{exc.format_message()}{where}", code=exc.exit_code)
+        except click.ClickException as exc:
+            fail(exc.format_message(), code=exc.exit_code)
+        except click.Abort:
+            fail("aborted", code=1)
+        sys.exit(code if isinstance(code, int) else 0)
+
     def invoke(self, ctx):
         try:
             return super().invoke(ctx)
