@@ -349,7 +349,7 @@ def _run_local(chunks, settings, extractor, workers):
 
 def _run_dask(chunks, settings, extractor, workers, scheduler):
     try:
-        from distributed import Client, LocalCluster
+        from distributed import Client, KilledWorker, LocalCluster
         from distributed import as_completed as dask_completed
     except ImportError:
         raise HarmonyError("the dask engine needs dask.distributed: pip install 'harmony[dask]'") from None
@@ -367,8 +367,13 @@ def _run_dask(chunks, settings, extractor, workers, scheduler):
             client = Client(cluster)
         try:
             futures = client.map(extract_chunk, chunks, settings=settings, extractor=extractor, pure=False)
-            for future in dask_completed(futures):
-                yield future.result()
+            try:
+                for future in dask_completed(futures):
+                    yield future.result()
+            except KilledWorker:
+                raise HarmonyError(
+                    "Dask workers died on a chunk (out of memory?); finished chunks are stored, run again to continue"
+                ) from None
         finally:
             client.close()
     finally:
