@@ -25,7 +25,7 @@ import numpy as np
 from .catalogue import normalise_category
 from .errors import HarmonyError, StoreError
 from .palette import Palette
-from .score import PairScore, colour_labels, pair_score, to_unit
+from .score import PairScore, colour_labels, pair_score, pair_scores, to_unit
 from .screen import BinGrid, PaletteStack, exact_raw, screen_top_k
 
 __all__ = [
@@ -266,6 +266,7 @@ def build_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, 
             grid = BinGrid(neutral_threshold=pr.neutral_threshold, neutral_fade=pr.neutral_fade)
             res = screen_top_k(pals_a, pals_b, pr, k=pool_size, grid=grid, exact_below=EXACT_PAIRS)
             t = pr.neutral_threshold
+            emitted = []  # (i, j, rank): explained below, all rows of this pair in one batch
             for i, pid in enumerate(ids_a):
                 cand = res.indices[i]
                 if diversity > 0 and len(cand) > 1:
@@ -273,10 +274,14 @@ def build_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, 
                     chosen = [int(cand[c]) for c in mmr_select(to_unit(res.raw[i], pr), sim, top, diversity)]
                 else:
                     chosen = [int(j) for j in cand[:top]]
-                for rank, j in enumerate(chosen, start=1):
-                    ps = pair_score(pals_a[i], pals_b[j], pr,
-                                    labels_a=labels_of(pid, t), labels_b=labels_of(ids_b[j], t))
-                    rows.append(FeedRow(pid, cat_a, ids_b[j], cat_b, rank, float(ps.score), ps.reason))
+                emitted.extend((i, j, rank) for rank, j in enumerate(chosen, start=1))
+            scored = pair_scores(
+                [pals_a[i] for i, _, _ in emitted], [pals_b[j] for _, j, _ in emitted], pr,
+                labels_a=[labels_of(ids_a[i], t) for i, _, _ in emitted],
+                labels_b=[labels_of(ids_b[j], t) for _, j, _ in emitted],
+            )
+            for (i, j, rank), ps in zip(emitted, scored):
+                rows.append(FeedRow(ids_a[i], cat_a, ids_b[j], cat_b, rank, float(ps.score), ps.reason))
     rows.sort(key=lambda r: (r.product, r.partner_category, r.rank))
     return rows
 

@@ -459,13 +459,31 @@ class PairRules:
         b = _as_colours(jab_b, "jab_b")
         return self.pairwise(a[:, None, :], b[None, :, :])
 
+    def pairwise_terms(self, jab_a, jab_b):
+        """Each rule's weighted term, broadcast like :meth:`pairwise`: tuple of (rule name, ndarray).
+
+        The arrays have the broadcast leading shape and sum to :meth:`pairwise`.
+        """
+        jab_a = _as_broadcast_colours(jab_a, "jab_a")
+        jab_b = _as_broadcast_colours(jab_b, "jab_b")
+        try:
+            shape = np.broadcast_shapes(jab_a.shape[:-1], jab_b.shape[:-1])
+        except ValueError:
+            raise ValueError(
+                f"jab_a and jab_b must broadcast, got shapes {jab_a.shape} and {jab_b.shape}"
+            ) from None
+        g = self._geometry(jab_a, jab_b)
+        out = []
+        for rule, w in self.terms:
+            term = np.asarray(w * rule.term(g))
+            out.append((rule.name, term if term.shape == shape else np.broadcast_to(term, shape)))
+        return tuple(out)
+
     def kernel_terms(self, jab_a, jab_b):
         """Each rule's weighted kernel: tuple of (rule name, ndarray (n, m)); they sum to :meth:`kernel`."""
         a = _as_colours(jab_a, "jab_a")
         b = _as_colours(jab_b, "jab_b")
-        g = self._geometry(a[:, None, :], b[None, :, :])
-        shape = (a.shape[0], b.shape[0])
-        return tuple((rule.name, np.broadcast_to(w * rule.term(g), shape)) for rule, w in self.terms)
+        return self.pairwise_terms(a[:, None, :], b[None, :, :])
 
     def rule(self, name):
         for rule, _ in self.terms:

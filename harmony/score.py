@@ -24,6 +24,8 @@ __all__ = [
     "colour_name",
     "ColourLabels",
     "colour_labels",
+    "pair_scores",
+    "SCORE_BATCH",
 ]
 
 
@@ -313,6 +315,63 @@ def pair_score(pal_a, pal_b, pair_rules, top=5, *, labels_a=None, labels_b=None)
     outer = np.multiply.outer(w_a, w_b)
     names = [name for name, _ in terms]
     stack = np.stack([k for _, k in terms]) * outer if terms else np.zeros((0,) + outer.shape)
+    return _explained(stack, names, w_a, w_b, jab_a, jab_b, pair_rules, top, labels_a, labels_b)
+
+
+#: Palette pairs per kernel call of :func:`pair_scores` (bounds its memory).
+SCORE_BATCH = 512
+
+
+def pair_scores(pals_a, pals_b, pair_rules, top=5, *, labels_a=None, labels_b=None):
+    """:func:`pair_score` of each pair ``(pals_a[i], pals_b[i])``, with one kernel call per batch.
+
+    Parameters
+    ----------
+    pals_a, pals_b : sequence of Palette
+        Of equal length; ``pals_a[i]`` belongs to the first category of ``pair_rules``.
+    pair_rules : harmony.rules.PairRules
+    top : int
+    labels_a, labels_b : sequence of ColourLabels, optional
+        One per palette (see :func:`pair_score`).
+
+    Returns
+    -------
+    list of PairScore
+        Equal to ``[pair_score(a, b, pair_rules, top) for a, b in zip(pals_a, pals_b)]``; the
+        rules' terms of :data:`SCORE_BATCH` pairs are evaluated in one broadcast call of
+        :meth:`harmony.rules.PairRules.pairwise_terms` on zero-weight-padded palettes, then cut
+        back to each palette's own colours.
+    """
+    from .screen import PaletteStack
+
+    pals_a, pals_b = list(pals_a), list(pals_b)
+    if len(pals_a) != len(pals_b):
+        raise ValueError(f"pals_a and pals_b must have the same length, got {len(pals_a)} and {len(pals_b)}")
+    out = []
+    for p0 in range(0, len(pals_a), SCORE_BATCH):
+        part_a, part_b = pals_a[p0 : p0 + SCORE_BATCH], pals_b[p0 : p0 + SCORE_BATCH]
+        sa, sb = PaletteStack.from_palettes(part_a), PaletteStack.from_palettes(part_b)
+        terms = pair_rules.pairwise_terms(sa.jab[:, :, None, :], sb.jab[:, None, :, :])
+        names = [name for name, _ in terms]
+        for q, (pa, pb) in enumerate(zip(part_a, part_b)):
+            n, m = len(pa.weights), len(pb.weights)
+            jab_a = np.asarray(pa.jab, dtype=float)
+            jab_b = np.asarray(pb.jab, dtype=float)
+            w_a = np.asarray(pa.weights, dtype=float)
+            w_b = np.asarray(pb.weights, dtype=float)
+            outer = np.multiply.outer(w_a, w_b)
+            if terms:
+                stack = np.stack([t[q, :n, :m] for _, t in terms]) * outer
+            else:
+                stack = np.zeros((0,) + outer.shape)
+            la = None if labels_a is None else labels_a[p0 + q]
+            lb = None if labels_b is None else labels_b[p0 + q]
+            out.append(_explained(stack, names, w_a, w_b, jab_a, jab_b, pair_rules, top, la, lb))
+    return out
+
+
+def _explained(stack, names, w_a, w_b, jab_a, jab_b, pair_rules, top, labels_a, labels_b):
+    """The PairScore of a pair from its weighted per-rule contributions ``stack`` (rules, n, m)."""
     per_rule = stack.reshape(len(names), -1).sum(axis=1)
     raw = float(per_rule.sum())
     contributions = tuple((name, float(v)) for name, v in zip(names, per_rule))
@@ -321,7 +380,14 @@ def pair_score(pal_a, pal_b, pair_rules, top=5, *, labels_a=None, labels_b=None)
     if stack.size and top > 0:
         flat = np.abs(stack).ravel()
         count = min(top, int(np.count_nonzero(flat)))
-        order = np.argsort(-flat, kind="stable")[:count]
+        # The `count` largest, ties to the lower flat index: a stable sort's order, without
+        # sorting all n x m x rules entries.
+        if 0 < count < flat.size:
+            kth = np.partition(flat, flat.size - count)[flat.size - count]
+            cand = np.flatnonzero(flat >= kth)
+        else:
+            cand = np.arange(flat.size if count else 0)
+        order = cand[np.lexsort((cand, -flat[cand]))][:count]
         r_idx, i_idx, j_idx = np.unravel_index(order, stack.shape)
         t = pair_rules.neutral_threshold
         hex_a, word_a = _labels_of(labels_a, jab_a, sorted(set(i_idx.tolist())), t, "labels_a")

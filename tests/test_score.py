@@ -163,3 +163,29 @@ def test_cached_colour_labels_give_the_same_score(rules):
     assert pair_score(a, b, pr, labels_a=la, labels_b=lb) == pair_score(a, b, pr)
     with pytest.raises(ValueError, match="labels_b must label the palette's 4 colours with threshold 7, got 6 colours"):
         pair_score(a, b, pr, labels_a=la, labels_b=la)
+
+
+def test_batched_pair_scores_equal_pair_score(rules):
+    from harmony.score import pair_scores
+
+    rng = np.random.default_rng(51)
+    pals_a = [_random_palette(rng, k) for k in (3, 7, 5, 1)]
+    pals_b = [_random_palette(rng, k) for k in (6, 2, 5, 4)]
+    # A tie: the same two colours twice in one palette, so ranked colour pairs tie exactly.
+    twin = Palette(np.repeat(pals_a[0].jab[:1], 2, axis=0), np.array([0.5, 0.5]))
+    pals_a.append(twin)
+    pals_b.append(pals_b[0])
+    for section in (("sofa", "rug"), ("rug", "sofa"), ("sofa", "cushion")):
+        pr = rules.for_pair(*section)
+        got = pair_scores(pals_a, pals_b, pr, top=4)
+        want = [pair_score(a, b, pr, top=4) for a, b in zip(pals_a, pals_b)]
+        for g, w in zip(got, want):
+            assert g.pairs == w.pairs and g.reason == w.reason and dict(g.contributions) == pytest.approx(dict(w.contributions), abs=1e-12)
+            assert g.raw == pytest.approx(w.raw, abs=1e-12) and g.score == pytest.approx(w.score, abs=1e-12)
+    # Ties go to the lower flat index (rule, colour a, colour b), as a stable sort orders them.
+    tied = want[-1].pairs
+    for p, q in zip(tied, tied[1:]):
+        if abs(p.value) == abs(q.value):
+            assert (p.index_a, p.index_b) < (q.index_a, q.index_b) or p.rule != q.rule
+    with pytest.raises(ValueError, match="pals_a and pals_b must have the same length, got 5 and 4"):
+        pair_scores(pals_a, pals_b[:4], rules.for_pair("sofa", "rug"))
