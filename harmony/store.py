@@ -110,6 +110,10 @@ def _unblob(data, shape):
     return np.frombuffer(data, dtype="<f8").reshape(shape)
 
 
+#: The first bytes of every SQLite 3 database file (SQLite file format documentation, section 1.3).
+_SQLITE_HEADER = b"SQLite format 3\x00"
+
+
 class Store:
     """A palette store in one SQLite file.
 
@@ -141,6 +145,12 @@ class Store:
             )
         if exists and self.path.is_dir():
             raise StoreError(f"{self.path}: is a folder, not a palette store")
+        if exists and self.path.stat().st_size > 0:
+            # Never let SQLite turn some other file into a store (it would, for a short one).
+            with open(self.path, "rb") as handle:
+                if handle.read(len(_SQLITE_HEADER)) != _SQLITE_HEADER:
+                    raise StoreError(f"{self.path}: not a palette store (not an SQLite file); left untouched")
+        self._may_create = bool(create)
         try:
             self._db = sqlite3.connect(self.path, timeout=60.0, isolation_level=None)
         except sqlite3.Error as exc:
@@ -164,6 +174,8 @@ class Store:
         db.execute("PRAGMA foreign_keys = ON")
         tables = {r[0] for r in db.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
         if not tables:
+            if not self._may_create:
+                raise StoreError(f"{self.path}: an empty file, not a palette store; left untouched")
             # WAL: readers never block the writer; a killed writer loses only its open transaction.
             db.execute("PRAGMA journal_mode = WAL")
             with self._transaction():

@@ -236,3 +236,24 @@ def test_cli_palettes_errors(tmp_path):
     assert "Traceback" not in bad.output
     wrong = runner.invoke(main, ["palettes", "--db", str(tmp_path / "x.db"), "--format", "xml"])
     assert wrong.exit_code == 2 and "Invalid value for '--format'" in wrong.stderr
+
+
+@pytest.mark.parametrize("content", [b"x", b"id,category\n", b"SQLite format 2\x00" + b"\x00" * 100])
+def test_a_foreign_file_is_never_turned_into_a_store(tmp_path, content):
+    # SQLite would happily write its schema over a short non-database file; the store refuses.
+    path = tmp_path / "notes.db"
+    path.write_bytes(content)
+    for create in (False, True):
+        with pytest.raises(StoreError, match="not a palette store .not an SQLite file.; left untouched"):
+            Store(path, create=create)
+    assert path.read_bytes() == content
+
+
+def test_an_empty_file_is_only_made_a_store_when_asked(tmp_path):
+    path = tmp_path / "new.db"
+    path.write_bytes(b"")
+    with pytest.raises(StoreError, match="an empty file, not a palette store"):
+        Store(path)
+    assert path.read_bytes() == b""
+    with Store(path, create=True) as store:
+        assert store.products() == []
