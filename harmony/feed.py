@@ -15,7 +15,10 @@ A. Gretton, K. M. Borgwardt, M. J. Rasch, B. Schoelkopf, A. Smola (2012). A kern
 
 import csv
 import difflib
+import io
 import json
+import os
+import tempfile
 import warnings
 from dataclasses import asdict, dataclass
 from pathlib import Path
@@ -24,6 +27,7 @@ import numpy as np
 
 from .catalogue import normalise_category
 from .errors import HarmonyError, StoreError
+from .fileio import write_text_whole
 from .palette import Palette
 from .score import PairScore, colour_labels, pair_score, pair_scores, to_unit
 from .screen import BinGrid, PaletteStack, exact_raw, screen_top_k
@@ -151,8 +155,10 @@ def mmr_select(relevance, similarity, n, diversity):
     chosen = []
     left = np.ones(m, dtype=bool)
     redundancy = np.zeros(m)
-    for _ in range(min(int(n), m)):
-        value = np.where(left, lam * rel - (1.0 - lam) * redundancy, -np.inf)
+    for step in range(min(int(n), m)):
+        # The first pick is the most relevant item, also at diversity 1 (where the rule alone
+        # would score every item 0 before anything is chosen).
+        value = rel if step == 0 else np.where(left, lam * rel - (1.0 - lam) * redundancy, -np.inf)
         i = int(np.argmax(value))
         chosen.append(i)
         left[i] = False
@@ -362,43 +368,70 @@ def _format_of(path, fmt):
     return FEED_FORMATS[suffix]
 
 
+def _parquet_table(records):
+    try:
+        import pyarrow as pa
+    except ImportError:
+        raise HarmonyError("Parquet output needs pyarrow: pip install 'harmony[parquet]'") from None
+    schema = pa.schema(
+        [
+            ("product", pa.string()),
+            ("category", pa.string()),
+            ("partner", pa.string()),
+            ("partner_category", pa.string()),
+            ("rank", pa.int32()),
+            ("score", pa.float64()),
+            ("reason", pa.string()),
+        ]
+    )
+    return pa.table({c: [rec[c] for rec in records] for c in FEED_COLUMNS}, schema=schema)
+
+
+def _write_parquet_whole(table, path):
+    """Write a pyarrow table to ``path`` through a temporary file in the same folder and a rename."""
+    import pyarrow.parquet as pq
+
+    folder = path.parent if str(path.parent) else Path(".")
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=folder)
+        os.close(fd)
+    except OSError as exc:
+        raise HarmonyError(f"{path}: cannot write the feed: {exc.strerror or exc}") from None
+    try:
+        pq.write_table(table, tmp)
+        os.replace(tmp, path)
+    except BaseException as exc:
+        Path(tmp).unlink(missing_ok=True)
+        if isinstance(exc, OSError):
+            raise HarmonyError(f"{path}: cannot write the feed: {exc.strerror or exc}") from None
+        raise
+
+
 def write_feed(rows, path, fmt=None):
     """Write feed rows as JSON lines, CSV or Parquet (format from ``fmt`` or the file suffix).
 
-    Parquet needs pyarrow (the ``parquet`` extra). Returns the path written.
+    The file is written whole: through a temporary file in the same folder and a rename, so a
+    reader never sees half a feed and a failed write leaves an older feed as it was. Missing
+    parent folders are created. Parquet needs pyarrow (the ``parquet`` extra). Returns the path.
+
+    Raises
+    ------
+    HarmonyError
+        Unknown format, pyarrow missing for Parquet, or a file or folder that cannot be written.
     """
     path = Path(path)
     fmt = _format_of(path, fmt)
     records = [r.to_dict() for r in rows]
-    try:
-        if fmt == "jsonl":
-            with open(path, "w", encoding="utf-8") as fh:
-                for rec in records:
-                    fh.write(json.dumps(rec, ensure_ascii=False) + "\n")
-        elif fmt == "csv":
-            with open(path, "w", encoding="utf-8", newline="") as fh:
-                writer = csv.DictWriter(fh, fieldnames=FEED_COLUMNS)
-                writer.writeheader()
-                writer.writerows(records)
-        else:
-            try:
-                import pyarrow as pa
-                import pyarrow.parquet as pq
-            except ImportError:
-                raise HarmonyError("Parquet output needs pyarrow: pip install 'harmony[parquet]'") from None
-            schema = pa.schema(
-                [
-                    ("product", pa.string()),
-                    ("category", pa.string()),
-                    ("partner", pa.string()),
-                    ("partner_category", pa.string()),
-                    ("rank", pa.int32()),
-                    ("score", pa.float64()),
-                    ("reason", pa.string()),
-                ]
-            )
-            table = pa.table({c: [rec[c] for rec in records] for c in FEED_COLUMNS}, schema=schema)
-            pq.write_table(table, path)
-    except OSError as exc:
-        raise HarmonyError(f"{path}: cannot write the feed: {exc.strerror or exc}") from None
+    if fmt == "jsonl":
+        text = "".join(json.dumps(rec, ensure_ascii=False) + "\n" for rec in records)
+        write_text_whole(path, text, "feed")
+    elif fmt == "csv":
+        buf = io.StringIO()
+        writer = csv.DictWriter(buf, fieldnames=FEED_COLUMNS)
+        writer.writeheader()
+        writer.writerows(records)
+        write_text_whole(path, buf.getvalue(), "feed")
+    else:
+        _write_parquet_whole(_parquet_table(records), path)
     return path

@@ -83,3 +83,78 @@ def test_suggest_errors(db):
     assert res.exit_code == 2 and "unknown product id 'S7'" in res.output
     res = run("suggest", "S0", "--db", db, "--category", "lamps")
     assert res.exit_code == 2 and "unknown category 'lamps'" in res.output
+
+
+def one_error_line(res):
+    lines = [line for line in res.output.splitlines() if line.strip()]
+    assert len(lines) == 1 and lines[0].startswith("error: "), res.output
+    assert "Traceback" not in res.output
+    return lines[0]
+
+
+@pytest.mark.parametrize(
+    "args, says",
+    [
+        (["--top", 0], "Invalid value for '--top': 0 is not in the range"),
+        (["--diversity", 1.5], "Invalid value for '--diversity': 1.5 is not in the range"),
+        (["--diversity", -0.1], "Invalid value for '--diversity': -0.1 is not in the range"),
+        (["--format", "xml"], "Invalid value for '--format': 'xml' is not one of"),
+        (["--targets", "rugz"], "unknown category 'rugz' (did you mean 'rug'?)"),
+    ],
+)
+def test_feed_bad_options_are_one_error_line_and_keep_the_older_feed(db, tmp_path, args, says):
+    out = tmp_path / "feed.jsonl"
+    out.write_text("the older feed\n")
+    res = run("feed", "--db", db, *args, "--out", out)
+    assert res.exit_code == 2
+    assert says in one_error_line(res)
+    assert out.read_text() == "the older feed\n"
+
+
+def test_feed_out_in_an_unwritable_folder_and_an_empty_store(db, tmp_path):
+    (tmp_path / "plain").write_text("a file where a folder should be")
+    res = run("feed", "--db", db, "--out", tmp_path / "plain" / "feed.jsonl")
+    assert res.exit_code == 2
+    assert "plain/feed.jsonl: cannot write the feed" in one_error_line(res)
+    res = run("feed", "--db", db, "--out", tmp_path / "new" / "feed.csv")
+    assert res.exit_code == 0 and (tmp_path / "new" / "feed.csv").exists()
+    from harmony.store import Store
+
+    Store.create(tmp_path / "empty.db").close()
+    res = run("feed", "--db", tmp_path / "empty.db", "--out", tmp_path / "f.jsonl")
+    assert res.exit_code == 2
+    assert "empty.db: the store holds no products" in one_error_line(res)
+    assert not (tmp_path / "f.jsonl").exists()
+
+
+def test_suggest_draws_weighted_colour_blocks_in_a_terminal_only(db, monkeypatch):
+    import harmony.cli.feed_cmd as feed_cmd
+
+    plain = run("suggest", "S0", "--db", db, "-n", 2)
+    assert plain.exit_code == 0 and "\x1b[" not in plain.output  # not a terminal: hex codes
+    monkeypatch.setattr(feed_cmd, "terminal_has_colour", lambda stream: True)
+    # color=True: click's runner would otherwise strip escape codes as for a pipe.
+    res = CliRunner().invoke(main, ["suggest", "S0", "--db", str(db), "-n", "2"], color=True)
+    assert res.exit_code == 0, res.output
+    lines = res.output.splitlines()
+    assert len(lines) == 5  # the product, then a score line and a reason line per partner
+    for line in (lines[0], lines[1], lines[3]):
+        # 24-bit background colour blocks (SGR 48;2;r;g;b, ISO/IEC 8613-6), one strip per palette
+        # of STRIP_CELLS cells shared out by weight.
+        assert "\x1b[48;2;" in line and line.endswith("\x1b[0m")
+        cells = sum(len(part.split("m", 1)[1].split("\x1b")[0]) for part in line.split("\x1b[48;2;")[1:])
+        assert cells == feed_cmd.STRIP_CELLS
+    # Score columns line up whatever the partner name's length.
+    assert lines[1].index("score") == lines[3].index("score")
+
+
+def test_suggest_bad_input_is_one_error_line(db, tmp_path):
+    for args, says in [
+        (["S7", "--db", db], "unknown product id 'S7'"),
+        (["S0", "--db", db, "--category", "sofa"], "'sofa' is the category of 'S0' itself"),
+        (["S0", "--db", db, "-n", 0], "Invalid value for '-n'"),
+        (["S0", "--db", tmp_path / "none.db"], "no palette store here"),
+    ]:
+        res = run("suggest", *args)
+        assert res.exit_code == 2
+        assert says in one_error_line(res)

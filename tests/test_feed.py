@@ -213,8 +213,9 @@ def test_write_feed_formats_round_trip(shop, rules, tmp_path):
     assert pq.read_table(tmp_path / "f.out").to_pylist() == want
     with pytest.raises(HarmonyError, match="cannot tell the feed format"):
         write_feed(rows, tmp_path / "f.txt")
+    (tmp_path / "a-file").write_text("")
     with pytest.raises(HarmonyError, match="cannot write the feed"):
-        write_feed(rows, tmp_path / "missing" / "f.jsonl")
+        write_feed(rows, tmp_path / "a-file" / "f.jsonl")
 
 
 def test_screened_and_exactly_scored_feeds_agree(shop, rules, monkeypatch):
@@ -230,3 +231,80 @@ def test_screened_and_exactly_scored_feeds_agree(shop, rules, monkeypatch):
     assert [(r.product, r.partner, r.rank) for r in screened] == [(r.product, r.partner, r.rank) for r in exact]
     for s, e in zip(screened, exact):
         assert s.score == pytest.approx(e.score, abs=1e-12) and s.reason == e.reason
+
+
+def test_mmr_first_pick_is_the_most_relevant_even_at_full_diversity():
+    # Carbonell & Goldstein (1998): MMR starts from the most relevant item; with lambda = 0
+    # (diversity 1) the rule alone would score every item 0 before anything is chosen.
+    rel = [0.1, 0.9, 0.5]
+    sim = [[1.0, 0.2, 0.9], [0.2, 1.0, 0.1], [0.9, 0.1, 1.0]]
+    assert mmr_select(rel, sim, 1, 1.0) == [1]
+    # Then the least similar to item 1: item 2 (0.1) before item 0 (0.2).
+    assert mmr_select(rel, sim, 3, 1.0) == [1, 2, 0]
+
+
+@pytest.mark.parametrize("diversity", [0.0, 0.7])
+def test_every_row_is_the_exact_score_and_its_explanation_on_both_paths(shop, rules, monkeypatch, diversity):
+    # The screen path (EXACT_PAIRS = 0 forces it) and the exact small-category path must both
+    # leave out the out-of-stock rugs and give each row the exact pair score with its reason.
+    import harmony.feed as feed_module
+
+    db, pals = shop
+    for exact_pairs in (feed_module.EXACT_PAIRS, 0):
+        monkeypatch.setattr(feed_module, "EXACT_PAIRS", exact_pairs)
+        with Store(db) as store:
+            rows = build_feed(store, rules, top=4, diversity=diversity, warn=lambda m: None)
+        assert len({r.product for r in rows}) == 23  # every product with a palette
+        assert not {"R2", "R5"} & {r.partner for r in rows}
+        for r in rows:
+            ps = pair_score(pals[r.product], pals[r.partner], rules.for_pair(r.category, r.partner_category))
+            assert r.score == pytest.approx(ps.score, abs=1e-12)
+            assert r.reason == ps.reason
+
+
+def test_a_failed_write_leaves_the_older_feed_whole(shop, rules, tmp_path, monkeypatch):
+    import harmony.fileio as fileio
+
+    db, _ = shop
+    with Store(db) as store:
+        rows = build_feed(store, rules, top=2, warn=lambda m: None)
+    for name in ("old.jsonl", "old.csv"):
+        target = tmp_path / name
+        target.write_text("the older feed\n")
+
+        def full_disk(src, dst):
+            raise OSError(28, "No space left on device")
+
+        monkeypatch.setattr(fileio.os, "replace", full_disk)
+        with pytest.raises(HarmonyError, match=f"{name}: cannot write the feed: No space left"):
+            write_feed(rows, target)
+        monkeypatch.undo()
+        assert target.read_text() == "the older feed\n"
+    pq = pytest.importorskip("pyarrow.parquet")
+    target = tmp_path / "old.parquet"
+    target.write_bytes(b"the older feed")
+
+    def half_then_fail(table, where, **kwargs):
+        with open(where, "wb") as fh:
+            fh.write(b"PAR1 half")
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(pq, "write_table", half_then_fail)
+    with pytest.raises(HarmonyError, match="old.parquet: cannot write the feed: No space left"):
+        write_feed(rows, target)
+    assert target.read_bytes() == b"the older feed"
+    assert sorted(p.name for p in tmp_path.iterdir() if p.name.startswith(".")) == []
+
+
+def test_write_feed_creates_missing_folders_and_names_an_unwritable_one(shop, rules, tmp_path):
+    db, _ = shop
+    with Store(db) as store:
+        rows = build_feed(store, rules, top=1, warn=lambda m: None)
+    write_feed(rows, tmp_path / "new" / "nested" / "f.csv")
+    assert (tmp_path / "new" / "nested" / "f.csv").read_text().startswith("product,category,partner")
+    (tmp_path / "plain").write_text("a file, not a folder")
+    for name in ("f.jsonl", "f.parquet"):
+        if name.endswith("parquet"):
+            pytest.importorskip("pyarrow")
+        with pytest.raises(HarmonyError, match=f"plain/{name}: cannot write the feed"):
+            write_feed(rows, tmp_path / "plain" / name)

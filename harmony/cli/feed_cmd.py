@@ -11,20 +11,22 @@ from ..feed import build_feed, suggest, write_feed
 from ..paths import DEFAULT_RULES
 from ..rules import load_rules
 from ..store import Store
+from ..swatch import ansi_block, segment_widths, terminal_has_colour
 
-__all__ = ["feed", "suggest_cmd", "colour_blocks"]
+__all__ = ["feed", "suggest_cmd", "colour_blocks", "STRIP_CELLS"]
 
 
-def colour_blocks(hex_codes, colour=True):
-    """The palette as terminal colour blocks (24-bit ANSI), or as plain hex codes."""
-    if colour:
-        try:
-            from ..swatch import ansi_block
-        except ImportError:
-            ansi_block = None
-        if ansi_block is not None:
-            return "".join(ansi_block(code) for code in hex_codes)
-    return " ".join(hex_codes)
+#: Terminal cells of one palette strip in ``harmony suggest``.
+STRIP_CELLS = 20
+
+
+def colour_blocks(palette, colour=True, cells=STRIP_CELLS):
+    """The palette as a strip of terminal colour blocks, each colour as wide as its weight
+    (24-bit ANSI backgrounds); without colour, the hex codes heaviest first."""
+    if not colour:
+        return " ".join(palette.hex)
+    spans = segment_widths(palette.weights, cells)
+    return "".join(ansi_block(code, int(span)) for code, span in zip(palette.hex, spans) if span > 0)
 
 
 def _warn(message):
@@ -92,16 +94,12 @@ def suggest_cmd(product_id, db, category, n, as_json, rules_path):
         }
         click.echo(json.dumps(payload, ensure_ascii=False))
         return
-    try:
-        from ..swatch import terminal_has_colour
-
-        colour = terminal_has_colour(sys.stdout)
-    except ImportError:
-        colour = False
+    colour = terminal_has_colour(sys.stdout)
     first = found[0].row
-    click.echo(f"{first.product} ({first.category})  {colour_blocks(own.hex, colour)}")
-    for s in found:
+    names = [f"{s.row.partner} ({s.row.partner_category})" for s in found]
+    width = max(len(n) for n in names)
+    click.echo(f"{first.product} ({first.category})  {colour_blocks(own, colour)}")
+    for s, name in zip(found, names):
         r = s.row
-        click.echo(f"{r.rank:>3}. {r.partner} ({r.partner_category})  score {r.score:.2f}  "
-                   f"{colour_blocks(s.palette.hex, colour)}")
+        click.echo(f"{r.rank:>3}. {name:<{width}}  score {r.score:.2f}  {colour_blocks(s.palette, colour)}")
         click.echo(f"     {r.reason}")
