@@ -26,6 +26,19 @@ def test_chromatic_term_by_hand():
     # A hue-angle difference (90 degrees) in place of the metric dH*ab would give another value.
     wrong = math.sqrt(90.0**2 + (10.0 / 1.46) ** 2)
     assert abs(h_c - (0.04 + 0.53 * math.tanh(0.8 - 0.045 * wrong))) > 0.05
+    # Worked on paper: 0.8 - 0.045 * 35.3117 = -0.78903; tanh(-0.78903) = -(e^1.57805 - 1) /
+    # (e^1.57805 + 1) = -3.8458 / 5.8458 = -0.65786; 0.04 + 0.53 * -0.65786 = -0.30867.
+    assert h_c == pytest.approx(-0.30866, abs=1e-4)
+
+
+def test_metric_hue_difference_across_the_wrap():
+    # Two colours of chroma 20 at hue 350 and hue 10: 20 degrees apart across 0, not 340.
+    # CIE 15:2004: dH*ab = 2 sqrt(C1 C2) sin(dh / 2) = 2 * 20 * sin(10 deg) = 6.9459, with dC*ab = 0.
+    # 0.8 - 0.045 * 6.9459 = 0.48743; tanh(0.48743) = 0.45218; H_C = 0.04 + 0.53 * 0.45218 = 0.27965.
+    lab1 = [50.0, 20.0 * math.cos(math.radians(350.0)), 20.0 * math.sin(math.radians(350.0))]
+    lab2 = [50.0, 20.0 * math.cos(math.radians(10.0)), 20.0 * math.sin(math.radians(10.0))]
+    h_c, _, _ = harmony_terms(lab1, lab2)
+    assert h_c == pytest.approx(0.27965, abs=1e-4)
 
 
 def test_lightness_term_by_hand():
@@ -34,6 +47,9 @@ def test_lightness_term_by_hand():
     h_dl = 0.14 + 0.15 * math.tanh(-2.0 + 0.2 * 10.0)        # |L1 - L2| = 10: tanh(0) = 0
     assert h_dl == 0.14
     assert h_l == pytest.approx(h_lsum + h_dl, abs=1e-12)
+    # Worked on paper: -3.88 + 3.19 = -0.69; tanh(-0.69) = -(e^1.38 - 1) / (e^1.38 + 1)
+    # = -2.9749 / 4.9749 = -0.59798; H_Lsum = 0.28 - 0.54 * 0.59798 = -0.04291; H_L = 0.09709.
+    assert h_l == pytest.approx(0.09709, abs=1e-4)
 
 
 def test_hue_term_by_hand():
@@ -49,6 +65,12 @@ def test_hue_term_by_hand():
     assert h_s2 == pytest.approx(-0.01 - 0.14 * math.sin(math.radians(40.0)), abs=1e-12)
     expected = e_c1 * (h_s1 + e_y1) + e_c2 * (h_s2 + e_y2)
     assert h_h == pytest.approx(expected, abs=1e-12)
+    # Worked on paper: E_C1 = E_C2 = 1 to 6 decimals (tanh 8, tanh 13);
+    # H_S1 = -0.08 - 0.14 * 0.76604 - 0.07 = -0.25725; H_S2 = -0.08 - 0.14 * 0.64279 + 0.07 = -0.09999;
+    # E_Y2 = 0.04 / 2.71828 = 0.014715; H_H = -0.25725 - 0.09999 + 0.01472 = -0.34252.
+    assert h_h == pytest.approx(-0.34252, abs=1e-4)
+    # CH = H_C + H_L + H_H = -0.30866 + 0.09709 - 0.34252 = -0.55409: not harmonious.
+    assert two_colour_harmony(LAB1, LAB2) == pytest.approx(-0.55409, abs=2e-4)
 
 
 def test_total_is_the_sum_and_symmetric():
