@@ -433,3 +433,23 @@ def test_pairwise_shape_errors(default_rules):
         pr.pairwise(np.zeros((4, 3)), np.zeros((4, 2)))
     with pytest.raises(ValueError, match=r"jab_a and jab_b must broadcast, got shapes \(4, 3\) and \(5, 3\)"):
         pr.pairwise(np.zeros((4, 3)), np.zeros((5, 3)))
+
+
+def test_analogous_is_highest_for_munsell_neighbours_round_the_whole_circle(default_rules):
+    # Gold: colour-science's Munsell renotation data, the 40 hues of the renotation circle
+    # (2.5-step spacing) at value 6 / chroma 6. For each principal hue, the hues next to it
+    # (2.5 steps either side) score highest under analogous of all 39 other hues, and under
+    # complementary the opposite hue beats every hue up to a quarter-turn away.
+    steps = np.arange(0.0, 100.0, 2.5)
+    ring = _munsell_jab(steps)
+    ana, comp = _only(default_rules, "analogous"), _only(default_rules, "complementary")
+    for start in _STARTS:
+        k = int(np.flatnonzero(steps == start)[0])
+        others = np.delete(np.arange(len(steps)), k)
+        apart = np.abs((steps[others] - start + 50.0) % 100.0 - 50.0)  # Munsell steps apart
+        a_val = ana.kernel(ring[k : k + 1], ring[others])[0]
+        best = apart[a_val == a_val.max()]
+        assert np.all(best == 2.5), (_munsell_spec(start), best)
+        c_val = comp.kernel(ring[k : k + 1], ring[others])[0]
+        opposite = c_val[apart == 50.0][0]
+        assert np.all(opposite > c_val[apart <= 25.0]), _munsell_spec(start)
