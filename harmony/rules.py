@@ -220,8 +220,8 @@ class HueRule:
     def flipped(self):
         return self
 
-    def default_phrase(self, ja, jb, na, nb):
-        if self.weight < 0:
+    def default_phrase(self, ja, jb, na, nb, value):
+        if value < 0:
             return "clashes with"
         c = self.centres[0]
         if c <= 30.0:
@@ -256,7 +256,9 @@ class NeutralRule:
     def flipped(self):
         return self
 
-    def default_phrase(self, ja, jb, na, nb):
+    def default_phrase(self, ja, jb, na, nb, value):
+        if value < 0:
+            return "sits too plainly with"
         if na >= 0.5 and nb >= 0.5:
             return "sits quietly with"
         return "anchors" if na >= nb else "is anchored by"
@@ -299,7 +301,7 @@ class LightnessRule:
     def flipped(self):
         return replace(self, direction=_FLIP_DIRECTION[self.direction])
 
-    def default_phrase(self, ja, jb, na, nb):
+    def default_phrase(self, ja, jb, na, nb, value):
         return "is a clear step lighter than" if ja[0] > jb[0] else "is a clear step darker than"
 
 
@@ -324,8 +326,9 @@ class OuLuoRule:
     def flipped(self):
         return self
 
-    def default_phrase(self, ja, jb, na, nb):
-        return "pairs, by the Ou & Luo model, with"
+    def default_phrase(self, ja, jb, na, nb, value):
+        # The model's own sign says harmonious (CH > 0) or not, whatever the rule's weight.
+        return "goes with" if value > 0 else "sits uneasily with"
 
 
 _RULE_CLASSES = {"hue": HueRule, "neutral": NeutralRule, "lightness": LightnessRule, "ou_luo": OuLuoRule}

@@ -222,17 +222,30 @@ def colour_labels(jab, threshold=7.0):
 # --------------------------------------------------------------------------------------------
 
 
-def _label(category, fallback):
-    return f"the {category}'s" if category else f"the {fallback} product's"
+def _owners(categories):
+    """How the sentence names the two products: "the rug's", "the first sofa's", "the first product's"."""
+    a, b = categories
+    if a and b and a != b:
+        return f"the {a}'s", f"the {b}'s"
+    if a and a == b:
+        return f"the first {a}'s", f"the second {b}'s"
+    return "the first product's", "the second product's"
 
 
-def _phrase(pair_rules, pair, jab_a, jab_b):
-    rule = pair_rules.rule(pair.rule)
+def _phrase(rule, pair, jab_a, jab_b, pair_rules):
+    """The words linking the two colours: the rule's own phrase, else one that fits the pair."""
     if rule.phrase:
         return rule.phrase
     ja, jb = jab_a[pair.index_a], jab_b[pair.index_b]
     t, f = pair_rules.neutral_threshold, pair_rules.neutral_fade
-    return rule.default_phrase(ja, jb, float(neutrality(ja, t, f)), float(neutrality(jb, t, f)))
+    return rule.default_phrase(ja, jb, float(neutrality(ja, t, f)), float(neutrality(jb, t, f)), pair.value)
+
+
+def _rule_label(rule):
+    """The rule's name as words ("split complementary"); the published model by its authors."""
+    if rule.kind == "ou_luo" and rule.name == "ou_luo":
+        return "Ou & Luo model"
+    return rule.name.replace("_", " ")
 
 
 def explain_reason(pairs, categories, pair_rules, jab_a, jab_b, raw):
@@ -243,7 +256,8 @@ def explain_reason(pairs, categories, pair_rules, jab_a, jab_b, raw):
     pairs : sequence of ColourPair
         Largest absolute contribution first (as in :attr:`PairScore.pairs`).
     categories : (str, str)
-        Category names; empty strings give "the first/second product's".
+        Category names; empty strings give "the first/second product's", and one category
+        twice gives "the first/second sofa's".
     pair_rules : harmony.rules.PairRules
     jab_a, jab_b : ndarray, shape (n, 3) and (m, 3)
         The palettes' colours (for rule phrases that depend on them).
@@ -251,13 +265,17 @@ def explain_reason(pairs, categories, pair_rules, jab_a, jab_b, raw):
     """
     if not pairs:
         return "no rule found anything to say about these two palettes"
-    who_a = _label(categories[0], "first")
-    who_b = _label(categories[1], "second")
+    who_a, who_b = _owners(categories)
 
     def clause(p):
+        rule = pair_rules.rule(p.rule)
+        phrase = _phrase(rule, p, jab_a, jab_b, pair_rules)
+        label = _rule_label(rule)
+        # The rule's name closes the clause unless the phrase already says it ("clashes with").
+        tail = "" if label.casefold() in phrase.casefold() else f": {label}"
         return (
-            f"{who_a} {p.name_a} ({p.share_a * 100:.0f} %) {_phrase(pair_rules, p, jab_a, jab_b)} "
-            f"{who_b} {p.name_b} ({p.share_b * 100:.0f} %): {p.rule.replace('_', ' ')}"
+            f"{who_a} {p.name_a} ({p.share_a * 100:.0f} %) {phrase} "
+            f"{who_b} {p.name_b} ({p.share_b * 100:.0f} %){tail}"
         )
 
     best = next((p for p in pairs if p.value > 0), None)

@@ -364,7 +364,7 @@ def test_readme_worked_example():
     np.testing.assert_allclose(rs.for_pair("rug", "sofa").kernel(rug.jab, sofa.jab), [[0.403, 0.891], [1.0, 1.0]], atol=5e-4)
     assert round(result.raw, 3) == 0.820 and round(result.score, 3) == 0.964
     assert dict(result.contributions) == pytest.approx({"complementary": 0.113, "anchor": 0.432, "rug_lighter": 0.275}, abs=5e-4)
-    assert result.reason == "the rug's beige (60 %) anchors the sofa's teal (70 %): anchor"
+    assert result.reason == "the rug's beige (60 %) anchors the sofa's teal (70 %)"
 
 
 # ---- the broadcasting form of the kernel -------------------------------------------------------

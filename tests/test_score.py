@@ -102,8 +102,9 @@ def test_reason_mentions_a_clash():
     rug = _palette([("#b8400d", 0.5), ("#1a8a3a", 0.5)])   # rust and a green about 95 degrees on
     sofa = _palette([("#008080", 0.5), ("#c8b400", 0.5)])  # teal and a mustard
     result = pair_score(rug, sofa, rs.for_pair("rug", "sofa"))
-    assert "clashes with" in result.reason
-    assert result.reason.count(":") == 2 and "; but " in result.reason
+    # The clash clause does not repeat the rule's name: "clashes with" already says it.
+    assert result.reason == ("the rug's rust (50 %) sits opposite the sofa's teal (50 %): complementary; "
+                             "but the rug's rust (50 %) clashes with the sofa's lemon (50 %)")
 
 
 def test_reason_without_categories():
@@ -189,3 +190,90 @@ def test_batched_pair_scores_equal_pair_score(rules):
             assert (p.index_a, p.index_b) < (q.index_a, q.index_b) or p.rule != q.rule
     with pytest.raises(ValueError, match="pals_a and pals_b must have the same length, got 5 and 4"):
         pair_scores(pals_a, pals_b[:4], rules.for_pair("sofa", "rug"))
+
+
+_EVERY_KIND = """format = 1
+[neutral]
+threshold = 7.0
+fade = 4.0
+[rule.clash]
+kind = "hue"
+centre = 70.0
+spread = 14.0
+weight = -1.0
+[rule.neutral_anchor]
+kind = "neutral"
+weight = 1.0
+[rule.too_plain]
+kind = "neutral"
+weight = -1.0
+[rule.lightness_step]
+kind = "lightness"
+step = 20.0
+width = 10.0
+weight = 1.0
+[rule.ou_luo]
+kind = "ou_luo"
+weight = 1.0
+[default]
+rules = { clash = 1.0 }
+[[pair]]
+categories = ["rug", "sofa"]
+rules = { neutral_anchor = 1.0 }
+[[pair]]
+categories = ["rug", "cushion"]
+rules = { too_plain = 1.0 }
+[[pair]]
+categories = ["rug", "armchair"]
+rules = { lightness_step = 1.0 }
+[[pair]]
+categories = ["rug", "bed"]
+rules = { ou_luo = 1.0 }
+"""
+
+
+@pytest.mark.parametrize(
+    "cats, rug, other, reason",
+    [
+        # A pair whose every contribution is negative: the sentence is the clash alone.
+        (("rug", "vase"), [("#b8400d", 1.0)], [("#c8b400", 1.0)],
+         "the rug's rust (100 %) clashes with the vase's lemon (100 %)"),
+        (("rug", "sofa"), [("#808080", 1.0)], [("#008080", 1.0)],
+         "the rug's grey (100 %) anchors the sofa's teal (100 %): neutral anchor"),
+        (("rug", "sofa"), [("#008080", 1.0)], [("#808080", 1.0)],
+         "the rug's teal (100 %) is anchored by the sofa's grey (100 %): neutral anchor"),
+        (("rug", "cushion"), [("#808080", 1.0)], [("#008080", 1.0)],
+         "the rug's grey (100 %) sits too plainly with the cushion's teal (100 %)"),
+        (("rug", "armchair"), [("#3a3a3a", 1.0)], [("#d9d2c5", 1.0)],
+         "the rug's charcoal (100 %) is a clear step darker than the armchair's beige (100 %): lightness step"),
+        (("rug", "armchair"), [("#d9d2c5", 1.0)], [("#3a3a3a", 1.0)],
+         "the rug's beige (100 %) is a clear step lighter than the armchair's charcoal (100 %): lightness step"),
+    ],
+)
+def test_reason_reads_for_every_rule_kind(cats, rug, other, reason):
+    rs = parse_rules(_EVERY_KIND)
+    assert pair_score(_palette(rug), _palette(other), rs.for_pair(*cats)).reason == reason
+
+
+def test_reason_follows_the_sign_of_the_ou_luo_model():
+    from harmony.ou_luo import jab_to_lab, two_colour_harmony
+
+    rs = parse_rules(_EVERY_KIND)
+    pr = rs.for_pair("rug", "bed")
+    seen = set()
+    for code_a, code_b in [("#d9d2c5", "#e8e4dc"), ("#b8400d", "#008080"), ("#1a8a3a", "#c8b400")]:
+        a, b = _palette([(code_a, 1.0)]), _palette([(code_b, 1.0)])
+        # The sign comes from the model itself (harmony.ou_luo), not from the rule's weight.
+        ch = float(two_colour_harmony(jab_to_lab(a.jab[0]), jab_to_lab(b.jab[0])))
+        words = "goes with" if ch > 0 else "sits uneasily with"
+        reason = pair_score(a, b, pr).reason
+        assert f" {words} the bed's " in reason and reason.endswith(": Ou & Luo model")
+        seen.add(words)
+    assert seen == {"goes with", "sits uneasily with"}
+
+
+def test_reason_for_two_products_of_one_category():
+    rs = parse_rules(_COMPLEMENTARY_ONLY)
+    a, b = _palette([("#b8400d", 1.0)]), _palette([("#008080", 1.0)])
+    assert pair_score(a, b, rs.for_pair("Sofa", "sofa")).reason.startswith(
+        "the first sofa's rust (100 %) sits opposite the second sofa's teal (100 %)")
