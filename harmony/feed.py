@@ -24,6 +24,7 @@ from dataclasses import asdict, dataclass
 from pathlib import Path
 
 import numpy as np
+from tqdm import tqdm
 
 from .catalogue import normalise_category
 from .errors import HarmonyError, StoreError
@@ -196,7 +197,7 @@ def _sides(store):
     return by_cat, palettes
 
 
-def build_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, warn=None):
+def build_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, warn=None, progress=False):
     """The feed: for each product, its top partners in each category the rules pair it with.
 
     Parameters
@@ -213,6 +214,8 @@ def build_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, 
         With diversity, how many best-scoring partners MMR chooses from (default ``3 * top``).
     warn : callable, optional
         Called with a one-line message for each warning (default: :func:`warnings.warn`).
+    progress : bool
+        Show a progress bar over the category pairs on stderr.
 
     Returns
     -------
@@ -257,37 +260,38 @@ def build_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, 
             labels[key] = colour_labels(palettes[pid].jab, threshold)
         return labels[key]
 
+    work = [(a, b) for a in known for b in target_keys if b != a and rules.pairs_with(a, b)]
+    if targets is not None:
+        for cat in sorted(set(target_keys) - {b for _, b in work}):
+            _warn(warn, f"{rules.path}: the rules pair target category '{cat}' with no other category; it gets no rows")
     rows = []
-    for cat_a in known:
+    for cat_a, cat_b in tqdm(work, desc="feed", unit="category pair", disable=not progress, leave=False):
         ids_a = [p.id for p in by_cat[cat_a] if p.id in palettes]
-        for cat_b in target_keys:
-            if cat_b == cat_a or not rules.pairs_with(cat_a, cat_b):
-                continue
-            ids_b = partners[cat_b]
-            if not ids_a or not ids_b:
-                continue
-            pr = rules.for_pair(cat_a, cat_b)
-            pals_a = [palettes[i] for i in ids_a]
-            pals_b = [palettes[i] for i in ids_b]
-            grid = BinGrid(neutral_threshold=pr.neutral_threshold, neutral_fade=pr.neutral_fade)
-            res = screen_top_k(pals_a, pals_b, pr, k=pool_size, grid=grid, exact_below=EXACT_PAIRS)
-            t = pr.neutral_threshold
-            emitted = []  # (i, j, rank): explained below, all rows of this pair in one batch
-            for i, pid in enumerate(ids_a):
-                cand = res.indices[i]
-                if diversity > 0 and len(cand) > 1:
-                    sim = similarity_matrix([pals_b[j] for j in cand])
-                    chosen = [int(cand[c]) for c in mmr_select(to_unit(res.raw[i], pr), sim, top, diversity)]
-                else:
-                    chosen = [int(j) for j in cand[:top]]
-                emitted.extend((i, j, rank) for rank, j in enumerate(chosen, start=1))
-            scored = pair_scores(
-                [pals_a[i] for i, _, _ in emitted], [pals_b[j] for _, j, _ in emitted], pr,
-                labels_a=[labels_of(ids_a[i], t) for i, _, _ in emitted],
-                labels_b=[labels_of(ids_b[j], t) for _, j, _ in emitted],
-            )
-            for (i, j, rank), ps in zip(emitted, scored):
-                rows.append(FeedRow(ids_a[i], cat_a, ids_b[j], cat_b, rank, float(ps.score), ps.reason))
+        ids_b = partners[cat_b]
+        if not ids_a or not ids_b:
+            continue
+        pr = rules.for_pair(cat_a, cat_b)
+        pals_a = [palettes[i] for i in ids_a]
+        pals_b = [palettes[i] for i in ids_b]
+        grid = BinGrid(neutral_threshold=pr.neutral_threshold, neutral_fade=pr.neutral_fade)
+        res = screen_top_k(pals_a, pals_b, pr, k=pool_size, grid=grid, exact_below=EXACT_PAIRS)
+        t = pr.neutral_threshold
+        emitted = []  # (i, j, rank): explained below, all rows of this pair in one batch
+        for i, pid in enumerate(ids_a):
+            cand = res.indices[i]
+            if diversity > 0 and len(cand) > 1:
+                sim = similarity_matrix([pals_b[j] for j in cand])
+                chosen = [int(cand[c]) for c in mmr_select(to_unit(res.raw[i], pr), sim, top, diversity)]
+            else:
+                chosen = [int(j) for j in cand[:top]]
+            emitted.extend((i, j, rank) for rank, j in enumerate(chosen, start=1))
+        scored = pair_scores(
+            [pals_a[i] for i, _, _ in emitted], [pals_b[j] for _, j, _ in emitted], pr,
+            labels_a=[labels_of(ids_a[i], t) for i, _, _ in emitted],
+            labels_b=[labels_of(ids_b[j], t) for _, j, _ in emitted],
+        )
+        for (i, j, rank), ps in zip(emitted, scored):
+            rows.append(FeedRow(ids_a[i], cat_a, ids_b[j], cat_b, rank, float(ps.score), ps.reason))
     rows.sort(key=lambda r: (r.product, r.partner_category, r.rank))
     return rows
 

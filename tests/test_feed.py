@@ -308,3 +308,24 @@ def test_write_feed_creates_missing_folders_and_names_an_unwritable_one(shop, ru
             pytest.importorskip("pyarrow")
         with pytest.raises(HarmonyError, match=f"plain/{name}: cannot write the feed"):
             write_feed(rows, tmp_path / "plain" / name)
+
+
+def test_a_requested_target_that_nothing_pairs_with_is_a_warning(shop, rules):
+    from harmony.paths import DEFAULT_RULES
+    from harmony.rules import parse_rules
+
+    # The default rules with unlisted pairs unscored and the sofa / floor lamp pair unscored too:
+    # the shop's floor lamps then pair with nothing (the shop has sofas, rugs and floor lamps).
+    text = DEFAULT_RULES.read_text(encoding="utf-8")
+    lamp = 'categories = ["sofa", "floor lamp"]\n'
+    assert "\nscored = true\n" in text and lamp in text
+    text = text.replace("\nscored = true\n", "\nscored = false\n", 1).replace(lamp, lamp + "scored = false\n")
+    only_listed = parse_rules(text, "listed.toml")
+    assert only_listed.pairs_with("sofa", "rug") and not only_listed.pairs_with("sofa", "floor lamp")
+    assert not only_listed.pairs_with("rug", "floor lamp")
+    db, _ = shop
+    said = []
+    with Store(db) as store:
+        rows = build_feed(store, only_listed, top=2, targets=["rug", "floor lamp"], warn=said.append)
+    assert any("listed.toml: the rules pair target category 'floor lamp' with no other category" in m for m in said)
+    assert rows and {r.partner_category for r in rows} == {"rug"}

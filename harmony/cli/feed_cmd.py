@@ -46,7 +46,8 @@ def _warn(message):
 @click.option("--format", "fmt", type=click.Choice(["jsonl", "csv", "parquet"]), default=None,
               help="Output format (default: from the --out suffix).")
 @click.option("--out", required=True, type=click.Path(dir_okay=False), help="The feed file to write.")
-def feed(db, rules_path, top, targets, diversity, fmt, out):
+@click.option("--progress/--no-progress", default=None, help="Progress bar on stderr (default: when it is a terminal).")
+def feed(db, rules_path, top, targets, diversity, fmt, out, progress):
     """Write the cross-sell feed: each product's best partners in the other categories.
 
     Out-of-stock partners are left out. Each row holds product, category, partner,
@@ -59,7 +60,10 @@ def feed(db, rules_path, top, targets, diversity, fmt, out):
         if not target_list:
             raise HarmonyError("--targets: no category names given")
     with Store(db) as store:
-        rows = build_feed(store, rules, top=top, targets=target_list, diversity=diversity, warn=_warn)
+        if progress is None:
+            progress = sys.stderr.isatty()
+        rows = build_feed(store, rules, top=top, targets=target_list, diversity=diversity, warn=_warn,
+                          progress=progress)
     if not rows:
         raise HarmonyError(
             f"{db}: no feed rows: the rules pair none of the store's categories with an in-stock target"
