@@ -636,6 +636,17 @@ _KEY_RE = re.compile(r"""^\s*((?:[A-Za-z0-9_\-]+|"[^"]*"|'[^']*')(?:\s*\.\s*(?:[
 _INLINE_KEY_RE = re.compile(r"""[{,]\s*([A-Za-z0-9_\-]+|"[^"]*"|'[^']*')\s*=""")
 
 
+def _in_last_element(path, counts):
+    """A header path with the index of the latest element of each array of tables it passes
+    through: after ``[[pair]]`` twice, ``[pair.rules]`` is ``("pair", 1, "rules")``, as parsed."""
+    out = ()
+    for k, part in enumerate(path):
+        out += (part,)
+        if k < len(path) - 1 and out in counts:
+            out += (counts[out] - 1,)
+    return out
+
+
 def _key_lines(text):
     """Map each key path of a TOML text to the line that defines it (1-based).
 
@@ -656,7 +667,7 @@ def _key_lines(text):
         if not stripped:
             continue
         if stripped.startswith("[["):
-            path = _split_dotted(stripped[2 : stripped.find("]]")])
+            path = _in_last_element(_split_dotted(stripped[2 : stripped.find("]]")]), counts)
             index = counts.get(path, 0)
             counts[path] = index + 1
             current = path + (index,)
@@ -664,7 +675,7 @@ def _key_lines(text):
             lines.setdefault(path, number)
             continue
         if stripped.startswith("["):
-            current = _split_dotted(stripped[1 : stripped.find("]")])
+            current = _in_last_element(_split_dotted(stripped[1 : stripped.find("]")]), counts)
             lines.setdefault(current, number)
             continue
         match = _KEY_RE.match(line)
@@ -837,10 +848,10 @@ def _read_rule(problems, name, table, path):
         step = _get(problems, table, "step", path, _number(0.0, 100.0, lo_open=True))
         width = _get(problems, table, "width", path, _number(0.0, 100.0))
         direction = _get(problems, table, "direction", path, _string(_LIGHTNESS_DIRECTIONS), required=False, default="either")
+        if step is not _MISSING and width is not _MISSING and width > 2.0 * step:
+            problems.add(path + ("width",), f"must be at most twice the step ({2.0 * step:g}), got {width:g}")
+            return None
         if ok and step is not _MISSING and width is not _MISSING and direction is not _MISSING:
-            if width > 2.0 * step:
-                problems.add(path + ("width",), f"must be at most twice the step ({2.0 * step:g}), got {width:g}")
-                return None
             return LightnessRule(name, float(step), float(width), direction, float(weight), phrase)
     elif kind == "ou_luo":
         if ok:

@@ -453,3 +453,22 @@ def test_analogous_is_highest_for_munsell_neighbours_round_the_whole_circle(defa
         c_val = comp.kernel(ring[k : k + 1], ring[others])[0]
         opposite = c_val[apart == 50.0][0]
         assert np.all(opposite > c_val[apart <= 25.0]), _munsell_spec(start)
+
+
+def test_sub_table_of_a_pair_names_its_own_line():
+    # TOML 1.0: after [[pair]], a [pair.rules] header is a table inside the latest element.
+    text = _SMALL + '[[pair]]\ncategories = ["sofa", "rug"]\nrules = { a = 1.0 }\n' \
+                    '[[pair]]\ncategories = ["desk", "lamp"]\n[pair.rules]\na = "x"\n'
+    with pytest.raises(RulesError, match=r"^<string>:18: pair\[2\]\.rules\.a: pair weight must be a number"):
+        parse_rules(text)
+
+
+def test_every_problem_of_one_rule_at_once():
+    # A missing weight does not hide an impossible width in the same rule.
+    text = _SMALL + '[rule.b]\nkind = "lightness"\nstep = 10.0\nwidth = 30.0\n'
+    with pytest.raises(RulesError) as info:
+        parse_rules(text)
+    assert info.value.problems == (
+        "<string>:12: rule.b: missing key 'weight'",
+        "<string>:15: rule.b.width: must be at most twice the step (20), got 30",
+    )
