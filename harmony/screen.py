@@ -19,18 +19,20 @@ the screened top-c; the benchmark measures how often that holds (recall@k).
 Bins
 ----
 * chromatic bins: a grid of ``hue_bins`` hue angles (circular) x ``lightness_bins`` lightness
-  levels J' in [0, 100]; a colour's chromatic share is spread bilinearly over the four nearest
-  centres (linear in hue on the circle and in J', clamped at the ends of J');
+  levels J' in [0, 100]; a colour's chromatic share is spread over the 4 x 4 nearest centres by
+  bicubic convolution weights (Keys 1981, the default) or over the 2 x 2 nearest bilinearly
+  (``BinGrid.interpolation``), circular in hue and clamped at the ends of J';
 * neutral bins: ``lightness_bins`` lightness levels on the grey axis (a' = b' = 0); a colour's
-  neutral share is spread linearly over the two nearest levels.
+  neutral share is spread over the four (cubic) or two (linear) nearest levels.
 
 The neutral share of a colour is :func:`harmony.palette.neutrality` (the same smooth fade the
 rules use), the chromatic share is the rest. A chromatic centre takes the weighted mean
 colourfulness M' of the colours that fell into it (at least the end of the neutral fade, so the
 centre is fully chromatic); an empty bin takes :data:`DEFAULT_CENTRE_COLOURFULNESS`.
 
-The approximation ``h_a K h_b`` is the multilinear interpolant of the kernel between grid points,
-so its error shrinks with the square of the bin spacing for a smooth kernel.
+The approximation ``h_a K h_b`` is the interpolant of the kernel between grid points (bilinear
+or bicubic on each side), so for a smooth kernel its error shrinks with the square (linear) or
+the cube (cubic) of the bin spacing.
 """
 
 from concurrent.futures import ThreadPoolExecutor
