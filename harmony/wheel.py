@@ -1,7 +1,7 @@
 """Draw the hue rules of a rules file around a hue wheel, so a stylist sees what the file means.
 
-One panel per hue rule, plus one panel per section (default first) for the sum of its weighted
-hue rules. In each panel a ring of hues starts at a reference hue at the top and turns clockwise
+A key on top says how to read the picture. One panel per hue rule, plus one panel per section
+(default first) for the sum of its weighted hue rules. In each panel a ring of hues starts at a reference hue at the top and turns clockwise
 by hue difference; bars point outwards (green) where the rule rewards a second colour of that hue
 and inwards (red) where it penalises it.
 """
@@ -14,7 +14,7 @@ from PIL import Image, ImageDraw, ImageFont
 
 from . import colour
 
-__all__ = ["hue_ring_srgb1", "wheel_geometry", "draw_hue_rules"]
+__all__ = ["HEADER_HEIGHT", "hue_ring_srgb1", "wheel_geometry", "draw_hue_rules"]
 
 #: Lightness J' and colourfulness M' of the ring's colours: a mid-light, clearly chromatic
 #: colour that stays inside the sRGB gamut at every hue under harmony.colour.VIEWING_CONDITIONS
@@ -51,6 +51,24 @@ def _point(c, radius, theta_deg, top):
     return (c + radius * math.cos(a), top + c + radius * math.sin(a))
 
 
+#: Height in pixels of the key above the wheels.
+HEADER_HEIGHT = 48
+
+_KEY = (
+    "Each wheel: the first colour's hue is at the mark on top; the ring turns clockwise by hue difference.",
+    "Green outwards: a second colour of that hue is rewarded; red inwards: penalised. One scale for all wheels.",
+)
+
+
+def _draw_key(img, source):
+    draw = ImageDraw.Draw(img)
+    font = ImageFont.load_default()
+    draw.text((6, 4), f"Hue rules of {source}"[:150], fill=_INK, font=font)
+    for k, line in enumerate(_KEY):
+        draw.text((6, 18 + 13 * k), line, fill=_INK, font=font)
+    draw.line([(0, HEADER_HEIGHT - 2), (img.width, HEADER_HEIGHT - 2)], fill=(200, 200, 200), width=1)
+
+
 def _draw_panel(img, x0, y0, panel, values, scale, title, subtitle, reference_hue):
     draw = ImageDraw.Draw(img)
     font = ImageFont.load_default()
@@ -64,15 +82,22 @@ def _draw_panel(img, x0, y0, panel, values, scale, title, subtitle, reference_hu
         draw.pieslice(box, start=t - 90.5, end=t - 89.0 + 0.5, fill=tuple(int(v) for v in rgb))
     inner = [x0 + c - ring_inner, top + c - ring_inner, x0 + c + ring_inner, top + c + ring_inner]
     draw.ellipse(inner, fill=_BACKGROUND)
+    # One filled wedge per degree of hue difference, between the base circle and the value.
     for t, v in zip(thetas, values):
         length = amplitude * float(v) / scale if scale > 0 else 0.0
         if abs(length) < 0.5:
             continue
-        start = _point(c, base, t, top)
-        end = _point(c, base + length, t, top)
-        draw.line([(x0 + start[0], start[1]), (x0 + end[0], end[1])], fill=_POSITIVE if v > 0 else _NEGATIVE, width=2)
+        corners = [_point(c, base, t - 0.5, top), _point(c, base + length, t - 0.5, top),
+                   _point(c, base + length, t + 0.5, top), _point(c, base, t + 0.5, top)]
+        draw.polygon([(x0 + x, y) for x, y in corners], fill=_POSITIVE if v > 0 else _NEGATIVE)
     basebox = [x0 + c - base, top + c - base, x0 + c + base, top + c + base]
     draw.ellipse(basebox, outline=_INK, width=1)
+    # Hue differences 90 and 180 degrees marked on the ring (both sides: the rules are unsigned).
+    for t, text in ((90.0, "90"), (180.0, "180"), (270.0, "90")):
+        inner_tick, outer_tick = _point(c, ring_inner - 6, t, top), _point(c, ring_inner, t, top)
+        draw.line([(x0 + inner_tick[0], inner_tick[1]), (x0 + outer_tick[0], outer_tick[1])], fill=_INK, width=1)
+        lx, ly = _point(c, ring_inner - 20, t, top)
+        draw.text((x0 + lx, ly), text, fill=_INK, font=font, anchor="mm", stroke_width=2, stroke_fill=_BACKGROUND)
     # reference mark at the top of the ring
     mark = _point(c, ring_outer + 4, 0.0, top)
     draw.polygon([(x0 + mark[0], mark[1]), (x0 + mark[0] - 4, mark[1] - 6), (x0 + mark[0] + 4, mark[1] - 6)], fill=_INK)
@@ -127,10 +152,11 @@ def draw_hue_rules(rule_set, path, *, panel=240, reference_hue=40.0, columns=4):
     columns = max(1, min(columns, len(items)))
     rows = math.ceil(len(items) / columns)
     cell_h = panel + 30
-    img = Image.new("RGB", (columns * panel, rows * cell_h), _BACKGROUND)
+    img = Image.new("RGB", (columns * panel, HEADER_HEIGHT + rows * cell_h), _BACKGROUND)
+    _draw_key(img, rule_set.path)
     for k, (title, subtitle, values) in enumerate(items):
         x0 = (k % columns) * panel
-        y0 = (k // columns) * cell_h
+        y0 = HEADER_HEIGHT + (k // columns) * cell_h
         _draw_panel(img, x0, y0, panel, values, scale, title[:38], subtitle[:38], reference_hue)
     path = Path(path)
     img.save(path, format="PNG")

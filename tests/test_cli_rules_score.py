@@ -12,7 +12,7 @@ from harmony.cli import main
 from harmony.colour import hex_to_srgb1, srgb1_to_jab
 from harmony.palette import Palette
 from harmony.paths import DEFAULT_RULES
-from harmony.wheel import RING_COLOURFULNESS, RING_LIGHTNESS, wheel_geometry
+from harmony.wheel import HEADER_HEIGHT, RING_COLOURFULNESS, RING_LIGHTNESS, wheel_geometry
 
 DATA = Path(__file__).parent / "data" / "rules"
 
@@ -68,7 +68,9 @@ def test_show_draws_wheels(runner, tmp_path):
     img = np.asarray(Image.open(out).convert("RGB")).astype(int)
     panel = 240
     c, base, amplitude, ring_inner, _ = wheel_geometry(panel)
-    top = 30
+    top = HEADER_HEIGHT + 30
+    # The key above the wheels is drawn (dark text on the white header).
+    assert np.any(img[:HEADER_HEIGHT - 4].sum(axis=-1) < 300)
     # The analogous rule (first panel) has its bump at hue difference 0 (screen top), none at 180.
     y_up = int(top + c - base - amplitude * 0.5)
     y_down = int(top + c + base + amplitude * 0.5)
