@@ -141,11 +141,21 @@ def _as_colours(jab, name):
     return arr
 
 
-def _as_broadcast_colours(jab, name):
+def _triplets(jab, name):
     arr = np.asarray(jab, dtype=float)
     if arr.ndim == 0 or arr.shape[-1] != 3:
         raise ValueError(f"{name} must have a trailing axis of 3, got shape {arr.shape}")
     return arr
+
+
+def _broadcast_pair(jab_a, jab_b):
+    """Both sides as float arrays with a trailing axis of 3, and their broadcast leading shape."""
+    jab_a, jab_b = _triplets(jab_a, "jab_a"), _triplets(jab_b, "jab_b")
+    try:
+        shape = np.broadcast_shapes(jab_a.shape[:-1], jab_b.shape[:-1])
+    except ValueError:
+        raise ValueError(f"jab_a and jab_b must broadcast, got shapes {jab_a.shape} and {jab_b.shape}") from None
+    return jab_a, jab_b, shape
 
 
 # --------------------------------------------------------------------------------------------
@@ -206,12 +216,7 @@ class HueRule:
     def profile(self, hue_difference_deg):
         """The rule's value for two fully chromatic colours ``hue_difference_deg`` apart."""
         d = np.radians(np.asarray(hue_difference_deg, dtype=float))
-        cos_d, sin_d = np.cos(d), np.abs(np.sin(d))
-        kappa = 1.0 / math.radians(self.spread) ** 2
-        return sum(
-            np.exp((cos_d * math.cos(math.radians(c)) + sin_d * math.sin(math.radians(c)) - 1.0) * kappa)
-            for c in self.centres
-        )
+        return self.bumps(np.cos(d), np.abs(np.sin(d)))
 
     @property
     def symmetric(self):
@@ -433,14 +438,7 @@ class PairRules:
         computed on each side's own shape before broadcasting, so ``pairwise(a[:, None],
         b[None, :])`` costs the same per pair as an outer product; :meth:`kernel` is exactly that.
         """
-        jab_a = _as_broadcast_colours(jab_a, "jab_a")
-        jab_b = _as_broadcast_colours(jab_b, "jab_b")
-        try:
-            shape = np.broadcast_shapes(jab_a.shape[:-1], jab_b.shape[:-1])
-        except ValueError:
-            raise ValueError(
-                f"jab_a and jab_b must broadcast, got shapes {jab_a.shape} and {jab_b.shape}"
-            ) from None
+        jab_a, jab_b, shape = _broadcast_pair(jab_a, jab_b)
         return self._evaluate(self._geometry(jab_a, jab_b), shape)
 
     def kernel(self, jab_a, jab_b):
@@ -467,14 +465,7 @@ class PairRules:
 
         The arrays have the broadcast leading shape and sum to :meth:`pairwise`.
         """
-        jab_a = _as_broadcast_colours(jab_a, "jab_a")
-        jab_b = _as_broadcast_colours(jab_b, "jab_b")
-        try:
-            shape = np.broadcast_shapes(jab_a.shape[:-1], jab_b.shape[:-1])
-        except ValueError:
-            raise ValueError(
-                f"jab_a and jab_b must broadcast, got shapes {jab_a.shape} and {jab_b.shape}"
-            ) from None
+        jab_a, jab_b, shape = _broadcast_pair(jab_a, jab_b)
         g = self._geometry(jab_a, jab_b)
         out = []
         for rule, w in self.terms:
