@@ -163,3 +163,14 @@ def test_score_images(runner, palettes, tmp_path):
     out = json.loads(result.output)
     assert 0.0 <= out["score"] <= 1.0 and out["categories"] == ["cushion", "sofa"]
     assert out["reason"].startswith("the cushion's ")
+
+
+def test_score_of_a_pair_the_rules_never_score(runner, palettes):
+    # rules/default.toml: bed with dining table has scored = false; the CLI says so.
+    rug, sofa = palettes
+    result = runner.invoke(main, ["score", str(rug), str(sofa), "--categories", "Dining Table,bed", "--json"])
+    assert result.exit_code == 0, result.stderr
+    assert json.loads(result.stdout)["scored"] is False
+    assert "never scores dining table with bed (scored = false)" in result.stderr
+    result = runner.invoke(main, ["score", str(rug), str(sofa), "--categories", "rug,sofa", "--json"])
+    assert json.loads(result.stdout)["scored"] is True and result.stderr == ""

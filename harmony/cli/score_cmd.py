@@ -53,12 +53,17 @@ def score(a, b, rules_file, categories, as_json):
     pal_a = read_palette(a)
     pal_b = read_palette(b)
     result = pair_score(pal_a, pal_b, pair_rules)
+    if not pair_rules.scored:
+        a_name, b_name = pair_rules.categories
+        click.echo(f"note: {rules_file} never scores {a_name} with {b_name} (scored = false); "
+                   f"this is what its rules would give", err=True)
     if as_json:
         out = {
             "score": result.score,
             "categories": [c or None for c in result.categories],
             "rules_file": str(rules_file),
             "section": result.section,
+            "scored": pair_rules.scored,
             "raw": result.raw,
             "contributions": [{"rule": r, "value": v} for r, v in result.contributions],
             "pairs": [{"a": p.hex_a, "b": p.hex_b, "rule": p.rule, "value": p.value} for p in result.pairs],
