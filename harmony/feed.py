@@ -17,8 +17,6 @@ import csv
 import difflib
 import io
 import json
-import os
-import tempfile
 import warnings
 from dataclasses import asdict, dataclass
 from pathlib import Path
@@ -28,7 +26,7 @@ from tqdm import tqdm
 
 from .catalogue import normalise_category
 from .errors import HarmonyError, StoreError
-from .fileio import write_text_whole
+from .fileio import write_text_whole, write_whole
 from .palette import Palette
 from .score import PairScore, colour_labels, pair_score, pair_scores, to_unit
 from .screen import BinGrid, PaletteStack, exact_raw, screen_top_k
@@ -392,24 +390,10 @@ def _parquet_table(records):
 
 
 def _write_parquet_whole(table, path):
-    """Write a pyarrow table to ``path`` through a temporary file in the same folder and a rename."""
+    """Write a pyarrow table to ``path`` whole (see :func:`harmony.fileio.write_whole`)."""
     import pyarrow.parquet as pq
 
-    folder = path.parent if str(path.parent) else Path(".")
-    try:
-        folder.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=folder)
-        os.close(fd)
-    except OSError as exc:
-        raise HarmonyError(f"{path}: cannot write the feed: {exc.strerror or exc}") from None
-    try:
-        pq.write_table(table, tmp)
-        os.replace(tmp, path)
-    except BaseException as exc:
-        Path(tmp).unlink(missing_ok=True)
-        if isinstance(exc, OSError):
-            raise HarmonyError(f"{path}: cannot write the feed: {exc.strerror or exc}") from None
-        raise
+    write_whole(path, lambda tmp: pq.write_table(table, tmp), what="feed")
 
 
 def write_feed(rows, path, fmt=None):

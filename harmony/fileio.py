@@ -6,30 +6,45 @@ from pathlib import Path
 
 from .errors import HarmonyError
 
-__all__ = ["write_text_whole"]
+__all__ = ["write_whole", "write_text_whole", "write_bytes_whole"]
 
 
-def write_text_whole(path, text, what="file"):
-    """Write ``text`` (UTF-8) to ``path`` through a temporary file in the same folder and a rename.
+def write_whole(path, write, what="file"):
+    """Let ``write(tmp_path)`` fill a temporary file in ``path``'s folder, then rename it to ``path``.
 
-    Creates missing parent folders. Raises :class:`HarmonyError` naming the path (and ``what`` was
-    being written) when the folder or file cannot be written. Returns the path.
+    Creates missing parent folders. Any failure (full disk, an encoding error, an interrupt)
+    removes the temporary file and leaves an older ``path`` as it was; an ``OSError`` becomes a
+    :class:`HarmonyError` ``"<path>: cannot write the <what>: <reason>"``. Returns the path.
     """
     path = Path(path)
     folder = path.parent if str(path.parent) else Path(".")
     try:
         folder.mkdir(parents=True, exist_ok=True)
         fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=folder)
+        os.close(fd)
     except OSError as exc:
         raise HarmonyError(f"{path}: cannot write the {what}: {exc.strerror or exc}") from None
     try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="") as handle:
-            handle.write(text)
+        write(tmp)
         os.replace(tmp, path)
     except BaseException as exc:
-        # Any failure (full disk, text that is not encodable, an interrupt) leaves no temporary.
         Path(tmp).unlink(missing_ok=True)
         if isinstance(exc, OSError):
             raise HarmonyError(f"{path}: cannot write the {what}: {exc.strerror or exc}") from None
         raise
     return path
+
+
+def write_text_whole(path, text, what="file"):
+    """Write ``text`` (UTF-8, newlines as given) to ``path`` whole; see :func:`write_whole`."""
+
+    def write(tmp):
+        with open(tmp, "w", encoding="utf-8", newline="") as handle:
+            handle.write(text)
+
+    return write_whole(path, write, what)
+
+
+def write_bytes_whole(path, data, what="file"):
+    """Write ``data`` to ``path`` whole; see :func:`write_whole`."""
+    return write_whole(path, lambda tmp: Path(tmp).write_bytes(data), what)

@@ -2,14 +2,12 @@
 
 import io
 import os
-import tempfile
-from pathlib import Path
 
 import numpy as np
 from PIL import Image
 
 from . import colour
-from .errors import HarmonyError
+from .fileio import write_bytes_whole
 
 __all__ = ["segment_widths", "swatch_array", "write_swatch", "ansi_block", "terminal_has_colour"]
 
@@ -54,25 +52,13 @@ def write_swatch(palettes, path, width=600, height=48):
     Raises
     ------
     HarmonyError
-        ``"<path>: cannot write swatch: <reason>"`` when the file cannot be written.
+        ``"<path>: cannot write the swatch: <reason>"`` when the file cannot be written.
     """
     if hasattr(palettes, "jab"):
         palettes = [palettes]
     buf = io.BytesIO()
     Image.fromarray(swatch_array(palettes, width=width, height=height), "RGB").save(buf, format="PNG")
-    path = Path(path)
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
-    except OSError as exc:
-        raise HarmonyError(f"{path}: cannot write swatch: {exc.strerror or exc}") from None
-    try:
-        with os.fdopen(fd, "wb") as handle:
-            handle.write(buf.getvalue())
-        os.replace(tmp, path)
-    except OSError as exc:
-        Path(tmp).unlink(missing_ok=True)
-        raise HarmonyError(f"{path}: cannot write swatch: {exc.strerror or exc}") from None
-    return path
+    return write_bytes_whole(path, buf.getvalue(), what="swatch")
 
 
 def ansi_block(hex_code, width=2):

@@ -86,9 +86,10 @@ def test_swatch_widths_are_weights(files, tmp_path):
 
 def test_swatch_unwritable(files, tmp_path):
     _, good, *_ = files
-    res = CliRunner().invoke(main, ["palette", "--swatch", str(tmp_path / "no" / "x.png"), str(good)])
+    # A missing folder is made; a folder that is really a file cannot be.
+    res = CliRunner().invoke(main, ["palette", "--swatch", str(good) + "/x.png", str(good)])
     assert res.exit_code == 2
-    assert "cannot write swatch" in res.stderr and "Traceback" not in res.output
+    assert "cannot write the swatch" in res.stderr and "Traceback" not in res.output
 
 
 def test_bad_colours_option(files):
@@ -116,7 +117,7 @@ def test_swatch_failure_leaves_no_partial_file(files, tmp_path):
     _, good, *_ = files
     target = tmp_path / "taken.png"
     target.mkdir()
-    with pytest.raises(HarmonyError, match=r"taken\.png: cannot write swatch: Is a directory$"):
+    with pytest.raises(HarmonyError, match=r"taken\.png: cannot write the swatch: Is a directory$"):
         write_swatch(extract_palette(good), target)
     assert sorted(p.name for p in tmp_path.iterdir()) == ["taken.png"]
 
@@ -144,7 +145,7 @@ def test_swatch_failed_write_keeps_the_older_file(files, tmp_path, monkeypatch):
         raise OSError(28, "No space left on device")
 
     monkeypatch.setattr(harmony.swatch.os, "replace", full_disk)
-    with pytest.raises(HarmonyError, match=r"sw\.png: cannot write swatch: No space left on device"):
+    with pytest.raises(HarmonyError, match=r"sw\.png: cannot write the swatch: No space left on device"):
         write_swatch(extract_palette(good), out)
     assert out.read_bytes() == b"old"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["sw.png"]

@@ -48,3 +48,21 @@ def test_unwritable_targets_are_one_line_errors(tmp_path):
     with pytest.raises(HarmonyError, match=r"folder: cannot write the report: .+$"):
         write_text_whole(folder, "a", what="report")  # the target is a folder: rename fails
     assert _leftovers(tmp_path) == [] and os.listdir(folder) == []
+
+
+def test_bytes_and_callback_writers_share_the_whole_file_rule(tmp_path):
+    from harmony.fileio import write_bytes_whole, write_whole
+
+    out = tmp_path / "a" / "b.bin"
+    assert write_bytes_whole(out, b"\x00\x01", what="blob") == out
+    assert out.read_bytes() == b"\x00\x01"
+
+    def half_then_fail(tmp):
+        with open(tmp, "wb") as handle:
+            handle.write(b"half")
+        raise OSError(28, "No space left on device")
+
+    with pytest.raises(HarmonyError, match=r"b\.bin: cannot write the blob: No space left on device$"):
+        write_whole(out, half_then_fail, what="blob")
+    assert out.read_bytes() == b"\x00\x01"
+    assert sorted(p.name for p in out.parent.iterdir()) == ["b.bin"]
