@@ -14,7 +14,8 @@ References
 ----------
 P. Moon, D. E. Spencer (1944). Geometric formulation of classical color harmony.
     J. Opt. Soc. Am. 34(1):46-59 -- similarity at about 7-12 and contrast at 28-50 steps of the
-    100-step Munsell hue circle, an "ambiguity" zone between (intervals as commonly cited).
+    100-step Munsell hue circle, an "ambiguity" zone between (intervals as commonly cited;
+    volume, issue and pages from memory -- the paper itself was not read).
 L.-C. Ou, M. R. Luo (2006). A colour harmony model for two-colour combinations.
     Color Research & Application 31(3):191-204.
 """
