@@ -140,7 +140,7 @@ COLOUR_STORIES = (
         light=("oat", "#e2d9c6", "beige"),
     ),
     ColourStory(
-        "navy and cream", ("Harvel", "Dunmar", "Ostra"),
+        "navy and cream", ("Olvard", "Dunmar", "Ostra"),
         fabrics=(("navy", "#27365a", "blue"), ("denim", "#4b6386", "blue"), ("cream", "#e9dfca", "white")),
         accents=(("cream", "#ede4d0", "white"), ("sky", "#a9b9cc", "blue"), ("navy", "#2b3b60", "blue")),
         woods=(("ash", "#d0b38b", "natural"),),
@@ -148,7 +148,7 @@ COLOUR_STORIES = (
         light=("cream", "#ece3cf", "white"),
     ),
     ColourStory(
-        "charcoal and mustard", ("Grevin", "Kolmar", "Tarnel"),
+        "charcoal and mustard", ("Ulvessa", "Drennick", "Tarnel"),
         fabrics=(("charcoal", "#3b3c3f", "grey"), ("slate", "#5a5f66", "grey"), ("mustard", "#c9992d", "yellow")),
         accents=(("mustard", "#cc9c30", "yellow"), ("ochre", "#b8812f", "yellow"), ("stone", "#b3ada3", "grey")),
         woods=(("smoked oak", "#5b4636", "brown"),),
@@ -156,7 +156,7 @@ COLOUR_STORIES = (
         light=("stone", "#c9c6bf", "grey"),
     ),
     ColourStory(
-        "blush and walnut", ("Amrel", "Pellin", "Morva"),
+        "blush and walnut", ("Yarsel", "Pellin", "Morva"),
         fabrics=(("blush", "#d6a39b", "pink"), ("rose", "#b47873", "pink"), ("plaster", "#e3cbbd", "beige")),
         accents=(("berry", "#7e3b4a", "red"), ("cream", "#ede3d2", "white"), ("blush", "#dcaaa1", "pink")),
         woods=(("walnut", "#6a442f", "brown"),),
@@ -164,7 +164,7 @@ COLOUR_STORIES = (
         light=("plaster", "#e6d2c5", "beige"),
     ),
     ColourStory(
-        "neutrals", ("Ardel", "Nimbel", "Quen", "Stilo"),
+        "neutrals", ("Kemsel", "Nimbel", "Quen", "Pimsel"),
         fabrics=(("off-white", "#e9e5dc", "white"), ("light grey", "#bcbab4", "grey"),
                  ("stone", "#9f988c", "beige"), ("graphite", "#4a4a4a", "grey")),
         accents=(("black", "#262626", "black"), ("light grey", "#c4c2bc", "grey"), ("off-white", "#ece9e1", "white")),
