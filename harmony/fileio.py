@@ -12,7 +12,8 @@ __all__ = ["write_whole", "write_text_whole", "write_bytes_whole"]
 def write_whole(path, write, what="file"):
     """Let ``write(tmp_path)`` fill a temporary file in ``path``'s folder, then rename it to ``path``.
 
-    Creates missing parent folders. Any failure (full disk, an encoding error, an interrupt)
+    Creates missing parent folders. A new file gets the permissions the umask gives; a replaced
+    file keeps its own. Any failure (full disk, an encoding error, an interrupt)
     removes the temporary file and leaves an older ``path`` as it was; an ``OSError`` becomes a
     :class:`HarmonyError` ``"<path>: cannot write the <what>: <reason>"``. Returns the path.
     """
@@ -26,6 +27,9 @@ def write_whole(path, write, what="file"):
         raise HarmonyError(f"{path}: cannot write the {what}: {exc.strerror or exc}") from None
     try:
         write(tmp)
+        # mkstemp makes the file private (0600); give it the mode a plain open() would have had,
+        # or the mode of the file it replaces, so a web server that read the old feed still can.
+        os.chmod(tmp, _target_mode(path))
         os.replace(tmp, path)
     except BaseException as exc:
         Path(tmp).unlink(missing_ok=True)
@@ -33,6 +37,15 @@ def write_whole(path, write, what="file"):
             raise HarmonyError(f"{path}: cannot write the {what}: {exc.strerror or exc}") from None
         raise
     return path
+
+
+def _target_mode(path):
+    try:
+        return path.stat().st_mode & 0o7777
+    except OSError:
+        umask = os.umask(0)
+        os.umask(umask)
+        return 0o666 & ~umask
 
 
 def write_text_whole(path, text, what="file"):

@@ -66,3 +66,18 @@ def test_bytes_and_callback_writers_share_the_whole_file_rule(tmp_path):
         write_whole(out, half_then_fail, what="blob")
     assert out.read_bytes() == b"\x00\x01"
     assert sorted(p.name for p in out.parent.iterdir()) == ["b.bin"]
+
+
+def test_permissions_follow_the_umask_or_the_replaced_file(tmp_path):
+    # A feed replaced every night must stay readable by the user that serves it (POSIX umask).
+    old = os.umask(0o022)
+    try:
+        fresh = write_text_whole(tmp_path / "new.jsonl", "{}\n")
+        assert fresh.stat().st_mode & 0o777 == 0o644
+        served = tmp_path / "served.jsonl"
+        served.write_text("old\n")
+        served.chmod(0o664)
+        write_text_whole(served, "new\n")
+        assert served.stat().st_mode & 0o777 == 0o664 and served.read_text() == "new\n"
+    finally:
+        os.umask(old)
