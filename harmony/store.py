@@ -169,21 +169,28 @@ class Store:
         """Open the store at ``path``, making an empty one if there is none."""
         return cls(path, create=True)
 
+    def _tables(self):
+        return {r[0] for r in self._db.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+
     def _open(self):
         db = self._db
         db.execute("PRAGMA foreign_keys = ON")
-        tables = {r[0] for r in db.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+        tables = self._tables()
         if not tables:
             if not self._may_create:
                 raise StoreError(f"{self.path}: an empty file, not a palette store; left untouched")
             # WAL: readers never block the writer; a killed writer loses only its open transaction.
             db.execute("PRAGMA journal_mode = WAL")
+            # Another process may be making the same new store right now: look again while
+            # holding the write lock, and make the tables only if they are still not there.
             with self._transaction():
-                for statement in _SCHEMA.split(";"):
-                    if statement.strip():
-                        db.execute(statement)
-                db.execute("INSERT INTO schema_version (version) VALUES (?)", (SCHEMA_VERSION,))
-            tables = {"schema_version"}
+                tables = self._tables()
+                if not tables:
+                    for statement in _SCHEMA.split(";"):
+                        if statement.strip():
+                            db.execute(statement)
+                    db.execute("INSERT INTO schema_version (version) VALUES (?)", (SCHEMA_VERSION,))
+                    tables = {"schema_version"}
         if "schema_version" not in tables:
             raise StoreError(f"{self.path}: an SQLite file, but not a palette store (no schema_version table)")
         row = db.execute("SELECT version FROM schema_version").fetchone()
@@ -447,6 +454,11 @@ class Store:
         settings_key : str
             The extraction settings of this run; reading methods use its palettes from now on.
 
+        Returns
+        -------
+        int
+            Products that were in the store and are not in ``catalogue`` (now removed).
+
         Notes
         -----
         Removed products go; images no longer used by any product go with their palettes and
@@ -473,6 +485,8 @@ class Store:
                     (product.id, position, image, info.abs_path, info.sha256, info.size, info.mtime_ns, info.error)
                 )
         with self._transaction() as db:
+            before = {r[0] for r in db.execute("SELECT id FROM products")}
+            removed = len(before - {p[0] for p in products})
             db.execute("DELETE FROM product_images")
             db.execute("DELETE FROM products")
             db.executemany("INSERT INTO products VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)", products)
@@ -481,6 +495,7 @@ class Store:
             db.execute("DELETE FROM images WHERE sha256 NOT IN (SELECT sha256 FROM product_images WHERE sha256 IS NOT NULL)")
             db.execute("INSERT OR REPLACE INTO meta VALUES ('catalogue_path', ?)", (str(catalogue.path),))
             db.execute("INSERT OR REPLACE INTO meta VALUES ('settings_key', ?)", (settings_key,))
+        return removed
 
     def record(self, results, settings_key):
         """Write one finished chunk of extraction results in one transaction.

@@ -141,15 +141,15 @@ def test_resync_removes_products_and_unused_images(tmp_path):
     rng = np.random.default_rng(6)
     cat, hashes = _catalogue(tmp_path, [("A", "Sofa", ["a.jpg"]), ("B", "Rug", ["b.jpg"])])
     with Store.create(tmp_path / "x.db") as store:
-        store.sync_catalogue(cat, hashes, "k1")
+        assert store.sync_catalogue(cat, hashes, "k1") == 0
         store.record([(_sha("a.jpg"), _palette(rng), None), (_sha("b.jpg"), None, "bad")], "k1")
         assert store.done("k1") == {_sha("a.jpg"), _sha("b.jpg")} and store.done("k2") == set()
         smaller, hashes2 = _catalogue(tmp_path, [("A", "Sofa", ["a.jpg"])])
-        store.sync_catalogue(smaller, hashes2, "k1")
+        assert store.sync_catalogue(smaller, hashes2, "k1") == 1  # B went
         assert [p.id for p in store.products()] == ["A"]
         assert store.counts() == {"products": 1, "images": 1, "palettes": 1, "failures": 0}
         # Another settings key: the old palette stays cached but is not the chosen one.
-        store.sync_catalogue(smaller, hashes2, "k2")
+        assert store.sync_catalogue(smaller, hashes2, "k2") == 0
         assert store.palette("A") is None and store.counts()["palettes"] == 1
 
 
@@ -257,3 +257,47 @@ def test_an_empty_file_is_only_made_a_store_when_asked(tmp_path):
     assert path.read_bytes() == b""
     with Store(path, create=True) as store:
         assert store.products() == []
+
+
+def test_schema_is_made_once_when_another_process_made_it_first(tmp_path, monkeypatch):
+    # The interleaving of two runs on a new file: this one looked before the other committed
+    # the schema (saw no tables), the other then made it. The look inside the write lock must
+    # find the tables and leave them alone (one version row, no "already exists" error).
+    Store.create(tmp_path / "x.db").close()
+    real = Store._tables
+    calls = []
+
+    def stale_first_look(self):
+        calls.append(1)
+        return set() if len(calls) == 1 else real(self)
+
+    monkeypatch.setattr(Store, "_tables", stale_first_look)
+    with Store.create(tmp_path / "x.db") as store:
+        assert store.integrity() == "ok"
+    assert len(calls) == 2
+    with sqlite3.connect(tmp_path / "x.db") as db:
+        assert db.execute("SELECT version FROM schema_version").fetchall() == [(SCHEMA_VERSION,)]
+
+
+def test_many_connections_creating_one_new_store_at_once(tmp_path):
+    import threading
+
+    path = tmp_path / "new.db"
+    barrier = threading.Barrier(6)
+    errors = []
+
+    def make():
+        barrier.wait()
+        try:
+            Store.create(path).close()
+        except StoreError as exc:
+            errors.append(str(exc))
+
+    threads = [threading.Thread(target=make) for _ in range(6)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join(timeout=30)
+    assert errors == []
+    with sqlite3.connect(path) as db:
+        assert db.execute("SELECT version FROM schema_version").fetchall() == [(SCHEMA_VERSION,)]
