@@ -10,9 +10,16 @@ Both engines run the same chunk function: ``"local"`` on a
 :class:`concurrent.futures.ProcessPoolExecutor`, ``"dask"`` through a
 :class:`distributed.Client` (a :class:`distributed.LocalCluster` when no scheduler address is
 given). Dask workers read the images by path, so they must see the same files (shared storage).
+
+One store has one writer at a time: a run holds an exclusive ``flock`` on a lock file beside the
+store (``harmony.db.lock``) and a second run on the same store stops at once with an error. The
+kernel drops the lock when the process ends, however it ends, so a killed run never leaves a
+stale lock. Readers (feeds, reports, exports) take no lock and read the last committed state.
 """
 
+import contextlib
 import dataclasses
+import fcntl
 import hashlib
 import math
 import os
@@ -25,7 +32,7 @@ from pathlib import Path
 from tqdm import tqdm
 
 from .catalogue import Catalogue, read_catalogue
-from .errors import CatalogueError, HarmonyError, ImageError
+from .errors import CatalogueError, HarmonyError, ImageError, StoreError
 from .store import FileHash, Store
 
 __all__ = [
@@ -34,6 +41,8 @@ __all__ = [
     "MAX_CHUNK",
     "SCHEDULER_TIMEOUT",
     "DEFAULT_DB_NAME",
+    "LOCK_SUFFIX",
+    "writer_lock",
     "run_extraction",
     "hash_images",
     "plan_chunks",
@@ -43,6 +52,8 @@ __all__ = [
 ENGINES = ("local", "dask")
 #: Name of the store file beside the catalogue when no path is given.
 DEFAULT_DB_NAME = "harmony.db"
+#: Added to the store's file name to name the lock file of its writer (``harmony.db.lock``).
+LOCK_SUFFIX = ".lock"
 #: Upper bound of images per chunk: at most this much work is lost when a run is killed.
 MAX_CHUNK = 32
 #: Seconds to wait for a Dask scheduler given by address.
@@ -57,6 +68,8 @@ class ExtractionSummary:
     ----------
     products : int
         Valid products in the catalogue (now in the store).
+    removed : int
+        Products the store held before this run that the catalogue no longer has (now gone).
     images : int
         Distinct images (by content hash) of those products, plus unreadable files.
     new : int
@@ -79,6 +92,7 @@ class ExtractionSummary:
     """
 
     products: int
+    removed: int
     images: int
     new: int
     cached: int
@@ -96,7 +110,7 @@ class ExtractionSummary:
         return (
             f"{self.products} products, {self.images} images: {self.new} new, {self.cached} cached, "
             f"{self.failed} failed, {self.scene_only} scene-only, {self.no_palette} without palette, "
-            f"{self.skipped_rows} rows skipped; {self.seconds:.1f} s "
+            f"{self.removed} removed, {self.skipped_rows} rows skipped; {self.seconds:.1f} s "
             f"({self.engine}, {self.workers} worker{'' if self.workers == 1 else 's'})"
         )
 
@@ -104,6 +118,43 @@ class ExtractionSummary:
         out = dataclasses.asdict(self)
         out["db_path"] = str(self.db_path)
         return out
+
+
+@contextlib.contextmanager
+def writer_lock(db_path):
+    """Hold the store's writer lock for the ``with`` block, or fail at once if another has it.
+
+    Parameters
+    ----------
+    db_path : str or pathlib.Path
+        The store; the lock file is the same path plus :data:`LOCK_SUFFIX`.
+
+    Raises
+    ------
+    StoreError
+        Another process holds the lock (``another extract is writing this store``), or the lock
+        file cannot be made.
+
+    Notes
+    -----
+    A non-blocking exclusive ``flock`` (POSIX ``flock(2)``): the kernel releases it when the
+    holder closes the file or dies, even by SIGKILL. The empty lock file is left in place, since
+    removing it could let two runs lock two different files of the same name.
+    """
+    db_path = Path(db_path)
+    lock_path = db_path.with_name(db_path.name + LOCK_SUFFIX)
+    try:
+        handle = open(lock_path, "a+b")
+    except OSError as exc:
+        raise StoreError(f"{lock_path}: cannot make the lock file: {exc.strerror or exc}") from None
+    with handle:
+        try:
+            fcntl.flock(handle.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            raise StoreError(f"{db_path}: another extract is writing this store; try again when it ends") from None
+        except OSError as exc:
+            raise StoreError(f"{lock_path}: cannot lock: {exc.strerror or exc}") from None
+        yield lock_path
 
 
 def hash_images(catalogue, known=None):
@@ -251,7 +302,8 @@ def run_extraction(
         The catalogue cannot be read, or it has no valid product row (the store is then left as
         it was: an empty export never empties the store).
     StoreError
-        The store is of another schema version or not a store.
+        The store is of another schema version or not a store, or another run is writing it
+        (see :func:`writer_lock`).
     HarmonyError
         Bad ``engine`` / ``workers``, Dask missing or its scheduler unreachable.
     """
@@ -274,9 +326,9 @@ def run_extraction(
         raise CatalogueError(f"{cat.path}: no valid product ({detail}); store left unchanged")
     db_path = Path(db_path) if db_path is not None else cat.path.parent / DEFAULT_DB_NAME
 
-    with Store(db_path, create=True) as store:
+    with writer_lock(db_path), Store(db_path, create=True) as store:
         hashes = hash_images(cat, store.file_hashes())
-        store.sync_catalogue(cat, hashes, key)
+        removed = store.sync_catalogue(cat, hashes, key)
         done = store.done(key)
         todo, cached = {}, set()
         for info in hashes.values():
@@ -307,6 +359,7 @@ def run_extraction(
         distinct = len({info.sha256 for info in hashes.values() if info.sha256 is not None})
     return ExtractionSummary(
         products=len(cat.products),
+        removed=removed,
         images=distinct + unreadable,
         new=new,
         cached=len(cached),

@@ -443,3 +443,145 @@ def test_dask_without_scheduler_starts_its_own_local_cluster(tmp_path):
     assert (dask.engine, dask.new, dask.failed) == ("dask", 4, 0)
     with Store(tmp_path / "local.db") as a, Store(tmp_path / "dask.db") as b:
         assert _as_arrays(a.palettes()) == _as_arrays(b.palettes())
+
+
+# -- one writer per store, readers alongside; --strict and image failures; removed products -----
+
+
+def test_a_second_extract_is_refused_while_one_runs_and_readers_keep_working(tmp_path):
+    from click.testing import CliRunner
+
+    from harmony.cli import main
+
+    n = 20
+    csv = _shop(tmp_path, n=n, rng=np.random.default_rng(4))
+    db = tmp_path / "s.db"
+    _run(csv, tmp_path / "other.db")  # a finished run on another store holds no lock on this one
+    child = subprocess.Popen(
+        [sys.executable, "-c", _CHILD.format(tests=str(TESTS), csv=str(csv), db=str(db))], start_new_session=True
+    )
+    runner = CliRunner()
+    try:
+        deadline = time.monotonic() + 30
+        seen = 0
+        while time.monotonic() < deadline and child.poll() is None and seen < 2:
+            if db.exists():
+                try:
+                    with sqlite3.connect(f"file:{db}?mode=ro", uri=True) as ro:
+                        seen = ro.execute("SELECT COUNT(*) FROM palettes").fetchone()[0]
+                except sqlite3.OperationalError:
+                    seen = 0  # schema not created yet
+            time.sleep(0.02)
+        assert child.poll() is None and seen >= 2, "the run ended before the checks"
+        second = runner.invoke(main, ["extract", str(csv), "--workers", "1", "--db", str(db)])
+        assert second.exit_code == 2
+        assert second.stderr == f"error: {db}: another extract is writing this store; try again when it ends\n"
+        # WAL (SQLite documentation, "Write-Ahead Logging"): readers are not blocked by the writer.
+        export = runner.invoke(main, ["palettes", "--db", str(db)])
+        assert export.exit_code == 0, export.output
+        assert 2 <= len(export.stdout.splitlines()) < n
+    finally:
+        if child.poll() is None:
+            os.killpg(child.pid, signal.SIGKILL)
+        child.wait(timeout=10)
+    assert child.returncode == -signal.SIGKILL, "the run ended before it could be killed"
+    # The lock went with the killed process: the next run takes it and finishes the rest.
+    rest = _run(csv, db)
+    assert rest.new + rest.cached == n and rest.new > 0
+
+
+def test_extract_on_a_new_store_while_the_lock_is_held_writes_nothing(tmp_path):
+    from click.testing import CliRunner
+
+    from harmony.cli import main
+    from harmony.engine import writer_lock
+
+    csv = _shop(tmp_path, n=1)
+    db = tmp_path / "new.db"
+    with writer_lock(db) as lock_path:
+        assert lock_path == tmp_path / "new.db.lock"
+        result = CliRunner().invoke(main, ["extract", str(csv), "--db", str(db)])
+        assert result.exit_code == 2 and "another extract is writing this store" in result.stderr
+        assert not db.exists()
+        with pytest.raises(StoreError, match=r"new\.db: another extract is writing this store"):
+            _run(csv, db)
+    assert _run(csv, db).new == 1  # released at the end of the block
+
+
+_RACER = """
+import sys
+sys.path.insert(0, {tests!r})
+from click.testing import CliRunner
+from harmony.cli import main
+from test_engine import QuadSettings, quad_extract
+import harmony.engine as engine
+real = engine.run_extraction
+engine.run_extraction = lambda *a, **kw: real(*a, settings=QuadSettings(), extractor=quad_extract, progress=False, **kw)
+import harmony.cli.extract_cmd as cmd
+cmd.run_extraction = engine.run_extraction
+result = CliRunner().invoke(main, ["extract", {csv!r}, "--workers", "1", "--db", {db!r}])
+sys.stdout.write(result.output)
+sys.exit(result.exit_code)
+"""
+
+
+def test_two_extracts_started_together_on_a_new_store(tmp_path):
+    csv = _shop(tmp_path, n=4)
+    db = tmp_path / "c.db"
+    code = _RACER.format(tests=str(TESTS), csv=str(csv), db=str(db))
+    runs = [subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True) for _ in range(2)]
+    outs = [(r.communicate(timeout=60)[0], r.returncode) for r in runs]
+    # Either both ran one after the other, or one was told plainly that the other was writing;
+    # never an SQLite error about the schema.
+    assert any(code == 0 for _out, code in outs), outs
+    for out, code in outs:
+        assert "already exists" not in out and "Traceback" not in out
+        if code != 0:
+            assert code == 2 and "another extract is writing this store" in out, out
+    with Store(db) as store:
+        assert store.integrity() == "ok" and store.counts()["palettes"] == 4
+
+
+def test_strict_exits_1_when_a_product_has_no_palette_after_storing_everything(tmp_path):
+    from click.testing import CliRunner
+
+    from harmony.cli import main
+
+    csv = _studio_shop(tmp_path, n=2)
+    (tmp_path / "img" / "broken.jpg").write_bytes(b"not a picture at all")
+    with open(csv, "a") as f:
+        f.write("B1,Broken,Rug,5,1,img/broken.jpg\n")
+    db = tmp_path / "s.db"
+    runner = CliRunner()
+    strict = runner.invoke(main, ["extract", str(csv), "--workers", "1", "--db", str(db), "--strict"])
+    assert strict.exit_code == 1, strict.output
+    assert "warning: product B1: no palette from" in strict.stderr
+    assert strict.stderr.splitlines()[-1] == (
+        "error: 1 product(s) without a palette (--strict); the store is up to date, the warnings above say why"
+    )
+    assert "3 products, 3 images: 2 new, 0 cached, 1 failed" in strict.stdout
+    with Store(db) as store:  # everything was recorded before the exit status was decided
+        assert len(store) == 3 and sorted(store.palettes()) == ["S0", "S1"]
+        assert [f[0] for f in store.failures()] == ["B1"]
+    # The cached failure still counts on the next strict run; without --strict the status is 0.
+    again = runner.invoke(main, ["extract", str(csv), "--workers", "1", "--db", str(db), "--strict"])
+    assert again.exit_code == 1 and "0 new, 3 cached" in again.stdout
+    lenient = runner.invoke(main, ["extract", str(csv), "--workers", "1", "--db", str(db)])
+    assert lenient.exit_code == 0, lenient.output
+    csv.write_text("\n".join(csv.read_text().splitlines()[:-1]) + "\n")  # drop the broken product
+    clean = runner.invoke(main, ["extract", str(csv), "--workers", "1", "--db", str(db), "--strict"])
+    assert clean.exit_code == 0, clean.output
+    assert "0 without palette, 1 removed" in clean.stdout
+
+
+def test_a_truncated_catalogue_reports_the_removed_products(tmp_path):
+    csv = _shop(tmp_path, n=6)
+    first = _run(csv, tmp_path / "s.db")
+    assert first.removed == 0 and ", 0 removed, " in first.line()
+    csv.write_text("\n".join(csv.read_text().splitlines()[:3]) + "\n")  # header and two rows
+    cut = _run(csv, tmp_path / "s.db")
+    assert (cut.products, cut.removed, cut.new, cut.cached) == (2, 4, 0, 2)
+    assert cut.line().startswith("2 products, 2 images: ") and ", 4 removed, " in cut.line()
+    assert cut.to_dict()["removed"] == 4
+    with Store(tmp_path / "s.db") as store:
+        assert [p.id for p in store.products()] == ["P000", "P001"]

@@ -36,9 +36,15 @@ PALETTE_CSV_COLUMNS = (
               help="Local process pool, or a Dask cluster.")
 @click.option("--scheduler", metavar="ADDRESS", default=None,
               help="Dask scheduler address (tcp://host:8786); without it --engine dask starts a local cluster.")
-@click.option("--strict", is_flag=True, help="Any catalogue problem is an error; nothing is written.")
+@click.option("--strict", is_flag=True,
+              help="Any catalogue problem is an error and nothing is written; any product left without "
+                   "a palette exits with status 1 after the run is stored.")
 def extract(catalogue, db_path, workers, engine, scheduler, strict):
-    """Read CATALOGUE (CSV or JSONL), extract the palettes of new or changed images into the store."""
+    """Read CATALOGUE (CSV or JSONL), extract the palettes of new or changed images into the store.
+
+    Exit status: 0 done; 2 an error, nothing changed (with --strict: any catalogue problem);
+    1 with --strict only: the run is stored in full but some products have no palette.
+    """
     if scheduler and engine != "dask":
         raise HarmonyError("--scheduler needs --engine dask")
     cat = read_catalogue(catalogue)
@@ -55,6 +61,12 @@ def extract(catalogue, db_path, workers, engine, scheduler, strict):
     if len(failures) > SHOWN_FAILURES:
         click.echo(f"warning: ... and {len(failures) - SHOWN_FAILURES} more image(s) without a palette", err=True)
     click.echo(summary.line())
+    if strict and summary.no_palette:
+        fail(
+            f"{summary.no_palette} product(s) without a palette (--strict); the store is up to date, "
+            f"the warnings above say why",
+            code=1,
+        )
 
 
 def _palette_rows(store):
