@@ -617,6 +617,8 @@ class Evaluation:
     no_palette : tuple of str
     level : float
         Confidence level of the intervals; ``resamples`` bootstrap resamples.
+    skipped : tuple of (str, int)
+        Kinds of event of the log that had no weight, with their row counts (left out).
     """
 
     results: tuple
@@ -630,6 +632,7 @@ class Evaluation:
     level: float = 0.95
     resamples: int = 1000
     k: int = CUTOFF
+    skipped: tuple = ()
 
     def to_dict(self):
         """The JSON of ``harmony evaluate --json``.
@@ -637,8 +640,9 @@ class Evaluation:
         ``events``, ``anchors`` and ``results`` (each with ``name``, ``auc``, ``ndcg_at_10``,
         ``hit_at_10``, ``auc_ci``), plus what a reader needs to trust them: each result's
         ``kind`` and the intervals of the other two metrics; the ``coverage`` with the counts it
-        comes from (``products_seen``, ``queries``); the ids left out (``unknown_products`` with
-        their row counts, ``no_palette``); and how the intervals were drawn
+        comes from (``products_seen``, ``queries``); what was left out (``unknown_products`` with
+        their row counts, ``no_palette``, ``skipped_events``: row counts of the kinds of event
+        without a weight); and how the intervals were drawn
         (``confidence_level``, ``bootstrap_resamples``).
         """
         return {
@@ -650,6 +654,7 @@ class Evaluation:
             "coverage": self.coverage,
             "unknown_products": {pid: n for pid, n in self.unknown},
             "no_palette": list(self.no_palette),
+            "skipped_events": {kind: n for kind, n in self.skipped},
             "confidence_level": self.level,
             "bootstrap_resamples": self.resamples,
         }
@@ -661,7 +666,37 @@ def _per_anchor(values, owner, n_anchors):
     return sums / counts
 
 
-def evaluate(queries, methods, products, rng, resamples=1000, level=0.95, unknown=(), progress=False):
+def _why_nothing(queries, unknown, skipped):
+    """Why a log formed no query, as the end of the one-line error."""
+    if queries.products_seen == 0 and unknown and not queries.no_palette:
+        n = len(unknown)
+        ids = "the only product id" if n == 1 else f"all {n} product ids"
+        return f"nothing to evaluate: {ids} in the log {'is' if n == 1 else 'are'} unknown to the store (most frequent: {unknown[0][0]})"
+    if queries.products_seen == 0 and queries.no_palette:
+        n = len(queries.no_palette)
+        return (
+            f"nothing to evaluate: no known product of the log has a palette in the store "
+            f"({n} without one, first: {queries.no_palette[0]})"
+        )
+    if queries.events == 0:
+        left = f" (kinds without a weight: {', '.join(f'{k} {n}' for k, n in skipped)})" if skipped else ""
+        return f"nothing to evaluate: no row of the log is an event with a weight above 0{left}"
+    return (
+        "no product of the log has a partner of another category in the same session with "
+        "in-stock alternatives beside it; nothing to evaluate"
+    )
+
+
+def _duplicates(names):
+    seen, twice = set(), []
+    for name in names:
+        if name in seen and name not in twice:
+            twice.append(name)
+        seen.add(name)
+    return twice
+
+
+def evaluate(queries, methods, products, rng, resamples=1000, level=0.95, unknown=(), progress=False, skipped=()):
     """Score every query with every method and summarise.
 
     Parameters
@@ -678,9 +713,12 @@ def evaluate(queries, methods, products, rng, resamples=1000, level=0.95, unknow
     level : float
         Confidence level of the percentile intervals, in (0, 1).
     unknown : tuple of (str, int)
-        Passed through from the log, for the report.
+        Passed through from the log (``EventLog.unknown``), for the report and for the error
+        when no query could be formed.
     progress : bool
         Show a progress bar on stderr.
+    skipped : tuple of (str, int)
+        Passed through from the log (``EventLog.skipped``), likewise.
 
     Returns
     -------
@@ -689,22 +727,23 @@ def evaluate(queries, methods, products, rng, resamples=1000, level=0.95, unknow
     Raises
     ------
     EventsError
-        When no query could be formed (no product has a positive of another category beside an
-        in-stock negative).
+        When no query could be formed; the message says why (every product id unknown to the
+        store, no palettes, no weighted event, or no product with a positive of another category
+        beside an in-stock negative).
+    HarmonyError
+        When two methods share a name (the message names the shared ones).
     """
     if not isinstance(rng, np.random.Generator):
         raise TypeError("rng must be a numpy.random.Generator")
     if int(resamples) < 1 or not 0.0 < float(level) < 1.0:
         raise ValueError(f"need resamples >= 1 and 0 < level < 1, got {resamples} and {level}")
-    if not queries.queries:
-        raise EventsError(
-            "no product of the log has a partner of another category in the same session with "
-            "in-stock alternatives beside it; nothing to evaluate"
-        )
-    by_id = products if isinstance(products, dict) else {p.id: p for p in products}
     names = [m.name for m in methods]
-    if len(set(names)) != len(names):
-        raise HarmonyError(f"two methods share a name: {', '.join(names)}")
+    twice = _duplicates(names)
+    if twice:
+        raise HarmonyError(f"more than one method is named {', '.join(repr(n) for n in twice)}")
+    if not queries.queries:
+        raise EventsError(_why_nothing(queries, tuple(unknown), tuple(skipped)))
+    by_id = products if isinstance(products, dict) else {p.id: p for p in products}
 
     anchor_ids = sorted({q.anchor for q in queries.queries})
     index = {a: i for i, a in enumerate(anchor_ids)}
@@ -757,6 +796,7 @@ def evaluate(queries, methods, products, rng, resamples=1000, level=0.95, unknow
         level=float(level),
         resamples=int(resamples),
         k=CUTOFF,
+        skipped=tuple(skipped),
     )
 
 

@@ -8,13 +8,16 @@ holds one interaction:
 ``product``
     the product id, as in the catalogue.
 ``event``
-    ``view``, ``cart`` or ``purchase`` (any case); :data:`DEFAULT_EVENT_WEIGHTS` gives each a
-    weight, and a caller may pass other weights (a weight of 0 ignores that kind of event).
+    the kind of interaction, any word (any case): :data:`DEFAULT_EVENT_WEIGHTS` weighs ``view``,
+    ``cart`` and ``purchase``, and a caller may weigh other kinds too (``click``, ``wishlist``,
+    ...; a weight of 0 ignores that kind). Rows of a kind without a weight are not an error (real
+    logs hold more kinds than an evaluation needs): they are left out, counted by kind and reported.
 ``timestamp`` (optional)
     ISO 8601 (``2026-03-01T10:15:00Z``) or seconds since the Unix epoch; kept for ordering.
 
-Other columns are ignored. Every problem is reported with the file and line; ids that are not in
-the catalogue are not an error (logs outlive products) but are counted and reported.
+Other columns are ignored. Every malformed row (empty session, product or event, bad timestamp)
+is reported with the file and line; ids that are not in the catalogue are not an error (logs
+outlive products) but are counted and reported.
 """
 
 import csv
@@ -71,9 +74,15 @@ class EventLog:
         Number of data rows in the file.
     unknown : tuple of (str, int)
         Product ids not in the catalogue with the number of rows that named them, most frequent
-        first; their rows are left out of ``events``.
+        first (ties in order of first appearance); their rows are left out of ``events``. Only
+        rows that would otherwise have been kept are looked up (a weighted kind of event).
     ignored : int
         Rows left out because their kind of event has weight 0.
+    skipped : tuple of (str, int)
+        Kinds of event that have no weight, with the number of rows of each, most frequent
+        first (ties in order of first appearance); their rows are left out of ``events``.
+    weights : dict of str to float
+        The weight of each kind of event used.
     """
 
     path: str
@@ -82,11 +91,17 @@ class EventLog:
     unknown: tuple = ()
     ignored: int = 0
     weights: dict = field(default_factory=lambda: dict(DEFAULT_EVENT_WEIGHTS))
+    skipped: tuple = ()
 
     @property
     def unknown_rows(self):
         """Rows that named a product id not in the catalogue."""
         return sum(n for _, n in self.unknown)
+
+    @property
+    def skipped_rows(self):
+        """Rows left out because their kind of event has no weight."""
+        return sum(n for _, n in self.skipped)
 
     def sessions(self):
         """Each session's products with the strongest weight the session gave each of them.
@@ -109,12 +124,16 @@ class EventLog:
 
 
 def parse_event_weights(items, where="--event-weight"):
-    """Turn ``["purchase=5", "view=0.5"]`` into a full weight table over :data:`DEFAULT_EVENT_WEIGHTS`.
+    """Turn ``["purchase=5", "wishlist=2"]`` into a weight table: :data:`DEFAULT_EVENT_WEIGHTS` updated.
+
+    An item may name any kind of event (``click=0.5``), not only the default ones; a weight of 0
+    ignores that kind. Kinds are compared without case.
 
     Raises
     ------
     EventsError
-        For an item without ``=``, an unknown kind, or a weight that is not a finite number >= 0.
+        For an item without ``=`` or without a kind, or a weight that is not a finite number >= 0,
+        or when every weight is 0.
     """
     weights = dict(DEFAULT_EVENT_WEIGHTS)
     for item in items:
@@ -122,8 +141,8 @@ def parse_event_weights(items, where="--event-weight"):
         name = name.strip().casefold()
         if not sep:
             raise EventsError(f"{where}: expected KIND=WEIGHT, got {item!r}")
-        if name not in weights:
-            raise EventsError(f"{where}: unknown event kind {name!r} (known: {', '.join(sorted(weights))})")
+        if not name:
+            raise EventsError(f"{where}: no event kind before '=' in {item!r}")
         try:
             weights[name] = float(value)
         except ValueError:
@@ -223,11 +242,11 @@ def read_events(path, weights=None, known_products=None):
     path : str or Path
         The log file.
     weights : mapping of str to float, optional
-        Weight of each event kind; kinds not in the mapping are errors. Default
-        :data:`DEFAULT_EVENT_WEIGHTS`.
+        Weight of each event kind (compared without case). Rows of kinds not in the mapping are
+        left out and counted in ``EventLog.skipped``. Default :data:`DEFAULT_EVENT_WEIGHTS`.
     known_products : collection of str, optional
         The catalogue's product ids. Rows naming other ids are counted in ``EventLog.unknown``
-        and left out.
+        and left out (only rows of a kind with a weight above 0 are looked up).
 
     Returns
     -------
@@ -237,7 +256,7 @@ def read_events(path, weights=None, known_products=None):
     ------
     EventsError
         When the file is missing or unreadable, lacks a required column, has no data rows, or has
-        rows with an empty session or product, an unknown event kind or a bad timestamp. The
+        rows with an empty session, product or event, or a bad timestamp. The
         message names the file and the line of each bad row (the first few, and how many in all).
     """
     path = Path(path)
@@ -256,7 +275,7 @@ def read_events(path, weights=None, known_products=None):
         raise EventsError(f"{path}: unknown log format {path.suffix!r}, expected .csv or .jsonl")
 
     known = None if known_products is None else set(known_products)
-    events, problems, unknown = [], [], Counter()
+    events, problems, unknown, skipped = [], [], Counter(), Counter()
     n_rows = ignored = 0
     try:
         for line, row in rows:
@@ -273,19 +292,22 @@ def read_events(path, weights=None, known_products=None):
             if not product:
                 problems.append(f"line {line}: empty product")
                 continue
-            if kind not in weights:
-                problems.append(f"line {line}: event {kind!r} is not one of {', '.join(sorted(weights))}")
+            if not kind:
+                problems.append(f"line {line}: empty event")
                 continue
             try:
                 stamp = _parse_timestamp(row.get("timestamp"))
             except ValueError as exc:
                 problems.append(f"line {line}: {exc}")
                 continue
-            if known is not None and product not in known:
-                unknown[product] += 1
+            if kind not in weights:
+                skipped[kind] += 1
                 continue
             if weights[kind] <= 0:
                 ignored += 1
+                continue
+            if known is not None and product not in known:
+                unknown[product] += 1
                 continue
             events.append(Event(session, product, kind, float(weights[kind]), stamp, line))
     except UnicodeDecodeError as exc:
@@ -306,7 +328,13 @@ def read_events(path, weights=None, known_products=None):
         path=str(path),
         events=tuple(events),
         rows=n_rows,
-        unknown=tuple(sorted(unknown.items(), key=lambda kv: (-kv[1], kv[0]))),
+        unknown=_by_count(unknown),
         ignored=ignored,
         weights=dict(weights),
+        skipped=_by_count(skipped),
     )
+
+
+def _by_count(counter):
+    """``((key, n), ...)`` most frequent first; a stable sort keeps ties in order of first appearance."""
+    return tuple(sorted(counter.items(), key=lambda kv: -kv[1]))

@@ -76,7 +76,7 @@ def test_json_output_has_the_documented_keys(shop):
     # Every extra key is deliberate (coverage and what was left out, how intervals were drawn).
     assert set(data) == {
         "events", "anchors", "results", "products_seen", "queries", "coverage", "unknown_products",
-        "no_palette", "confidence_level", "bootstrap_resamples",
+        "no_palette", "skipped_events", "confidence_level", "bootstrap_resamples",
     }
     assert data["coverage"] == pytest.approx(data["anchors"] / data["products_seen"])
     assert data["bootstrap_resamples"] == 200 and data["confidence_level"] == 0.95
@@ -90,6 +90,7 @@ def test_json_output_has_the_documented_keys(shop):
     assert by["complementary_only"]["auc"] > 0.8 > 0.2 > by["complementary_inverted"]["auc"]
     assert by["random order"]["auc"] == pytest.approx(0.5)
     assert data["unknown_products"] == {"GONE1": 2, "GONE2": 1}
+    assert data["skipped_events"] == {}
 
 
 def test_anchor_and_event_counts(shop):
@@ -136,15 +137,25 @@ def test_event_weights_option(shop):
         (["--db", "{tmp}/none.db", "--events", "{log}"], r"error: .*none.db: no palette store here"),
         (["--db", "{db}", "--events", "{tmp}/missing.csv"], r"error: .*missing.csv: no such file"),
         (["--db", "{db}", "--events", "{log}", "--rules", "{tmp}/nope.toml"], r"error: .*nope.toml"),
-        (["--db", "{db}", "--events", "{log}", "--event-weight", "click=2"], r"error: --event-weight: unknown event kind 'click'"),
-        (["--db", "{db}", "--events", "{bad}"], r"error: .*bad.csv: 1 bad row: line 3: event 'like'"),
+        (["--db", "{db}", "--events", "{log}", "--event-weight", "click=-2"],
+         r"error: --event-weight: weight of 'click' must be a finite number >= 0"),
+        (["--db", "{db}", "--events", "{bad}"], r"error: .*bad.csv: 1 bad row: line 3: empty product"),
+        (["--db", "{db}", "--events", "{ghosts}"],
+         r"^error: nothing to evaluate: all 3 product ids in the log are unknown to the store \(most frequent: GONE2\)$"),
+        # The same file twice, also under another spelling: only that file is named.
+        (["--db", "{db}", "--events", "{log}", "--rules", RIGHT, "--rules", WRONG, "--rules", RIGHT],
+         r"^error: --rules: \S*complementary_only.toml is given twice; each rules file is evaluated once$"),
+        (["--db", "{db}", "--events", "{log}", "--rules", RIGHT, "--rules", str(DATA / ".." / "eval" / "complementary_only.toml")],
+         r"^error: --rules: \S*eval/\.\./eval/complementary_only.toml is given twice \(as '\S*complementary_only.toml' before\)"),
     ],
 )
 def test_errors_are_one_line(shop, tmp_path, args, match):
     db, log = shop
     bad = tmp_path / "bad.csv"
-    bad.write_text("session,product,event\ns,S01,view\ns,C01,like\n")
-    args = [a.format(tmp=tmp_path, db=db, log=log, bad=bad) for a in args]
+    bad.write_text("session,product,event\ns,S01,view\ns,,like\n")
+    ghosts = tmp_path / "ghosts.csv"
+    ghosts.write_text("session,product,event\ns,GONE1,view\ns,GONE2,view\nt,GONE2,cart\nt,GONE3,view\nt,S01,wishlist\n")
+    args = [a.format(tmp=tmp_path, db=db, log=log, bad=bad, ghosts=ghosts) for a in args]
     res = run("evaluate", *args)
     assert res.exit_code == 2
     assert re.search(match, res.output), res.output
@@ -163,3 +174,46 @@ def test_page_escapes_names_and_reports_unwritable_out(shop, tmp_path):
     res = run("evaluate", "--db", db, "--events", log, "--rules", RIGHT, "--out", log / "page.html", "--resamples", 20)
     assert res.exit_code == 2
     assert re.search(r"^error: .*page.html: cannot write the evaluation page", res.output), res.output
+
+
+def with_other_kinds(log, tmp_path):
+    """The shop's log with rows of kinds the default weights do not know, spread through it."""
+    lines = log.read_text().splitlines()
+    extra = ["s1,C03,wishlist,", "s2,S05,click,", "s3,C07,wishlist,", "z,S01,WishList,2026-01-02T09:00:00"]
+    out = tmp_path / "kinds.csv"
+    out.write_text("\n".join(lines[:5] + extra[:2] + lines[5:40] + extra[2:] + lines[40:]) + "\n")
+    return out
+
+
+def test_kinds_without_a_weight_are_reported_not_fatal(shop, tmp_path):
+    db, log = shop
+    kinds = with_other_kinds(log, tmp_path)
+    base = ["evaluate", "--db", db, "--rules", RIGHT, "--resamples", 50]
+    res = run(*base, "--events", kinds)
+    assert res.exit_code == 0, res.output
+    warnings = [line for line in res.output.splitlines() if "without a weight" in line]
+    assert warnings == ["4 rows of event kinds without a weight left out (wishlist 3, click 1); "
+                        "weigh a kind with --event-weight KIND=W"]
+    # Left out, the extra rows change nothing: the same numbers as on the plain log.
+    plain = json.loads(run(*base, "--events", log, "--json").output)
+    data = json.loads(run(*base, "--events", kinds, "--json").output)
+    assert data["skipped_events"] == {"wishlist": 3, "click": 1}
+    assert data["results"] == plain["results"] and data["events"] == plain["events"]
+
+
+def test_event_weight_names_any_kind(shop, tmp_path):
+    db, log = shop
+    kinds = with_other_kinds(log, tmp_path)
+    base = ["evaluate", "--db", db, "--events", kinds, "--rules", RIGHT, "--resamples", 50, "--json"]
+    # A weight of 0 ignores the kind without a warning; the rest is still skipped and counted.
+    res = run(*base, "--event-weight", "wishlist=0")
+    assert res.exit_code == 0, res.output
+    data = json.loads(res.output)
+    assert data["skipped_events"] == {"click": 1}
+    assert data["events"] == 80
+    # A weight above 0 keeps its rows as interactions.
+    data = json.loads(run(*base, "--event-weight", "wishlist=2", "--event-weight", "CLICK=0.5").output)
+    assert data["skipped_events"] == {} and data["events"] == 84
+    res = run("evaluate", "--db", db, "--events", kinds, "--rules", RIGHT, "--resamples", 50,
+              "--event-weight", "wishlist=0", "--event-weight", "click=0")
+    assert res.exit_code == 0 and "without a weight" not in res.output, res.output

@@ -9,7 +9,7 @@ from scipy.stats import wasserstein_distance
 from sklearn.metrics import ndcg_score, roc_auc_score
 
 from harmony.catalogue import Product
-from harmony.errors import EventsError
+from harmony.errors import EventsError, HarmonyError
 from harmony.evaluate import (
     ColourAttributeMethod,
     RandomMethod,
@@ -312,6 +312,49 @@ def test_nothing_to_evaluate_is_a_clear_error(tmp_path):
     q = build_queries(read_events(path), products)
     with pytest.raises(EventsError, match="nothing to evaluate"):
         evaluate(q, [RandomMethod()], products, np.random.default_rng(0))
+
+
+@pytest.mark.parametrize(
+    "rows, palettes, match",
+    [
+        # Every id unknown: the count of distinct ids and the most frequent one are named.
+        ("a,X9,view\na,X7,view\nb,X7,cart\nb,X8,view\n", None,
+         r"^nothing to evaluate: all 3 product ids in the log are unknown to the store \(most frequent: X7\)$"),
+        ("a,X9,view\n", None, r"^nothing to evaluate: the only product id in the log is unknown to the store \(most frequent: X9\)$"),
+        # Known products, but the store has no palette for any of them.
+        ("a,S1,view\na,R1,view\n", {},
+         r"^nothing to evaluate: no known product of the log has a palette in the store \(2 without one, first: R1\)$"),
+        # Every row of a kind without a weight.
+        ("a,S1,like\na,R1,like\nb,R1,share\n", None,
+         r"^nothing to evaluate: no row of the log is an event with a weight above 0 \(kinds without a weight: like 2, share 1\)$"),
+    ],
+)
+def test_nothing_to_evaluate_says_why(tmp_path, rows, palettes, match):
+    path = tmp_path / "log.csv"
+    path.write_text("session,product,event\n" + rows)
+    products = [Product("S1", "Sofa", 1.0), Product("R1", "Rug", 1.0), Product("R2", "Rug", 1.0)]
+    log = read_events(path, known_products={p.id for p in products})
+    q = build_queries(log, products, palettes)
+    with pytest.raises(EventsError, match=match):
+        evaluate(q, [RandomMethod()], products, np.random.default_rng(0), unknown=log.unknown, skipped=log.skipped)
+
+
+def test_shared_method_names_are_named_alone(tmp_path):
+    products, palettes, log = known_relation_shop(tmp_path, n=8)
+    q = build_queries(log, products, palettes)
+    rules = load_rules(DATA / "complementary_only.toml")
+    methods = [RulesMethod(rules, palettes, name="a"), RulesMethod(rules, palettes, name="b"),
+               RulesMethod(rules, palettes, name="a"), RandomMethod()]
+    with pytest.raises(HarmonyError, match=r"^more than one method is named 'a'$"):
+        evaluate(q, methods, products, np.random.default_rng(0))
+
+
+def test_skipped_kinds_reach_the_json(tmp_path):
+    products, palettes, log = known_relation_shop(tmp_path, n=8)
+    q = build_queries(log, products, palettes)
+    result = evaluate(q, [RandomMethod()], products, np.random.default_rng(0), resamples=5,
+                      skipped=(("wishlist", 4), ("click", 1)))
+    assert result.to_dict()["skipped_events"] == {"wishlist": 4, "click": 1}
 
 
 def test_colour_attribute_overlap_and_standard_methods(tmp_path):

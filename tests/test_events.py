@@ -66,7 +66,8 @@ def test_custom_weights_and_zero_weight_ignores(tmp_path):
     "items, match",
     [
         (["view"], r"expected KIND=WEIGHT, got 'view'"),
-        (["click=1"], r"unknown event kind 'click'"),
+        (["=1"], r"no event kind before '=' in '=1'"),
+        (["wishlist=-2"], r"weight of 'wishlist' must be a finite number >= 0"),
         (["view=x"], r"weight of 'view' is not a number"),
         (["view=-1"], r"weight of 'view' must be a finite number >= 0"),
         (["view=nan"], r"weight of 'view' must be a finite number >= 0"),
@@ -85,7 +86,12 @@ def test_bad_weights(items, match):
         ("log.csv", "session,item,event\n", r"log.csv: header lacks column product"),
         ("log.csv", "product,event\n", r"header lacks column session \(or user\)"),
         ("log.csv", "session,product,event\n", r"log.csv: no interactions"),
-        ("log.csv", "session,product,event\ns,A,click\n", r"log.csv: 1 bad row: line 2: event 'click' is not one of"),
+        ("log.csv", "session,product,event\ns,A,view\ns,A,\n", r"log.csv: 1 bad row: line 3: empty event$"),
+        (
+            "log.csv",
+            "session,product,event,timestamp\ns,A,wishlist,soon\n",
+            r"line 2: timestamp 'soon' is neither ISO 8601 nor a number",
+        ),
         ("log.csv", "session,product,event\ns,,view\n", r"line 2: empty product"),
         ("log.csv", "session,product,event\n,A,view\n", r"line 2: empty session \(or user\)"),
         ("log.csv", "session,product,event\ns,A,view,extra\n", r"line 2: more fields than the header has"),
@@ -106,7 +112,7 @@ def test_bad_files(tmp_path, name, text, match):
 
 
 def test_many_bad_rows_are_summarised_on_one_line(tmp_path):
-    rows = "".join(f"s,A,bogus{i}\n" for i in range(8))
+    rows = "".join(f"s{i},,view\n" for i in range(8))
     with pytest.raises(EventsError, match=r"8 bad rows: line 2: .*; and 3 more$") as info:
         read_events(write(tmp_path / "log.csv", "session,product,event\n" + rows))
     assert "\n" not in str(info.value)
@@ -121,3 +127,35 @@ def test_missing_and_binary_files(tmp_path):
     (tmp_path / "bin.csv").write_bytes(b"session,product,event\n\xff\xfe,A,view\n")
     with pytest.raises(EventsError, match=r"bin.csv: not UTF-8 text"):
         read_events(tmp_path / "bin.csv")
+
+
+def test_any_kind_can_be_weighed(tmp_path):
+    weights = parse_event_weights(["Wishlist=2", "click=0"])
+    assert weights == {**DEFAULT_EVENT_WEIGHTS, "wishlist": 2.0, "click": 0.0}
+    path = write(tmp_path / "log.csv", "session,product,event\ns,A,wishlist\ns,B,click\ns,C,view\n")
+    log = read_events(path, weights=weights)
+    assert [(e.product, e.event, e.weight) for e in log.events] == [("A", "wishlist", 2.0), ("C", "view", 1.0)]
+    assert log.ignored == 1 and log.skipped == ()
+
+
+def test_kinds_without_a_weight_are_counted_not_fatal(tmp_path):
+    path = write(
+        tmp_path / "log.jsonl",
+        "\n".join(
+            json.dumps({"session": "s", "product": p, "event": e})
+            for p, e in [("A", "view"), ("B", "click"), ("C", "WISHLIST"), ("D", "wishlist"), ("E", "click"),
+                         ("F", "share"), ("G", "wishlist"), ("Z", "click")]
+        ),
+    )
+    log = read_events(path, known_products={"A", "B", "C", "D", "E", "F", "G"})
+    assert [e.product for e in log.events] == ["A"]
+    # Most frequent first; click and wishlist tie at 3 rows and keep the order they first appear in.
+    assert log.skipped == (("click", 3), ("wishlist", 3), ("share", 1))
+    assert log.skipped_rows == 7 and log.rows == 8
+    # Rows of kinds without a weight are not looked up in the catalogue.
+    assert log.unknown == ()
+
+
+def test_unknown_ids_keep_first_appearance_among_equal_counts(tmp_path):
+    path = write(tmp_path / "log.csv", "user,product,event\nu,Q,view\nu,P,view\nu,P,cart\nu,R,view\nu,Q,view\n")
+    assert read_events(path, known_products=set()).unknown == (("Q", 2), ("P", 2), ("R", 1))

@@ -1,13 +1,14 @@
 """``harmony evaluate``: rules files and baselines ranked against an interaction log."""
 
 import json
+import os
 import sys
 
 import click
 import numpy as np
 
 from . import main
-from ..errors import StoreError
+from ..errors import HarmonyError, StoreError
 from ..evaluate import build_queries, evaluate, result_table, standard_methods, write_html
 from ..events import parse_event_weights, read_events
 from ..paths import DEFAULT_RULES
@@ -21,7 +22,13 @@ def run_evaluation(db, events, rules_files, weights=(), seed=0, resamples=1000, 
     """Everything ``harmony evaluate`` computes: ``(Evaluation, inputs)`` for the page.
 
     ``progress`` None shows a bar when stderr is a terminal.
+
+    Raises
+    ------
+    HarmonyError
+        When the same rules file is given twice (named), besides the errors of the steps.
     """
+    _check_distinct(rules_files)
     rulesets = [load_rules(path) for path in rules_files]
     event_weights = parse_event_weights(weights)
     with Store(db) as store:
@@ -38,13 +45,34 @@ def run_evaluation(db, events, rules_files, weights=(), seed=0, resamples=1000, 
         progress = sys.stderr.isatty()
     result = evaluate(
         queries, methods, products, np.random.default_rng(seed), resamples=resamples,
-        unknown=log.unknown, progress=progress,
+        unknown=log.unknown, progress=progress, skipped=log.skipped,
     )
     inputs = [("store", str(db)), ("interaction log", f"{events} ({log.rows} rows)")]
     inputs += [("rules file", str(r.path)) for r in rulesets]
     inputs.append(("event weights", ", ".join(f"{k} {v:g}" for k, v in event_weights.items())))
     inputs.append(("bootstrap seed", str(seed)))
     return result, inputs
+
+
+def _check_distinct(rules_files):
+    """Refuse a rules file given twice (the same file under two spellings counts too)."""
+    seen = {}
+    for path in rules_files:
+        key = os.path.normcase(os.path.realpath(path))
+        if key in seen:
+            same = "" if seen[key] == str(path) else f" (as {seen[key]!r} before)"
+            raise HarmonyError(f"--rules: {path} is given twice{same}; each rules file is evaluated once")
+        seen[key] = str(path)
+
+
+def _skipped_line(skipped, limit=5):
+    """The warning about rows of event kinds without a weight, e.g. ``wishlist 3, click 1``."""
+    rows = sum(n for _, n in skipped)
+    kinds = ", ".join(f"{kind} {n}" for kind, n in skipped[:limit]) + (", ..." if len(skipped) > limit else "")
+    return (
+        f"{rows} row{'s' if rows != 1 else ''} of event kinds without a weight left out ({kinds}); "
+        f"weigh a kind with --event-weight KIND=W"
+    )
 
 
 def _print_table(result):
@@ -66,7 +94,8 @@ def _print_table(result):
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON object instead of the table.")
 @click.option("--out", "out", default=None, type=click.Path(dir_okay=False), help="Also write an HTML page with a chart.")
 @click.option("--event-weight", "weights", multiple=True, metavar="KIND=WEIGHT",
-              help="Weight of an event kind (view, cart, purchase); 0 ignores it. Repeatable.")
+              help="Weight (>= 0) of an event kind: view, cart, purchase or any other; 0 ignores it. Rows of "
+                   "kinds without a weight are left out and counted. Repeatable.")
 @click.option("--seed", default=0, show_default=True, type=int, help="Seed of the bootstrap resampling.")
 @click.option("--resamples", default=1000, show_default=True, type=click.IntRange(min=1), help="Bootstrap resamples.")
 @click.option("--attribute", default="colour", show_default=True,
@@ -94,6 +123,8 @@ def evaluate_command(db, events, rules_files, as_json, out, weights, seed, resam
         more = ", ..." if len(result.unknown) > 5 else ""
         rows = sum(n for _, n in result.unknown)
         click.echo(f"{len(result.unknown)} unknown product ids in {rows} rows left out ({shown}{more})")
+    if result.skipped:
+        click.echo(_skipped_line(result.skipped))
     if result.no_palette:
         click.echo(f"{len(result.no_palette)} products of the log have no palette and were left out")
     click.echo("")
