@@ -5,6 +5,32 @@ and within a ΔE tolerance of the border colour, so a near-white part inside the
 Soft shadows (connected to the background, darker, about as neutral, and without sharp edges)
 go too. A border that is not uniform marks a room (lifestyle) scene: then every pixel counts,
 weighted by a centre prior, and the result is flagged with a low confidence.
+
+A full-bleed photo (a close-up of a rug, a fabric swatch, a flat colour fill) also has a uniform
+border, but there the border colour is the product itself. Backdrop removal would take away the
+whole frame, except perhaps threads of the weave that lie beyond the tolerance. The rule that
+tells such a frame from a studio shot, applied once the border is found uniform:
+
+* What backdrop removal leaves is spread *evenly*: its share of the inner pixels is at most
+  ``1.5 x`` its share of the border ring plus 0.02 (:data:`EVEN_LEFTOVER_RATIO`,
+  :data:`EVEN_LEFTOVER_SLACK`). A product stands inside the frame, so in a studio shot the inner
+  share is far higher than the ring's; the stray threads of a weave fall equally everywhere.
+* The border colour is **not** a studio backdrop. A studio backdrop is light and near-neutral:
+  J' at least :data:`BACKDROP_MIN_LIGHTNESS` (75, sRGB grey 0.7 or lighter) and M' below
+  :data:`harmony.palette.NEUTRAL_COLOURFULNESS` (white to light-grey seamless paper and sweeps,
+  common practice).
+
+When both hold the frame is one material: nothing is removed, every opaque pixel counts with
+weight 1, ``background_jab`` is None, ``scene`` is False and the confidence is
+:data:`FULL_FRAME_CONFIDENCE`. When the leftover is even but the border *is* a backdrop colour,
+the photo is an empty backdrop (a flat off-white frame): everything is background and the
+palette step reports "nothing left after removing the background".
+
+A flat mid-grey frame (J' about 56) is darker than any backdrop, so it counts as one material (a
+grey felt, concrete or linen swatch): an empty studio shot is nearly always lit white or light
+grey, and refusing a real grey product costs more than a grey palette flagged as less certain.
+The flip side: a white or light-grey full-frame material cannot be told from an empty backdrop
+by colour and is treated as a backdrop (error when nothing else is left).
 """
 
 from dataclasses import dataclass
@@ -15,6 +41,11 @@ from skimage.measure import label
 __all__ = [
     "Mask",
     "SCENE_CONFIDENCE",
+    "FULL_FRAME_CONFIDENCE",
+    "BACKDROP_MIN_LIGHTNESS",
+    "EVEN_LEFTOVER_RATIO",
+    "EVEN_LEFTOVER_SLACK",
+    "is_backdrop_colour",
     "CENTRE_PRIOR_SIGMA",
     "border_ring",
     "foreground_mask",
@@ -23,6 +54,25 @@ __all__ = [
 #: Confidence given to palettes of room scenes: the product was only guessed (convention of
 #: this project; consumers treat anything below 0.5 as "prefer another photo").
 SCENE_CONFIDENCE = 0.25
+
+#: Confidence given to palettes of one-material (full-bleed) frames. Nothing was guessed about the
+#: background, so it stays above the 0.5 "prefer another photo" line; it is below any studio shot
+#: (>= 0.8) because a close-up may show only part of the product (a sofa's fabric without its legs)
+#: and because telling the material from an empty coloured backdrop rests on the colour rule of
+#: this module (convention of this project).
+FULL_FRAME_CONFIDENCE = 0.6
+
+#: Smallest J' of a studio backdrop: sRGB grey 0.7 (178 of 255) has J' 75.4. Studio backdrops for
+#: furniture and home goods are white to light grey (common practice).
+BACKDROP_MIN_LIGHTNESS = 75.0
+
+#: What backdrop removal leaves is "even" (the texture of one material, not a product) when its
+#: share of the inner pixels is at most ``EVEN_LEFTOVER_RATIO`` times its share of the border ring
+#: plus ``EVEN_LEFTOVER_SLACK``. For a texture both shares estimate the same density, so 1.5x and
+#: two points leave room for sampling noise; a product standing inside the frame gives an inner
+#: share many times the ring's (convention of this project).
+EVEN_LEFTOVER_RATIO = 1.5
+EVEN_LEFTOVER_SLACK = 0.02
 
 #: Standard deviation of the Gaussian centre prior for scenes, as a fraction of each image side
 #: (common practice: product photos centre the product).
@@ -100,6 +150,16 @@ def _side_spread(jab, transparent, width):
     return float(np.max(np.sqrt(((m[:, None, :] - m[None, :, :]) ** 2).sum(axis=-1))))
 
 
+def is_backdrop_colour(jab):
+    """True where a colour could be a studio backdrop: light (J' >= :data:`BACKDROP_MIN_LIGHTNESS`)
+    and near-neutral (M' below :data:`harmony.palette.NEUTRAL_COLOURFULNESS`). Shape (...)."""
+    from .colour import colourfulness
+    from .palette import NEUTRAL_COLOURFULNESS
+
+    jab = np.asarray(jab, dtype=float)
+    return (jab[..., 0] >= BACKDROP_MIN_LIGHTNESS) & (colourfulness(jab) < NEUTRAL_COLOURFULNESS)
+
+
 def _centre_prior(shape):
     h, w = shape
     y = (np.arange(h) + 0.5) / h - 0.5
@@ -151,6 +211,8 @@ def foreground_mask(
 
     Notes
     -----
+    A uniform border whose colour is not a backdrop, with backdrop removal leaving only an even
+    scatter, is a one-material frame: nothing is removed (see the module docstring for the rule).
     The backdrop colour is the per-channel median of the ring, robust to a product that touches
     the border. A light grey product standing in the shadow is kept as long as its outline is
     sharper than ``shadow_edge``.
@@ -187,5 +249,13 @@ def foreground_mask(
         & (_edge_strength(jab[..., 0]) < shadow_edge)
     )
     back = _connected_to_edge(near | shadow) | transparent
+    left = ~back
+    inner = ~ring & ~transparent
+    ring_left = float(left[ring & ~transparent].mean())
+    inner_left = float(left[inner].mean()) if inner.any() else ring_left
+    even = inner_left <= EVEN_LEFTOVER_RATIO * ring_left + EVEN_LEFTOVER_SLACK
+    if even and not is_backdrop_colour(background):
+        weights = (~transparent).astype(float)
+        return Mask(weights, None, float(transparent.mean()), False, FULL_FRAME_CONFIDENCE)
     weights = (~back).astype(float)
     return Mask(weights, background, float(back.mean()), False, share)

@@ -5,7 +5,15 @@ import pytest
 
 from harmony import colour
 from harmony.image import decode_image
-from harmony.mask import SCENE_CONFIDENCE, border_ring, foreground_mask
+from harmony.mask import (
+    BACKDROP_MIN_LIGHTNESS,
+    FULL_FRAME_CONFIDENCE,
+    SCENE_CONFIDENCE,
+    border_ring,
+    foreground_mask,
+    is_backdrop_colour,
+)
+from harmony.palette import NEUTRAL_COLOURFULNESS
 from harmony.synthetic import encode_jpeg, encode_png, studio_shot
 
 from reference_data import SCENE_PHOTOS
@@ -106,3 +114,50 @@ def test_plain_wall_over_a_different_floor_is_a_scene():
     jab[80:] = wall
     jab[40:85, 25:75] = colour.srgb1_to_jab([0.2, 0.2, 0.25])
     assert not foreground_mask(jab).scene
+
+
+def red_fabric(rng, h=200, w=240):
+    """A full-bleed red woven fabric (invented test picture): a 2-pixel check of light and dark
+    threads with sensor noise, filling the whole frame."""
+    yy, xx = np.mgrid[0:h, 0:w]
+    factor = 0.92 + 0.08 * ((xx // 2 + yy // 2) % 2) + rng.normal(0, 0.02, yy.shape)
+    return np.rint(np.clip(np.array([0.62, 0.12, 0.14]) * factor[..., None], 0, 1) * 255).astype(np.uint8)
+
+
+def test_full_bleed_fabric_is_one_material():
+    img = decode_image(encode_jpeg(red_fabric(np.random.default_rng(5))), max_side=128)
+    mask = foreground_mask(_jab(img.srgb8))
+    assert not mask.scene and mask.background_jab is None and mask.background_share == 0.0
+    assert mask.confidence == FULL_FRAME_CONFIDENCE and 0.5 <= FULL_FRAME_CONFIDENCE < 0.8
+    assert np.all(mask.weights == 1.0)
+
+
+def test_flat_off_white_frame_is_all_background():
+    mask = foreground_mask(_jab(np.full((64, 64, 3), 240, np.uint8)))
+    assert not mask.scene and np.all(mask.weights == 0.0) and mask.background_share == 1.0
+
+
+def test_flat_mid_grey_frame_is_one_material():
+    # sRGB grey 128 (J' 56) is darker than any studio backdrop: a grey swatch, kept whole.
+    mask = foreground_mask(_jab(np.full((64, 64, 3), 128, np.uint8)))
+    assert np.all(mask.weights == 1.0) and mask.confidence == FULL_FRAME_CONFIDENCE
+
+
+def test_product_on_coloured_backdrop_still_removes_it():
+    # A blue box on a uniform red sweep: the leftover stands inside the frame, not spread evenly,
+    # so the red border is a backdrop after all and goes.
+    img = np.zeros((120, 120, 3), np.uint8)
+    img[...] = (160, 30, 35)
+    img[35:85, 40:80] = (40, 60, 150)
+    mask = foreground_mask(_jab(img))
+    kept = mask.weights > 0
+    assert mask.background_jab is not None and mask.confidence >= 0.8
+    assert kept[35:85, 40:80].all() and kept.sum() == 50 * 40
+
+
+def test_backdrop_colour_rule():
+    # sRGB (IEC 61966-2-1) white and light grey are backdrop colours; the grey 0.7 step sits just
+    # above BACKDROP_MIN_LIGHTNESS, a mid grey and a saturated pastel do not qualify.
+    jab = colour.srgb1_to_jab([[1.0, 1.0, 1.0], [0.7, 0.7, 0.7], [0.5, 0.5, 0.5], [1.0, 0.8, 0.8]])
+    assert jab[1, 0] >= BACKDROP_MIN_LIGHTNESS and colour.colourfulness(jab[3]) >= NEUTRAL_COLOURFULNESS
+    assert is_backdrop_colour(jab).tolist() == [True, True, False, False]
