@@ -2,8 +2,12 @@
 
 Handles EXIF orientation, embedded ICC profiles (converted to sRGB with Pillow's ImageCms),
 alpha (transparent pixels are background), the common modes (RGB, RGBA, L, LA, P, PA, CMYK,
-I;16, I, F, 1), JPEG draft mode (DCT-domain downscaling while decoding) and a pixel-count cap
-against decompression bombs. Every failure is an :class:`~harmony.errors.ImageError` whose message
+I;16, I, F, 1), JPEG draft mode (DCT-domain downscaling while decoding) and two limits against
+decompression bombs: :data:`MAX_PIXELS` on what is actually decoded (a 9000x6000 JPEG master is
+decoded at 1/8 scale, under 1 MP, so it passes), and :data:`MAX_DECLARED_PIXELS` on the size a
+file declares, checked from the header before any pixel is decoded. Formats without
+reduced-scale decoding (PNG, TIFF, ...) decode at full size, so for them the declared size must
+itself be within :data:`MAX_PIXELS`. Every failure is an :class:`~harmony.errors.ImageError` whose message
 starts with the file name.
 """
 
@@ -20,6 +24,7 @@ from .errors import ImageError
 
 __all__ = [
     "MAX_PIXELS",
+    "MAX_DECLARED_PIXELS",
     "DecodedImage",
     "sha256_file",
     "sha256_bytes",
@@ -28,9 +33,16 @@ __all__ = [
     "load_image",
 ]
 
-#: Largest image (width x height, before any downscaling) that is decoded: 50 megapixels, well
-#: above any product photo and below Pillow's own bomb limit (about 89 MP), so the error is ours.
+#: Most pixels that are actually decoded (after JPEG draft-mode scaling): 50 megapixels, about
+#: 150-200 MB as 8-bit RGB(A), below Pillow's own warning limit (about 89 MP), so the error is ours.
 MAX_PIXELS = 50_000_000
+
+#: Most pixels a file may declare in its header, whatever the decoded scale: Pillow's own
+#: DecompressionBombError threshold, twice ``PIL.Image.MAX_IMAGE_PIXELS`` = 2 x 89,478,485
+#: (Pillow's default, documented in its ``Image.open`` reference). It admits the largest single
+#: studio captures (medium-format backs of about 150 MP); checked by this module too, so it holds
+#: even when an application raises or disables Pillow's global.
+MAX_DECLARED_PIXELS = 178_956_970
 
 #: EXIF tag 274 (0x0112) "Orientation" and the transposition that displays each value upright,
 #: per CIPA DC-008 (Exif 2.32), section 4.6.5: 1 = as stored, 3 = rotated 180 degrees,
@@ -183,7 +195,9 @@ def decode_image(data, name="<bytes>", max_side=200, max_pixels=MAX_PIXELS, sha2
         Long side of the working image; JPEGs are decoded at the smallest DCT scale (1/2, 1/4,
         1/8) that is still at least this large, then box-filtered down. None keeps full size.
     max_pixels : int
-        Refuse images with more pixels than this (decompression-bomb guard).
+        Refuse images that would decode to more pixels than this (decompression-bomb guard):
+        for a JPEG the size after draft-mode scaling, for other formats the declared size. A
+        declared size over :data:`MAX_DECLARED_PIXELS` is refused in every case.
     sha256 : str, optional
         Precomputed digest of ``data``.
 
@@ -194,7 +208,7 @@ def decode_image(data, name="<bytes>", max_side=200, max_pixels=MAX_PIXELS, sha2
     Raises
     ------
     ImageError
-        Not an image, truncated or corrupt, over the pixel cap, or an unusable ICC profile.
+        Not an image, truncated or corrupt, over a pixel limit, or an unusable ICC profile.
     """
     try:
         with warnings.catch_warnings():
@@ -203,12 +217,16 @@ def decode_image(data, name="<bytes>", max_side=200, max_pixels=MAX_PIXELS, sha2
     except UnidentifiedImageError:
         raise ImageError(f"{name}: not an image (unrecognised format)") from None
     except Image.DecompressionBombError:
-        raise ImageError(f"{name}: image has too many pixels (limit {max_pixels})") from None
+        raise ImageError(
+            f"{name}: image declares more pixels than the limit of {MAX_DECLARED_PIXELS}"
+        ) from None
     except (OSError, SyntaxError, ValueError) as exc:
         raise ImageError(f"{name}: cannot decode: {exc}") from None
     w, h = img.size
-    if w * h > max_pixels:
-        raise ImageError(f"{name}: image is {w}x{h} = {w * h} pixels, over the limit of {max_pixels}")
+    if w * h > MAX_DECLARED_PIXELS:
+        raise ImageError(
+            f"{name}: image is {w}x{h} = {w * h} pixels, over the limit of {MAX_DECLARED_PIXELS}"
+        )
     if w == 0 or h == 0:
         raise ImageError(f"{name}: image is empty ({w}x{h})")
     orientation = _orientation(img)
@@ -216,6 +234,13 @@ def decode_image(data, name="<bytes>", max_side=200, max_pixels=MAX_PIXELS, sha2
         if max_side is not None and img.format == "JPEG" and max(w, h) > max_side:
             scale = max_side / max(w, h)
             img.draft(img.mode, (max(1, int(np.ceil(w * scale))), max(1, int(np.ceil(h * scale)))))
+        dw, dh = img.size  # the size that will be decoded (draft mode changes it)
+        if dw * dh > max_pixels:
+            scaled = "" if (dw, dh) == (w, h) else f" (decoded at {dw}x{dh})"
+            raise ImageError(
+                f"{name}: image is {w}x{h} = {w * h} pixels{scaled}, over the limit of {max_pixels}"
+                " decoded pixels"
+            )
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", Image.DecompressionBombWarning)
             img.load()
@@ -223,7 +248,9 @@ def decode_image(data, name="<bytes>", max_side=200, max_pixels=MAX_PIXELS, sha2
     except ImageError:
         raise
     except Image.DecompressionBombError:
-        raise ImageError(f"{name}: image has too many pixels (limit {max_pixels})") from None
+        raise ImageError(
+            f"{name}: image declares more pixels than the limit of {MAX_DECLARED_PIXELS}"
+        ) from None
     except (OSError, SyntaxError, ValueError, EOFError) as exc:
         reason = str(exc) or type(exc).__name__
         if "truncated" in reason.lower() or isinstance(exc, EOFError):

@@ -6,7 +6,7 @@ import pytest
 from PIL import Image, ImageCms
 
 from harmony.errors import ImageError
-from harmony.image import decode_image, load_image, sha256_bytes, sha256_file
+from harmony.image import MAX_DECLARED_PIXELS, MAX_PIXELS, decode_image, load_image, sha256_bytes, sha256_file
 from harmony.synthetic import encode_jpeg, encode_png, studio_shot
 
 from reference_data import EXIF_ORIENTATION_PIXELS
@@ -136,3 +136,69 @@ def test_pixel_cap():
     data = encode_png(np.zeros((100, 100, 3), np.uint8))
     with pytest.raises(ImageError, match=r"big\.png: image is 100x100 = 10000 pixels, over the limit of 9999"):
         decode_image(data, name="big.png", max_pixels=9999)
+
+
+def _png_header_only(width, height):
+    """A PNG that declares ``width`` x ``height`` RGB pixels but carries one tiny IDAT chunk
+    (PNG specification, ISO/IEC 15948: signature, IHDR, IDAT, IEND, each with a CRC-32)."""
+    import struct
+    import zlib
+
+    def chunk(kind, body):
+        return struct.pack(">I", len(body)) + kind + body + struct.pack(">I", zlib.crc32(kind + body))
+
+    ihdr = struct.pack(">IIBBBBB", width, height, 8, 2, 0, 0, 0)
+    return (b"\x89PNG\r\n\x1a\n" + chunk(b"IHDR", ihdr) + chunk(b"IDAT", zlib.compress(b"\0" * 16))
+            + chunk(b"IEND", b""))
+
+
+def _no_decoding(monkeypatch):
+    from PIL import ImageFile
+
+    def refuse(self):
+        raise AssertionError("pixels were decoded")
+
+    monkeypatch.setattr(ImageFile.ImageFile, "load", refuse)
+
+
+def test_declared_limit_is_pillows_bomb_threshold():
+    # Pillow raises DecompressionBombError above twice its default MAX_IMAGE_PIXELS.
+    assert MAX_DECLARED_PIXELS == 2 * Image.MAX_IMAGE_PIXELS and MAX_DECLARED_PIXELS > 3 * MAX_PIXELS
+
+
+@pytest.mark.parametrize(
+    "pillow_limit, reason",
+    [
+        (89_478_485, "declares more pixels than the limit of 178956970"),  # Pillow's own bomb error
+        (None, "is 100000x100000 = 10000000000 pixels, over the limit of 178956970"),  # ours alone
+    ],
+)
+def test_absurd_png_refused_without_decoding(monkeypatch, pillow_limit, reason):
+    # A PNG declaring 10 gigapixels is refused from its header, also when an application has
+    # switched Pillow's global check off; no pixel is decoded.
+    _no_decoding(monkeypatch)
+    monkeypatch.setattr(Image, "MAX_IMAGE_PIXELS", pillow_limit)
+    with pytest.raises(ImageError, match=rf"^huge\.png: image {reason}$"):
+        decode_image(_png_header_only(100_000, 100_000), name="huge.png")
+
+
+def test_png_over_the_decoded_cap_refused_without_decoding(monkeypatch):
+    # 60 MP PNG: under the declared limit, but PNG cannot be decoded at reduced scale.
+    _no_decoding(monkeypatch)
+    with pytest.raises(ImageError, match=r"^wide\.png: image is 10000x6000 = 60000000 pixels, over the "
+                       r"limit of 50000000 decoded pixels$"):
+        decode_image(_png_header_only(10_000, 6_000), name="wide.png")
+
+
+def test_large_jpeg_decoded_at_reduced_scale():
+    im = Image.new("RGB", (9000, 6000), (90, 120, 160))
+    data = _save(im, "JPEG", quality=20)
+    del im
+    img = decode_image(data, name="master.jpg", max_side=128)
+    assert (img.width, img.height) == (9000, 6000) and img.srgb8.shape == (85, 128, 3)
+    # Decoded at full size it would be 54 MP, over the cap: refused before decoding.
+    with pytest.raises(ImageError, match=r"master\.jpg: image is 9000x6000 = 54000000 pixels, over the "
+                       r"limit of 50000000 decoded pixels"):
+        decode_image(data, name="master.jpg", max_side=None)
+    with pytest.raises(ImageError, match=r"\(decoded at 1125x750\), over the limit of 100000 decoded"):
+        decode_image(data, name="master.jpg", max_side=128, max_pixels=100_000)
