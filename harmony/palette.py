@@ -215,8 +215,10 @@ class Palette:
 JND_DELTA_E = 2.3
 
 #: Version of the extraction method; part of :attr:`PaletteSettings.key`, so stored palettes
-#: made by an older method are not mistaken for current ones.
-METHOD_VERSION = 2
+#: made by an older method are not mistaken for current ones. Version 3: one-material
+#: (full-bleed) frames keep every pixel (:mod:`harmony.mask`), and the pixel cap applies to the
+#: decoded size (:mod:`harmony.image`).
+METHOD_VERSION = 3
 
 
 @dataclass(frozen=True)
@@ -244,7 +246,8 @@ class PaletteSettings:
         Pixels differing by more than this ΔE from a neighbour are blends on an edge and are
         left out of the palette (unless that would leave out most of the product).
     max_pixels : int
-        Decompression-bomb cap on the stored image size.
+        Decompression-bomb cap on the decoded size (after JPEG draft-mode scaling); the declared
+        size is capped at :data:`harmony.image.MAX_DECLARED_PIXELS` whatever this is.
     seed : int
         Seed of the k-means++ initialisation.
     """
@@ -517,8 +520,9 @@ def extract_palette(source, settings=PaletteSettings()):
     ------
     ImageError
         ``"<file>: <reason>"`` for a missing or unreadable file, a file that is not an image, a
-        truncated or corrupt image, one over the pixel cap, or one with nothing left after
-        removing the background.
+        truncated or corrupt image, one over a pixel limit, or one with nothing left after
+        removing the background (an empty studio backdrop; a full-bleed frame of one material
+        keeps all its pixels instead, see :mod:`harmony.mask`).
 
     Notes
     -----

@@ -149,3 +149,21 @@ def test_swatch_failed_write_keeps_the_older_file(files, tmp_path, monkeypatch):
         write_swatch(extract_palette(good), out)
     assert out.read_bytes() == b"old"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["sw.png"]
+
+
+def test_full_bleed_photo_and_oversized_png(tmp_path):
+    from test_image import _png_header_only
+    from test_mask import red_fabric
+
+    rug = tmp_path / "rug.jpg"
+    rug.write_bytes(encode_jpeg(red_fabric(np.random.default_rng(5))))
+    huge = tmp_path / "huge.png"
+    huge.write_bytes(_png_header_only(100_000, 100_000))
+    res = CliRunner().invoke(main, ["palette", "--json", str(huge), str(rug)])
+    assert res.exit_code != 0 and "Traceback" not in res.output
+    assert res.stderr.strip().splitlines() == [
+        f"error: {huge}: image declares more pixels than the limit of 178956970"
+    ]
+    obj = json.loads(res.stdout.strip())
+    assert obj["image"] == str(rug) and obj["background"] is None and obj["confidence"] == 0.6
+    assert obj["scene"] is False

@@ -192,3 +192,54 @@ def test_textured_single_colour_product():
     assert np.all(d[np.triu_indices(len(pal), 1)] >= JND_DELTA_E)
     mean = pal.weights @ pal.jab
     assert colour.delta_e(mean, painted.mean(axis=0)) < 1.0
+
+
+# CIECAM02 hue angles of the unique hues (red, yellow, green, blue), from the hue-quadrature table
+# of CIE 159:2004 (values from memory). CAM02-UCS a', b' share CIECAM02's hue angle.
+UNIQUE_HUES = {"red": 20.14, "yellow": 90.0, "green": 164.25, "blue": 237.53}
+
+
+def _nearest_unique_hue(h):
+    return min(UNIQUE_HUES, key=lambda k: abs((h - UNIQUE_HUES[k] + 180.0) % 360.0 - 180.0))
+
+
+def test_full_bleed_fabric_gives_a_red_palette():
+    from test_mask import red_fabric
+
+    pal = extract_palette(encode_jpeg(red_fabric(np.random.default_rng(5))))
+    assert not pal.scene and pal.background_jab is None and pal.background_share == 0.0
+    assert pal.confidence == 0.6
+    assert all(_nearest_unique_hue(h) == "red" for h in colour.hue_deg(pal.jab))
+    assert np.all(colour.colourfulness(pal.jab) > 20)
+
+
+def test_flat_frames(tmp_path):
+    # An empty off-white backdrop is still an error; a flat mid grey is a grey material.
+    blank = tmp_path / "offwhite.png"
+    blank.write_bytes(encode_png(np.full((64, 64, 3), (242, 240, 236), np.uint8)))
+    with pytest.raises(ImageError, match=r"offwhite\.png: nothing left after removing the background"):
+        extract_palette(blank)
+    grey = extract_palette(encode_png(np.full((64, 64, 3), 128, np.uint8)))
+    assert grey.hex == ["#808080"] and grey.confidence == 0.6 and grey.background_jab is None
+
+
+def test_studio_master_over_the_decoded_cap_gives_a_palette():
+    # A 9000x6000 (54 MP) studio master: JPEG draft mode decodes it at 1/8 scale (1125x750).
+    import io
+
+    from PIL import Image, ImageDraw
+
+    im = Image.new("RGB", (9000, 6000), (244, 243, 240))
+    ImageDraw.Draw(im).rectangle([3000, 1500, 6000, 4500], fill=(180, 40, 40))
+    buf = io.BytesIO()
+    im.save(buf, "JPEG", quality=20)
+    del im
+    data = buf.getvalue()
+    pal = extract_palette(data)
+    assert (pal.width, pal.height) == (9000, 6000) and not pal.scene
+    assert len(pal) == 1 and _nearest_unique_hue(colour.hue_deg(pal.jab[0])) == "red"
+    assert pal.background_share == pytest.approx(1 - (3001 * 3001) / 54e6, abs=0.01)
+
+
+def test_method_version_in_key():
+    assert PaletteSettings().key.startswith("v3-")
