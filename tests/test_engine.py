@@ -453,7 +453,7 @@ def test_a_second_extract_is_refused_while_one_runs_and_readers_keep_working(tmp
 
     from harmony.cli import main
 
-    n = 20
+    n = 40  # about 6 s of run: room for the checks below even on a loaded machine
     csv = _shop(tmp_path, n=n, rng=np.random.default_rng(4))
     db = tmp_path / "s.db"
     _run(csv, tmp_path / "other.db")  # a finished run on another store holds no lock on this one
