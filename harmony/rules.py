@@ -27,6 +27,7 @@ import tomllib
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from types import MappingProxyType
+from typing import NamedTuple
 
 import numpy as np
 
@@ -52,8 +53,10 @@ __all__ = [
     "OuLuoRule",
     "PairRules",
     "RuleSet",
+    "UnmatchedPair",
     "load_rules",
     "parse_rules",
+    "unmatched_pair_warnings",
 ]
 
 #: Version of the rules format this module reads (the file's ``format`` key).
@@ -518,6 +521,9 @@ class RuleSet:
         The choice of rules for pairs not listed.
     pairs : mapping of (str, str) to _Section
         Listed pairs, by normalised category names in the order written.
+    pair_lines : mapping of (str, str) to int
+        The line of each listed pair's ``categories`` key (1-based; absent for a rule set built
+        without a text).
     """
 
     path: str
@@ -530,6 +536,7 @@ class RuleSet:
     default: _Section
     pairs: MappingProxyType
     _cache: dict = field(default_factory=dict, repr=False, compare=False)
+    pair_lines: MappingProxyType = field(default_factory=lambda: MappingProxyType({}), repr=False, compare=False)
 
     @property
     def categories(self):
@@ -585,6 +592,87 @@ class RuleSet:
         if a == b:
             return False
         return self.for_pair(a, b).scored
+
+    def unmatched_pairs(self, categories):
+        """The pair sections that name a category absent from ``categories``.
+
+        Such a section matches no product, so its products fall to ``[default]``: usually a typo
+        in the file (``"rugs"`` for a shop's ``"rug"``).
+
+        Parameters
+        ----------
+        categories : iterable of str
+            The categories present (a store's), compared normalised like :meth:`for_pair`.
+
+        Returns
+        -------
+        list of UnmatchedPair
+            ``(line, pair, category, suggestion)`` for each absent category of each pair section,
+            in file order: the line of the section's ``categories`` key (0 when unknown), the
+            pair as normalised ``(a, b)``, the absent category, and the closest present category
+            by :func:`difflib.get_close_matches` (cutoff 0.6, as the file's other hints) or None.
+        """
+        present = sorted({_normalise_category(c) for c in categories})
+        known = set(present)
+        out = []
+        for pair in self.pairs:
+            for category in pair:
+                if category in known:
+                    continue
+                close = difflib.get_close_matches(category, present, n=1, cutoff=0.6)
+                out.append(UnmatchedPair(self.pair_lines.get(pair, 0), pair, category, close[0] if close else None))
+        out.sort(key=lambda u: u.line)
+        return out
+
+
+class UnmatchedPair(NamedTuple):
+    """A category of a pair section that no product has, see :meth:`RuleSet.unmatched_pairs`."""
+
+    line: int
+    pair: tuple
+    category: str
+    suggestion: object  # str or None
+
+
+def unmatched_pair_warnings(rule_sets, categories):
+    """One message per pair section of ``rule_sets`` that names a category absent from ``categories``.
+
+    Parameters
+    ----------
+    rule_sets : RuleSet or iterable of RuleSet
+    categories : iterable of str
+        The categories present in the store. When there are none, there are no messages (an
+        empty store is an error of its own).
+
+    Returns
+    -------
+    list of str
+        ``FILE:LINE: pair A / B: no products of category 'B' in the store (did you mean 'C'?)``;
+        a pair with both categories absent names both in its one message.
+    """
+    if isinstance(rule_sets, RuleSet):
+        rule_sets = (rule_sets,)
+    categories = list(categories)
+    if not categories:
+        return []
+    messages = []
+    for rule_set in rule_sets:
+        by_pair = {}
+        for item in rule_set.unmatched_pairs(categories):
+            by_pair.setdefault((item.line, item.pair), []).append(item)
+        for (line, (a, b)), items in by_pair.items():
+            where = f"{rule_set.path}:{line}" if line else rule_set.path
+            names = " and ".join(f"'{u.category}'" for u in items)
+            noun = "category" if len(items) == 1 else "categories"
+            hints = [u for u in items if u.suggestion]
+            if len(items) == 1 and hints:
+                hint = f" (did you mean '{hints[0].suggestion}'?)"
+            elif hints:
+                hint = " (did you mean " + ", ".join(f"'{u.suggestion}' for '{u.category}'" for u in hints) + "?)"
+            else:
+                hint = ""
+            messages.append(f"{where}: pair {a} / {b}: no products of {noun} {names} in the store{hint}")
+    return messages
 
 
 # --------------------------------------------------------------------------------------------
@@ -945,6 +1033,7 @@ def parse_rules(text, where="<string>"):
     if default_table is not _MISSING:
         default = _read_section(problems, default_table, ("default",), declared, "default")
     pairs = {}
+    pair_lines = {}
     pair_list = data.get("pair", [])
     if not isinstance(pair_list, list):
         problems.add(("pair",), "must be an array of tables written as [[pair]]")
@@ -969,6 +1058,7 @@ def parse_rules(text, where="<string>"):
             problems.add(path + ("categories",), f"the pair '{a}' / '{b}' is listed twice")
             continue
         pairs[(a, b)] = section
+        pair_lines[(a, b)] = problems.line_of(path + ("categories",))
 
     if problems.items:
         raise problems.error()
@@ -982,6 +1072,7 @@ def parse_rules(text, where="<string>"):
         rules=MappingProxyType(rules),
         default=default,
         pairs=MappingProxyType(pairs),
+        pair_lines=MappingProxyType(pair_lines),
     )
 
 

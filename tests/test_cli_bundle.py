@@ -212,3 +212,24 @@ def test_invalid_room_file_is_one_error_line(db):
     assert res.exit_code == 2 and "Traceback" not in res.output
     assert res.output.count("\n") == 1 and res.output.startswith(f"error: {bad}:4: colour: unknown key")
     assert res.output.count(f"{bad}:") == 11
+
+
+def test_pair_sections_are_checked_against_the_store(db, tmp_path):
+    # The shipped rules name only categories of the demo shop: no warning.
+    res = run("--db", db, "--room", "dining_corner", "--top", 1)
+    assert res.exit_code == 0, res.output
+    assert "warning:" not in res.stderr
+    # A typo in a pair section is warned about with its line and the closest category; the run goes on.
+    text = DEFAULT_RULES.read_text(encoding="utf-8")
+    assert text.count('categories = ["dining table", "rug"]') == 1
+    mine = tmp_path / "mine.toml"
+    mine.write_text(text.replace('categories = ["dining table", "rug"]', 'categories = ["dining table", "rugs"]'),
+                    encoding="utf-8")
+    line = text.splitlines().index('categories = ["dining table", "rug"]') + 1
+    res = run("--db", db, "--room", "dining_corner", "--top", 1, "--rules", mine, "--json")
+    assert res.exit_code == 0, res.output
+    assert json.loads(res.stdout)["bundles"]
+    assert res.stderr.splitlines() == [
+        f"warning: {mine}:{line}: pair dining table / rugs: no products of category 'rugs' in the store "
+        "(did you mean 'rug'?)"
+    ]

@@ -67,12 +67,12 @@ def test_feed_warns_about_a_target_without_stock(tmp_path):
 def test_suggest_table_and_json(db):
     res = run("suggest", "S0", "--db", db, "-n", 3)
     assert res.exit_code == 0, res.output
-    lines = res.output.splitlines()
+    lines = res.stdout.splitlines()
     assert lines[0].startswith("S0 (sofa)") and "#" in lines[0]
     assert lines[1].lstrip().startswith("1. ") and "score" in lines[1]
     res = run("suggest", "S0", "--db", db, "--category", "rug", "--json")
     assert res.exit_code == 0, res.output
-    data = json.loads(res.output)
+    data = json.loads(res.stdout)
     assert data["product"] == "S0" and len(data["suggestions"]) == 4  # five rugs, one out of stock
     assert all(s["partner_category"] == "rug" and s["partner"] != "R1" for s in data["suggestions"])
     assert all(s["colours"][0].startswith("#") for s in data["suggestions"])
@@ -86,7 +86,8 @@ def test_suggest_errors(db):
 
 
 def one_error_line(res):
-    lines = [line for line in res.output.splitlines() if line.strip()]
+    # Warnings about pair sections the small fixture store cannot match may come first.
+    lines = [line for line in res.output.splitlines() if line.strip() and not line.startswith("warning: ")]
     assert len(lines) == 1 and lines[0].startswith("error: "), res.output
     assert "Traceback" not in res.output
     return lines[0]
@@ -136,7 +137,7 @@ def test_suggest_draws_weighted_colour_blocks_in_a_terminal_only(db, monkeypatch
     # color=True: click's runner would otherwise strip escape codes as for a pipe.
     res = CliRunner().invoke(main, ["suggest", "S0", "--db", str(db), "-n", "2"], color=True)
     assert res.exit_code == 0, res.output
-    lines = res.output.splitlines()
+    lines = res.stdout.splitlines()
     assert len(lines) == 5  # the product, then a score line and a reason line per partner
     for line in (lines[0], lines[1], lines[3]):
         # 24-bit background colour blocks (SGR 48;2;r;g;b, ISO/IEC 8613-6), one strip per palette
@@ -158,3 +159,57 @@ def test_suggest_bad_input_is_one_error_line(db, tmp_path):
         res = run("suggest", *args)
         assert res.exit_code == 2
         assert says in one_error_line(res)
+
+
+# ---- pair sections that match no category of the store ---------------------------------------
+
+TYPO_RULES = """format = 1
+[neutral]
+threshold = 7.0
+fade = 4.0
+[rule.near]
+kind = "hue"
+centre = 0
+spread = 20
+weight = 1.0
+[default]
+rules = { near = 1.0 }
+
+[[pair]]
+categories = ["sofa", "rugs"]
+rules = { near = 2.0 }
+
+[[pair]]
+categories = ["sofa", "floor lamp"]
+rules = { near = 1.0 }
+
+[[pair]]
+categories = ["Sofas", "armchair"]
+rules = { near = 1.0 }
+"""
+
+
+def test_feed_and_suggest_warn_of_a_pair_that_matches_no_category(db, tmp_path):
+    rules = tmp_path / "mine.toml"
+    rules.write_text(TYPO_RULES)
+    res = run("feed", "--db", db, "--rules", rules, "--out", tmp_path / "feed.jsonl")
+    assert res.exit_code == 0, res.output
+    assert "rows for" in res.stdout and (tmp_path / "feed.jsonl").exists()
+    warned = [line for line in res.stderr.splitlines() if line.startswith("warning: ")]
+    assert warned == [
+        f"warning: {rules}:14: pair sofa / rugs: no products of category 'rugs' in the store (did you mean 'rug'?)",
+        f"warning: {rules}:22: pair sofas / armchair: no products of categories 'sofas' and 'armchair' "
+        f"in the store (did you mean 'sofa' for 'sofas'?)",
+    ]
+    res = run("suggest", "S0", "--db", db, "--rules", rules, "--json")
+    assert res.exit_code == 0, res.output
+    assert json.loads(res.stdout)["product"] == "S0"
+    assert res.stderr.count("warning: ") == 2 and "(did you mean 'rug'?)" in res.stderr
+
+
+def test_no_pair_warning_when_every_category_is_in_the_store(db, tmp_path):
+    rules = tmp_path / "fits.toml"
+    rules.write_text(TYPO_RULES.replace('"rugs"', '"rug"').replace('"Sofas", "armchair"', '"rug", "floor lamp"'))
+    res = run("feed", "--db", db, "--rules", rules, "--out", tmp_path / "feed.jsonl")
+    assert res.exit_code == 0, res.output
+    assert "pair " not in res.stderr

@@ -472,3 +472,38 @@ def test_every_problem_of_one_rule_at_once():
         "<string>:12: rule.b: missing key 'weight'",
         "<string>:15: rule.b.width: must be at most twice the step (20), got 30",
     )
+
+
+# ---- pair sections against the categories of a store -----------------------------------------
+
+
+def test_unmatched_pairs_name_line_category_and_closest_category():
+    # small_ok.toml lists one pair, ["Sofa", "RUG"], on line 25 of the file.
+    rs = load_rules(DATA / "small_ok.toml")
+    assert rs.unmatched_pairs(["sofa", "rug", "cushion"]) == []
+    assert rs.unmatched_pairs(["Sofa", "Rug "]) == []  # compared normalised, like for_pair
+    (found,) = rs.unmatched_pairs(["sofa", "rugs", "cushion"])
+    assert found == (25, ("sofa", "rug"), "rug", "rugs")
+    assert (found.line, found.category, found.suggestion) == (25, "rug", "rugs")
+    both = rs.unmatched_pairs(["lamp"])
+    assert [(u.category, u.suggestion) for u in both] == [("sofa", None), ("rug", None)]
+
+
+def test_unmatched_pair_warnings_one_line_per_section():
+    from harmony.rules import unmatched_pair_warnings
+
+    text = _SMALL + '\n[[pair]]\ncategories = ["sofa", "rugs"]\nrules = { a = 1.0 }\n'
+    rs = parse_rules(text, where="rules/mine.toml")
+    line = text.splitlines().index('categories = ["sofa", "rugs"]') + 1
+    assert unmatched_pair_warnings(rs, ["sofa", "rug"]) == [
+        f"rules/mine.toml:{line}: pair sofa / rugs: no products of category 'rugs' in the store (did you mean 'rug'?)"
+    ]
+    # Several rule sets: a warning for each; an empty store gets none (it is an error of its own).
+    assert len(unmatched_pair_warnings([rs, rs], ["sofa", "rug"])) == 2
+    assert unmatched_pair_warnings(rs, []) == []
+
+
+def test_default_rules_match_every_pair_of_the_demo_shop(default_rules):
+    from harmony.demo_shop import CATEGORIES
+
+    assert default_rules.unmatched_pairs(CATEGORIES) == []

@@ -12,6 +12,7 @@ from ..paths import DEFAULT_RULES, DEMO_DIR
 from ..room import load_room
 from ..rules import load_rules
 from ..store import Store
+from .feed_cmd import warn_unmatched_pairs
 
 
 def _room_path(value):
@@ -48,6 +49,7 @@ def bundle(db_path, room_file, budget, anchor, exclude, top, min_difference, poo
     with Store(db_path) as store:
         result = search_bundles(store, room, rules, budget=budget, anchor=anchor, exclude=_ids(exclude),
                                 top=top, min_difference=min_difference, pool_limit=pool_limit)
+        warn_unmatched_pairs(rules, store.categories())
         titles = {pid: store.product(pid).title for b in result.bundles for _, pid, _, _ in b.items}
     if as_json:
         click.echo(json.dumps(result_to_dict(result)))

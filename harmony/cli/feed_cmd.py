@@ -9,11 +9,11 @@ from . import main
 from ..errors import HarmonyError
 from ..feed import build_feed, suggest, write_feed
 from ..paths import DEFAULT_RULES
-from ..rules import load_rules
+from ..rules import load_rules, unmatched_pair_warnings
 from ..store import Store
 from ..swatch import ansi_block, segment_widths, terminal_has_colour
 
-__all__ = ["feed", "suggest_cmd", "colour_blocks", "STRIP_CELLS"]
+__all__ = ["feed", "suggest_cmd", "colour_blocks", "warn_unmatched_pairs", "STRIP_CELLS"]
 
 
 #: Terminal cells of one palette strip in ``harmony suggest``.
@@ -31,6 +31,13 @@ def colour_blocks(palette, colour=True, cells=STRIP_CELLS):
 
 def _warn(message):
     click.echo(f"warning: {message}", err=True)
+
+
+def warn_unmatched_pairs(rule_sets, categories):
+    """Warn on stderr, one line each, of the pair sections of ``rule_sets`` (one RuleSet or
+    several) that name a category absent from ``categories`` (the store's)."""
+    for message in unmatched_pair_warnings(rule_sets, categories):
+        _warn(message)
 
 
 @main.command("feed")
@@ -64,6 +71,7 @@ def feed(db, rules_path, top, targets, diversity, fmt, out, progress):
             progress = sys.stderr.isatty()
         rows = build_feed(store, rules, top=top, targets=target_list, diversity=diversity, warn=_warn,
                           progress=progress)
+        warn_unmatched_pairs(rules, store.categories())
     if not rows:
         raise HarmonyError(
             f"{db}: no feed rows: the rules pair none of the store's categories with an in-stock target"
@@ -86,6 +94,7 @@ def suggest_cmd(product_id, db, category, n, as_json, rules_path):
     rules = load_rules(rules_path)
     with Store(db) as store:
         found = suggest(store, rules, product_id, category=category, n=n)
+        warn_unmatched_pairs(rules, store.categories())
         own = store.palette(found[0].row.product)
     if as_json:
         payload = {
