@@ -501,6 +501,8 @@ def test_unmatched_pair_warnings_one_line_per_section():
     # Several rule sets: a warning for each; an empty store gets none (it is an error of its own).
     assert len(unmatched_pair_warnings([rs, rs], ["sofa", "rug"])) == 2
     assert unmatched_pair_warnings(rs, []) == []
+    # A category the shop simply does not sell (no close match) is not reported: no typo there.
+    assert unmatched_pair_warnings(rs, ["sofa", "floor lamp"]) == []
 
 
 def test_default_rules_match_every_pair_of_the_demo_shop(default_rules):

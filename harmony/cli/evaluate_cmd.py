@@ -14,6 +14,7 @@ from ..events import parse_event_weights, read_events
 from ..paths import DEFAULT_RULES
 from ..rules import load_rules
 from ..store import Store
+from .feed_cmd import warn_unmatched_pairs
 
 __all__ = ["evaluate_command", "run_evaluation"]
 
@@ -47,6 +48,7 @@ def run_evaluation(db, events, rules_files, weights=(), seed=0, resamples=1000, 
         queries, methods, products, np.random.default_rng(seed), resamples=resamples,
         unknown=log.unknown, progress=progress, skipped=log.skipped,
     )
+    warn_unmatched_pairs(rulesets, [p.category for p in products])
     inputs = [("store", str(db)), ("interaction log", f"{events} ({log.rows} rows)")]
     inputs += [("rules file", str(r.path)) for r in rulesets]
     inputs.append(("event weights", ", ".join(f"{k} {v:g}" for k, v in event_weights.items())))
