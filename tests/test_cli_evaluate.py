@@ -199,6 +199,9 @@ def test_kinds_without_a_weight_are_reported_not_fatal(shop, tmp_path):
     data = json.loads(run(*base, "--events", kinds, "--json").output)
     assert data["skipped_events"] == {"wishlist": 3, "click": 1}
     assert data["results"] == plain["results"] and data["events"] == plain["events"]
+    page = tmp_path / "kinds.html"
+    assert run(*base, "--events", kinds, "--out", str(page)).exit_code == 0
+    assert "wishlist &times;3, click &times;1" in page.read_text()
 
 
 def test_event_weight_names_any_kind(shop, tmp_path):
