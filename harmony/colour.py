@@ -17,6 +17,7 @@ import numpy as np
 from colorspacious import CIECAM02Space, cspace_convert
 
 __all__ = [
+    "as_triplets",
     "VIEWING_CONDITIONS",
     "CAM02UCS",
     "srgb1_to_jab",
@@ -44,7 +45,8 @@ VIEWING_CONDITIONS = CIECAM02Space.sRGB
 CAM02UCS = {"name": "CAM02-UCS", "ciecam02_space": VIEWING_CONDITIONS}
 
 
-def _as_triplets(x, name):
+def as_triplets(x, name):
+    """``x`` as a float array with a trailing axis of 3; ValueError naming ``name`` and the shape."""
     arr = np.asarray(x, dtype=float)
     if arr.ndim == 0 or arr.shape[-1] != 3:
         raise ValueError(f"{name} must have a trailing axis of 3, got shape {arr.shape}")
@@ -70,27 +72,27 @@ def srgb1_to_jab(srgb1):
     >>> np.round(srgb1_to_jab([1.0, 1.0, 1.0]), 1)
     array([100. ,  -1.9,  -1.2])
     """
-    return cspace_convert(_as_triplets(srgb1, "srgb1"), "sRGB1", CAM02UCS)
+    return cspace_convert(as_triplets(srgb1, "srgb1"), "sRGB1", CAM02UCS)
 
 
 def jab_to_srgb1(jab):
     """Convert CAM02-UCS J'a'b' to sRGB in [0, 1]; out-of-gamut colours fall outside [0, 1]."""
-    return cspace_convert(_as_triplets(jab, "jab"), CAM02UCS, "sRGB1")
+    return cspace_convert(as_triplets(jab, "jab"), CAM02UCS, "sRGB1")
 
 
 def srgb1_to_xyz100(srgb1):
     """sRGB in [0, 1] to CIE XYZ (D65, Y of white = 100), per IEC 61966-2-1."""
-    return cspace_convert(_as_triplets(srgb1, "srgb1"), "sRGB1", "XYZ100")
+    return cspace_convert(as_triplets(srgb1, "srgb1"), "sRGB1", "XYZ100")
 
 
 def jab_to_xyz100(jab):
     """CAM02-UCS J'a'b' to CIE XYZ (Y of white = 100) under :data:`VIEWING_CONDITIONS`."""
-    return cspace_convert(_as_triplets(jab, "jab"), CAM02UCS, "XYZ100")
+    return cspace_convert(as_triplets(jab, "jab"), CAM02UCS, "XYZ100")
 
 
 def lightness(jab):
     """CAM02-UCS lightness J', shape (...)."""
-    return _as_triplets(jab, "jab")[..., 0]
+    return as_triplets(jab, "jab")[..., 0]
 
 
 def colourfulness(jab):
@@ -101,13 +103,13 @@ def colourfulness(jab):
     Under :data:`VIEWING_CONDITIONS` sRGB white has M' of about 2.2, since CIECAM02 adaptation to
     the D65 white is incomplete (degree of adaptation D < 1) at this adapting luminance.
     """
-    arr = _as_triplets(jab, "jab")
+    arr = as_triplets(jab, "jab")
     return np.hypot(arr[..., 1], arr[..., 2])
 
 
 def hue_deg(jab):
     """CAM02-UCS hue angle h = atan2(b', a') in degrees, in [0, 360), shape (...)."""
-    arr = _as_triplets(jab, "jab")
+    arr = as_triplets(jab, "jab")
     h = np.degrees(np.arctan2(arr[..., 2], arr[..., 1])) % 360.0
     # -0.0 % 360 and values within rounding of 360 both land on 360.0 in floating point.
     return np.where(h >= 360.0, 0.0, h)
@@ -115,8 +117,8 @@ def hue_deg(jab):
 
 def delta_e(jab1, jab2):
     """Perceptual difference: Euclidean distance in CAM02-UCS, broadcast over leading axes."""
-    a = _as_triplets(jab1, "jab1")
-    b = _as_triplets(jab2, "jab2")
+    a = as_triplets(jab1, "jab1")
+    b = as_triplets(jab2, "jab2")
     return np.sqrt(np.sum((a - b) ** 2, axis=-1))
 
 
@@ -137,7 +139,7 @@ def lrv(xyz100_or_jab, *, space="jab"):
     elif space == "srgb1":
         xyz = srgb1_to_xyz100(xyz100_or_jab)
     elif space == "xyz100":
-        xyz = _as_triplets(xyz100_or_jab, "xyz100")
+        xyz = as_triplets(xyz100_or_jab, "xyz100")
     else:
         raise ValueError(f"space must be 'jab', 'srgb1' or 'xyz100', got {space!r}")
     return xyz[..., 1]
@@ -145,7 +147,7 @@ def lrv(xyz100_or_jab, *, space="jab"):
 
 def in_srgb_gamut(srgb1, tol=1e-6):
     """True where every channel of ``srgb1`` lies in [0, 1] (within ``tol``), shape (...)."""
-    arr = _as_triplets(srgb1, "srgb1")
+    arr = as_triplets(srgb1, "srgb1")
     return np.all((arr >= -tol) & (arr <= 1.0 + tol), axis=-1)
 
 
@@ -155,7 +157,7 @@ def srgb1_to_hex(srgb1):
     Clipping is the display convention here: palette centres are means of in-gamut pixels and lie
     at most a rounding step outside the gamut.
     """
-    arr = _as_triplets(srgb1, "srgb1")
+    arr = as_triplets(srgb1, "srgb1")
     ints = np.rint(np.clip(arr, 0.0, 1.0) * 255.0).astype(int)
     flat = [f"#{r:02x}{g:02x}{b:02x}" for r, g, b in ints.reshape(-1, 3)]
     return flat[0] if arr.ndim == 1 else flat

@@ -40,13 +40,6 @@ def jab_to_lab(jab):
     return cspace_convert(colour.jab_to_xyz100(jab), "XYZ100", CIELAB_D65)
 
 
-def _lab(lab, name):
-    arr = np.asarray(lab, dtype=float)
-    if arr.ndim == 0 or arr.shape[-1] != 3:
-        raise ValueError(f"{name} must have a trailing axis of 3, got shape {arr.shape}")
-    return arr
-
-
 def _single_colour_hue_effect(lab):
     """H_SY = E_C (H_S + E_Y) of one colour: its own contribution to the hue effect."""
     L, a, b = lab[..., 0], lab[..., 1], lab[..., 2]
@@ -76,8 +69,8 @@ def harmony_terms(lab1, lab2):
         ``H_Lsum + H_dL`` with ``H_Lsum = 0.28 + 0.54 tanh(-3.88 + 0.029 (L1 + L2))`` and
         ``H_dL = 0.14 + 0.15 tanh(-2 + 0.2 |L1 - L2|)``; hue effect ``H_SY1 + H_SY2``.
     """
-    p = _lab(lab1, "lab1")
-    q = _lab(lab2, "lab2")
+    p = colour.as_triplets(lab1, "lab1")
+    q = colour.as_triplets(lab2, "lab2")
     c1 = np.hypot(p[..., 1], p[..., 2])
     c2 = np.hypot(q[..., 1], q[..., 2])
     d_c = c1 - c2

@@ -31,6 +31,7 @@ from typing import NamedTuple
 
 import numpy as np
 
+from .colour import as_triplets
 from .errors import RulesError
 from .palette import neutrality
 from .paths import DEFAULT_RULES
@@ -145,16 +146,9 @@ def _as_colours(jab, name):
     return arr
 
 
-def _triplets(jab, name):
-    arr = np.asarray(jab, dtype=float)
-    if arr.ndim == 0 or arr.shape[-1] != 3:
-        raise ValueError(f"{name} must have a trailing axis of 3, got shape {arr.shape}")
-    return arr
-
-
 def _broadcast_pair(jab_a, jab_b):
     """Both sides as float arrays with a trailing axis of 3, and their broadcast leading shape."""
-    jab_a, jab_b = _triplets(jab_a, "jab_a"), _triplets(jab_b, "jab_b")
+    jab_a, jab_b = as_triplets(jab_a, "jab_a"), as_triplets(jab_b, "jab_b")
     try:
         shape = np.broadcast_shapes(jab_a.shape[:-1], jab_b.shape[:-1])
     except ValueError:
