@@ -161,8 +161,17 @@ def _broadcast_pair(jab_a, jab_b):
 # --------------------------------------------------------------------------------------------
 
 
+class _Symmetric:
+    """A rule whose term does not change when the two colours swap sides."""
+
+    symmetric = True
+
+    def flipped(self):
+        return self
+
+
 @dataclass(frozen=True)
-class HueRule:
+class HueRule(_Symmetric):
     """A kernel over the hue difference of two chromatic colours.
 
     The unsigned hue difference ``d`` in [0, 180] degrees is scored by a von Mises bump
@@ -216,12 +225,6 @@ class HueRule:
         d = np.radians(np.asarray(hue_difference_deg, dtype=float))
         return self.bumps(np.cos(d), np.abs(np.sin(d)))
 
-    @property
-    def symmetric(self):
-        return True
-
-    def flipped(self):
-        return self
 
     def default_phrase(self, ja, jb, na, nb, value):
         if value < 0:
@@ -235,7 +238,7 @@ class HueRule:
 
 
 @dataclass(frozen=True)
-class NeutralRule:
+class NeutralRule(_Symmetric):
     """A neutral colour sits well with anything.
 
     The term is the chance that at least one of the two colours is neutral,
@@ -252,12 +255,6 @@ class NeutralRule:
         na, nb = geometry.a.neutral, geometry.b.neutral
         return na + nb - na * nb
 
-    @property
-    def symmetric(self):
-        return True
-
-    def flipped(self):
-        return self
 
     def default_phrase(self, ja, jb, na, nb, value):
         if value < 0:
@@ -309,7 +306,7 @@ class LightnessRule:
 
 
 @dataclass(frozen=True)
-class OuLuoRule:
+class OuLuoRule(_Symmetric):
     """The Ou & Luo (2006) two-colour harmony ``CH`` in CIELAB (D65), see :mod:`harmony.ou_luo`."""
 
     name: str
@@ -322,12 +319,6 @@ class OuLuoRule:
 
         return two_colour_harmony(geometry.a.lab, geometry.b.lab)
 
-    @property
-    def symmetric(self):
-        return True
-
-    def flipped(self):
-        return self
 
     def default_phrase(self, ja, jb, na, nb, value):
         # The model's own sign says harmonious (CH > 0) or not, whatever the rule's weight.
