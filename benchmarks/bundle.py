@@ -11,7 +11,14 @@ import time
 
 import numpy as np
 
-from harmony.bundle import BundleProblem, BundleSlot, Candidate, brute_force_count, iter_bundles, search
+from harmony.suggest.bundle import (
+    BundleProblem,
+    BundleSlot,
+    Candidate,
+    brute_force_count,
+    iter_bundles,
+    search,
+)
 
 
 def instance(rng, n_slots, pool, budget):

@@ -19,8 +19,8 @@ import numpy as np  # noqa: E402
 from PIL import Image  # noqa: E402
 from threadpoolctl import threadpool_limits  # noqa: E402
 
-from harmony.palette import PaletteSettings, extract_palette  # noqa: E402
-from harmony.synthetic import encode_jpeg, studio_shot  # noqa: E402
+from harmony.demo.synthetic import encode_jpeg, studio_shot  # noqa: E402
+from harmony.photo.palette import PaletteSettings, extract_palette  # noqa: E402
 
 TARGET_IMAGES_PER_S = 200.0
 TARGET_RATIO = 5.0

@@ -1,6 +1,6 @@
 """Benchmark: palette extraction over a generated catalogue, 1 vs 2 workers, then a re-run.
 
-Generates ``--images`` distinct 800x800 studio-shot JPEGs (harmony.synthetic; a few base shots,
+Generates ``--images`` distinct 800x800 studio-shot JPEGs (harmony.demo.synthetic; a few base shots,
 each turned and tinted into distinct variants) into a temporary folder with a CSV catalogue, then
 
 1. extracts everything with 1 worker into a fresh store (the baseline),
@@ -21,9 +21,9 @@ from pathlib import Path
 
 import numpy as np
 
-from harmony.engine import run_extraction
-from harmony.store import Store
-from harmony.synthetic import encode_jpeg, studio_shot
+from harmony.demo.synthetic import encode_jpeg, studio_shot
+from harmony.shop.engine import run_extraction
+from harmony.shop.store import Store
 
 CATEGORIES = ("sofa", "rug", "armchair", "floor lamp", "cushion")
 

@@ -16,9 +16,9 @@ import time
 import numpy as np
 
 from harmony.colour import srgb1_to_jab
-from harmony.palette import Palette
+from harmony.photo.palette import Palette
 from harmony.rules import load_rules
-from harmony.score import pair_raw, pair_score
+from harmony.rules.score import pair_raw, pair_score
 
 
 def _palettes(rng, count, k=10):

@@ -20,7 +20,7 @@ import numpy as np
 
 from harmony import colour
 from harmony.rules import load_rules
-from harmony.screen import PaletteStack, exact_top_k, screen_top_k
+from harmony.rules.screen import PaletteStack, exact_top_k, screen_top_k
 
 
 def synthetic_palettes(n, rng, k=10):

@@ -1,6 +1,6 @@
 """Tune a few numbers of a rules file on the demo shop, with a held-out half to show overfitting.
 
-The objective is the mean AUC over anchor products of :func:`harmony.evaluate.evaluate` (the
+The objective is the mean AUC over anchor products of :func:`harmony.evaluation.evaluate` (the
 rules method only) on the demo interaction log. The log's sessions are split in two halves with
 a seeded ``numpy.random.Generator``: the numbers are chosen on the *tuning* half only, and the
 *held-out* half's AUC is printed beside it at every step, so a gain that does not carry over is
@@ -15,8 +15,8 @@ than about the rule.
 
 Left fixed on purpose: the hue rules' centres (published, Moon & Spencer 1944 as commonly cited,
 and the geometry of the hue circle), the neutral threshold and fade (equal to
-``harmony.palette.NEUTRAL_COLOURFULNESS`` and ``NEUTRAL_FADE``), the lightness rules (the
-invented shoppers of ``harmony.demo_events`` have no taste for lightness at all, so the demo log
+``harmony.colour.neutral.NEUTRAL_COLOURFULNESS`` and ``NEUTRAL_FADE``), the lightness rules (the
+invented shoppers of ``harmony.demo.shoppers`` have no taste for lightness at all, so the demo log
 cannot say anything about them; ``--with-lightness`` searches them anyway, to show what it
 does), and the analogous weight (the
 reference the other weights are relative to: scaling every weight at once does not change a
@@ -29,7 +29,7 @@ The pair sections' multipliers are too many for a few hundred sessions to tune h
 script reports the held-out AUC with them as written and with all of them set to 1, so one can
 see whether they help.
 
-The shopper model behind the demo log is invented (``harmony.demo_events``), so numbers tuned
+The shopper model behind the demo log is invented (``harmony.demo.shoppers``), so numbers tuned
 here say how well the rules fit that model, nothing about real shoppers.
 
 Run: ``harmony demo --out /tmp/tune`` once, then
@@ -46,11 +46,11 @@ from types import MappingProxyType
 
 import numpy as np
 
-from harmony.evaluate import RulesMethod, build_queries, evaluate
-from harmony.events import read_events
-from harmony.paths import DEFAULT_RULES, DEMO_DIR
+from harmony.evaluation import RulesMethod, build_queries, evaluate
+from harmony.resources import DEFAULT_RULES, DEMO_DIR
 from harmony.rules import load_rules
-from harmony.store import Store
+from harmony.shop.events import read_events
+from harmony.shop.store import Store
 
 #: Multipliers tried for each parameter.
 FACTORS = (0.5, 0.75, 1.33, 2.0)

@@ -1,71 +1,75 @@
 """harmony: colour palettes from product photos, cross-category colour harmony, room sets.
 
-The public API is re-exported here, e.g. ``harmony.extract_palette(path)``.
+The public API is re-exported here, e.g. ``harmony.extract_palette(path)``. Names are resolved on
+first use, so ``import harmony`` (and the command line) stays fast.
+
+Subpackages, from the bottom up (each may import only those before it):
+
+========== ==============================================================================
+colour     sRGB <-> CAM02-UCS, neutrality, Ou & Luo (2006), hue templates
+photo      decoding, backdrop and shadow masks, palettes, swatches
+shop       catalogue, SQLite store, extraction engine, interaction logs
+rules      the rules file, rule kinds, exact pair score, all-pairs screen, wheel picture
+suggest    feed, room templates, set search under a budget, room view
+evaluation offline evaluation against interaction logs
+report     the offline HTML report
+demo       the invented demo shop and ``harmony demo`` (nothing else imports it)
+cli        the ``harmony`` command line
+========== ==============================================================================
+
+``errors``, ``fileio`` and ``resources`` sit below them all.
 """
 
-from .colour import (
-    delta_e,
-    colourfulness,
-    hue_deg,
-    jab_to_srgb1,
-    lightness,
-    lrv,
-    srgb1_to_jab,
-)
-from .errors import (
-    CatalogueError,
-    EventsError,
-    HarmonyError,
-    ImageError,
-    RoomError,
-    RulesError,
-    StoreError,
-)
-from .palette import Palette, PaletteSettings, extract_palette, neutrality
-from .rules import load_rules
-from .score import pair_score
-from .catalogue import normalise_category, read_catalogue
-from .store import Store
-from .engine import run_extraction
-from .feed import build_feed, suggest
-from .screen import screen_top_k
-from .room import load_room
-from .bundle import search_bundles
-from .events import read_events
-from .evaluate import evaluate
+import importlib
 
 __version__ = "0.1.0"
 
-__all__ = [
-    "PaletteSettings",
-    "Store",
-    "build_feed",
-    "evaluate",
-    "extract_palette",
-    "load_room",
-    "load_rules",
-    "normalise_category",
-    "pair_score",
-    "read_catalogue",
-    "read_events",
-    "run_extraction",
-    "screen_top_k",
-    "search_bundles",
-    "suggest",
-    "CatalogueError",
-    "EventsError",
-    "HarmonyError",
-    "ImageError",
-    "Palette",
-    "RoomError",
-    "RulesError",
-    "StoreError",
-    "colourfulness",
-    "delta_e",
-    "hue_deg",
-    "jab_to_srgb1",
-    "lightness",
-    "lrv",
-    "neutrality",
-    "srgb1_to_jab",
-]
+_PUBLIC = {
+    "delta_e": "harmony.colour",
+    "colourfulness": "harmony.colour",
+    "hue_deg": "harmony.colour",
+    "jab_to_srgb1": "harmony.colour",
+    "lightness": "harmony.colour",
+    "lrv": "harmony.colour",
+    "srgb1_to_jab": "harmony.colour",
+    "neutrality": "harmony.colour",
+    "CatalogueError": "harmony.errors",
+    "EventsError": "harmony.errors",
+    "HarmonyError": "harmony.errors",
+    "ImageError": "harmony.errors",
+    "RoomError": "harmony.errors",
+    "RulesError": "harmony.errors",
+    "StoreError": "harmony.errors",
+    "Palette": "harmony.photo.palette",
+    "PaletteSettings": "harmony.photo.palette",
+    "extract_palette": "harmony.photo.palette",
+    "load_rules": "harmony.rules",
+    "pair_score": "harmony.rules.score",
+    "screen_top_k": "harmony.rules.screen",
+    "normalise_category": "harmony.shop.catalogue",
+    "read_catalogue": "harmony.shop.catalogue",
+    "Store": "harmony.shop.store",
+    "run_extraction": "harmony.shop.engine",
+    "read_events": "harmony.shop.events",
+    "build_feed": "harmony.suggest.feed",
+    "suggest_partners": ("harmony.suggest.feed", "suggest"),
+    "load_room": "harmony.suggest.room",
+    "search_bundles": "harmony.suggest.bundle",
+    "evaluate": "harmony.evaluation",
+}
+
+__all__ = sorted(_PUBLIC)
+
+
+def __getattr__(name):
+    where = _PUBLIC.get(name)
+    if where is None:
+        raise AttributeError(f"module 'harmony' has no attribute {name!r}")
+    module, attr = where if isinstance(where, tuple) else (where, name)
+    value = getattr(importlib.import_module(module), attr)
+    globals()[name] = value
+    return value
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_PUBLIC))

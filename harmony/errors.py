@@ -12,6 +12,7 @@ __all__ = [
     "StoreError",
     "RoomError",
     "EventsError",
+    "warn",
 ]
 
 
@@ -41,3 +42,14 @@ class RoomError(HarmonyError):
 
 class EventsError(HarmonyError):
     """An interaction log cannot be read."""
+
+
+def warn(message):
+    """Print ``warning: message`` on standard error, one line, for the person running the job."""
+    import sys
+
+    text = " ".join(str(message).split())
+    try:
+        print(f"warning: {text}", file=sys.stderr, flush=True)
+    except (OSError, ValueError):  # stderr closed: a warning is not worth a traceback
+        pass

@@ -4,7 +4,7 @@ import os
 import tempfile
 from pathlib import Path
 
-from .errors import HarmonyError
+from harmony.errors import HarmonyError
 
 __all__ = ["write_whole", "write_text_whole", "write_bytes_whole"]
 

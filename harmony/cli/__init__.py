@@ -11,7 +11,7 @@ import sys
 
 import click
 
-from ..errors import HarmonyError
+from harmony.errors import HarmonyError
 
 __all__ = ["main", "fail", "COMMAND_MODULES"]
 

@@ -5,13 +5,14 @@ from pathlib import Path
 
 import click
 
+from harmony.errors import RoomError
+from harmony.resources import DEFAULT_RULES, DEMO_DIR
+from harmony.rules import load_rules
+from harmony.shop.store import Store
+from harmony.suggest.bundle import result_to_dict, search_bundles
+from harmony.suggest.room import load_room
+
 from . import main
-from ..bundle import result_to_dict, search_bundles
-from ..errors import RoomError
-from ..paths import DEFAULT_RULES, DEMO_DIR
-from ..room import load_room
-from ..rules import load_rules
-from ..store import Store
 from .feed_cmd import warn_unmatched_pairs
 
 

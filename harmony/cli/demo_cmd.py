@@ -14,7 +14,7 @@ __all__ = ["demo"]
 @click.option("--progress/--no-progress", default=None, help="Progress bars on stderr (default: when it is a terminal).")
 def demo(out_dir, workers, progress):
     """Run the whole job on the demo shop and write an HTML report."""
-    from ..demo import run_demo
+    from harmony.demo.run import run_demo
 
     result = run_demo(out_dir, workers=workers, progress=progress, log=lambda line: click.echo(line, err=True))
     click.echo(f"done in {result.seconds:.1f} s")

@@ -1,70 +1,16 @@
 """``harmony evaluate``: rules files and baselines ranked against an interaction log."""
 
 import json
-import os
-import sys
 
 import click
-import numpy as np
+
+from harmony.evaluation import result_table, write_html
+from harmony.evaluation.run import run_evaluation
+from harmony.resources import DEFAULT_RULES
 
 from . import main
-from ..errors import HarmonyError, StoreError
-from ..evaluate import build_queries, evaluate, result_table, standard_methods, write_html
-from ..events import parse_event_weights, read_events
-from ..paths import DEFAULT_RULES
-from ..rules import load_rules
-from ..store import Store
-from .feed_cmd import warn_unmatched_pairs
 
-__all__ = ["evaluate_command", "run_evaluation"]
-
-
-def run_evaluation(db, events, rules_files, weights=(), seed=0, resamples=1000, attribute="colour", progress=None):
-    """Everything ``harmony evaluate`` computes: ``(Evaluation, inputs)`` for the page.
-
-    ``progress`` None shows a bar when stderr is a terminal.
-
-    Raises
-    ------
-    HarmonyError
-        When the same rules file is given twice (named), besides the errors of the steps.
-    """
-    _check_distinct(rules_files)
-    rulesets = [load_rules(path) for path in rules_files]
-    event_weights = parse_event_weights(weights)
-    with Store(db) as store:
-        products = store.products()
-        palettes = store.palettes()
-    if not products:
-        raise StoreError(f"{db}: the store holds no products (run 'harmony extract CATALOGUE --db {db}')")
-    if not palettes:
-        raise StoreError(f"{db}: the store holds no palettes (run 'harmony extract CATALOGUE --db {db}')")
-    log = read_events(events, weights=event_weights, known_products={p.id for p in products})
-    queries = build_queries(log, products, palettes)
-    methods = standard_methods(rulesets, palettes, products, attribute=attribute)
-    if progress is None:
-        progress = sys.stderr.isatty()
-    result = evaluate(
-        queries, methods, products, np.random.default_rng(seed), resamples=resamples,
-        unknown=log.unknown, progress=progress, skipped=log.skipped,
-    )
-    warn_unmatched_pairs(rulesets, [p.category for p in products])
-    inputs = [("store", str(db)), ("interaction log", f"{events} ({log.rows} rows)")]
-    inputs += [("rules file", str(r.path)) for r in rulesets]
-    inputs.append(("event weights", ", ".join(f"{k} {v:g}" for k, v in event_weights.items())))
-    inputs.append(("bootstrap seed", str(seed)))
-    return result, inputs
-
-
-def _check_distinct(rules_files):
-    """Refuse a rules file given twice (the same file under two spellings counts too)."""
-    seen = {}
-    for path in rules_files:
-        key = os.path.normcase(os.path.realpath(path))
-        if key in seen:
-            same = "" if seen[key] == str(path) else f" (as {seen[key]!r} before)"
-            raise HarmonyError(f"--rules: {path} is given twice{same}; each rules file is evaluated once")
-        seen[key] = str(path)
+__all__ = ["evaluate_command"]
 
 
 def _skipped_line(skipped, limit=5):

@@ -7,12 +7,13 @@ from pathlib import Path
 
 import click
 
+from harmony.errors import HarmonyError
+from harmony.fileio import write_text_whole
+from harmony.shop.catalogue import read_catalogue
+from harmony.shop.engine import DEFAULT_DB_NAME, ENGINES, run_extraction
+from harmony.shop.store import Store
+
 from . import fail, main
-from ..catalogue import read_catalogue
-from ..engine import DEFAULT_DB_NAME, ENGINES, run_extraction
-from ..errors import HarmonyError
-from ..fileio import write_text_whole
-from ..store import Store
 
 __all__ = ["extract", "palettes", "PALETTE_CSV_COLUMNS", "SHOWN_FAILURES"]
 

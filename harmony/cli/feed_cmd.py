@@ -5,13 +5,14 @@ import sys
 
 import click
 
+from harmony.errors import HarmonyError
+from harmony.photo.swatch import ansi_block, segment_widths, terminal_has_colour
+from harmony.resources import DEFAULT_RULES
+from harmony.rules import load_rules, unmatched_pair_warnings
+from harmony.shop.store import Store
+from harmony.suggest.feed import build_feed, suggest, write_feed
+
 from . import main
-from ..errors import HarmonyError
-from ..feed import build_feed, suggest, write_feed
-from ..paths import DEFAULT_RULES
-from ..rules import load_rules, unmatched_pair_warnings
-from ..store import Store
-from ..swatch import ansi_block, segment_widths, terminal_has_colour
 
 __all__ = ["feed", "suggest_cmd", "colour_blocks", "warn_unmatched_pairs", "STRIP_CELLS"]
 

@@ -4,11 +4,12 @@ import sys
 
 import click
 
+from harmony import colour
+from harmony.errors import HarmonyError
+from harmony.photo.palette import PaletteSettings, extract_palette, neutrality
+from harmony.photo.swatch import ansi_block, terminal_has_colour, write_swatch
+
 from . import main
-from .. import colour
-from ..errors import HarmonyError
-from ..palette import PaletteSettings, extract_palette, neutrality
-from ..swatch import ansi_block, terminal_has_colour, write_swatch
 
 __all__ = ["palette", "format_table"]
 

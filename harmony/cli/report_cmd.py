@@ -23,11 +23,16 @@ __all__ = ["report"]
 @click.option("--out", "out_path", required=True, metavar="FILE.html", help="Where to write the report.")
 def report(db_path, feed_path, bundle_paths, rules_path, title, floor_lrv, illuminance_lux, out_path):
     """Write a static HTML report: product photos with palettes, pairs, room sets, flags, cautions."""
-    from ..errors import StoreError
-    from ..paths import DEFAULT_RULES
-    from ..report import gather_from_store, read_bundles, read_feed, write_report
-    from ..rules import load_rules
-    from ..store import Store
+    from harmony.errors import StoreError
+    from harmony.report.page import (
+        gather_from_store,
+        read_bundles,
+        read_feed,
+        write_report,
+    )
+    from harmony.resources import DEFAULT_RULES
+    from harmony.rules import load_rules
+    from harmony.shop.store import Store
 
     if not Path(db_path).is_file():
         raise StoreError(f"{db_path}: no such store (run 'harmony extract' first)")

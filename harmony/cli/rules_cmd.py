@@ -2,9 +2,10 @@
 
 import click
 
+from harmony.errors import RulesError
+from harmony.rules import load_rules
+
 from . import main
-from ..errors import RulesError
-from ..rules import load_rules
 
 
 @main.group("rules")
@@ -37,7 +38,7 @@ def check(files):
               help="CAM02-UCS hue of the first colour, at the top of each wheel.")
 def show(file, out, reference_hue):
     """Draw each hue rule of FILE, and each pair section's sum of them, around a hue wheel."""
-    from ..wheel import draw_hue_rules
+    from harmony.rules.wheel import draw_hue_rules
 
     rule_set = load_rules(file)
     try:

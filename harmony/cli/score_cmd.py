@@ -5,12 +5,13 @@ from pathlib import Path
 
 import click
 
+from harmony.errors import HarmonyError
+from harmony.photo.palette import Palette
+from harmony.resources import DEFAULT_RULES
+from harmony.rules import load_rules
+from harmony.rules.score import pair_score
+
 from . import main
-from ..errors import HarmonyError
-from ..palette import Palette
-from ..paths import DEFAULT_RULES
-from ..rules import load_rules
-from ..score import pair_score
 
 
 def read_palette(path):
@@ -26,9 +27,9 @@ def read_palette(path):
             raise HarmonyError(f"{path}: holds {len(lines)} palettes; give a file with one")
         return Palette.from_json(text, where=str(path))
     try:
-        from ..palette import extract_palette
+        from harmony.photo.palette import extract_palette
     except ImportError:
-        raise HarmonyError(f"{path}: reading images needs harmony.palette.extract_palette; give palette JSON") from None
+        raise HarmonyError(f"{path}: reading images needs harmony.photo.palette.extract_palette; give palette JSON") from None
     return extract_palette(path)
 
 

@@ -17,8 +17,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import colour
-from .palette import neutrality
+from harmony.colour import space as colour
+from harmony.colour.neutral import neutrality
 
 __all__ = ["HueTemplate", "TEMPLATES", "TemplateFit", "arc_outside", "fit_template", "best_template",
            "GREY_SHARE"]

@@ -21,7 +21,7 @@ the model rather than as a checked source of each number.
 import numpy as np
 from colorspacious import cspace_convert
 
-from . import colour
+from harmony.colour import space as colour
 
 __all__ = [
     "CIELAB_D65",

@@ -13,9 +13,9 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
-from .errors import HarmonyError
-from .paths import DEFAULT_RULES, DEMO_DIR
-from .report import gather_from_store, read_bundles, read_feed, write_report
+from harmony.errors import HarmonyError
+from harmony.report.page import gather_from_store, read_bundles, read_feed, write_report
+from harmony.resources import DEFAULT_RULES, DEMO_DIR
 
 __all__ = ["DEFAULT_OUT", "DemoResult", "run_demo", "demo_catalogue"]
 
@@ -51,23 +51,23 @@ def demo_catalogue(out_dir, progress=False):
     committed = DEMO_DIR / "shop" / "catalogue.csv"
     if committed.is_file():
         return committed
-    from .demo_shop import write_shop
+    from harmony.demo.shop import write_shop
 
     return write_shop(Path(out_dir) / "shop", progress=progress).catalogue
 
 
 def _bundle_json(store, rules, room_path):
     """The ``harmony bundle --json`` object of one room template over the store."""
-    from .bundle import result_to_dict, search_bundles
-    from .room import load_room
+    from harmony.suggest.bundle import result_to_dict, search_bundles
+    from harmony.suggest.room import load_room
 
     result = search_bundles(store, load_room(room_path), rules, top=BUNDLES_PER_ROOM)
     return result_to_dict(result)
 
 
 def _evaluation_tables(db_path, events_path, rules_path, progress):
-    from .cli.evaluate_cmd import run_evaluation
-    from .evaluate import result_table
+    from harmony.evaluation import result_table
+    from harmony.evaluation.run import run_evaluation
 
     result, _inputs = run_evaluation(db_path, events_path, [str(rules_path)], resamples=EVAL_RESAMPLES,
                                      progress=progress)
@@ -100,9 +100,9 @@ def run_demo(out_dir=DEFAULT_OUT, workers=None, progress=None, log=None, catalog
     HarmonyError
         If a stage fails (its message names the file).
     """
-    from .engine import run_extraction
-    from .rules import load_rules
-    from .store import Store
+    from harmony.rules import load_rules
+    from harmony.shop.engine import run_extraction
+    from harmony.shop.store import Store
 
     start = time.perf_counter()
     out_dir = Path(out_dir)
@@ -131,7 +131,7 @@ def run_demo(out_dir=DEFAULT_OUT, workers=None, progress=None, log=None, catalog
     rules = load_rules(DEFAULT_RULES)
     with Store(db_path) as store:
         t0 = time.perf_counter()
-        from .feed import build_feed, write_feed
+        from harmony.suggest.feed import build_feed, write_feed
 
         feed_rows = build_feed(store, rules, top=FEED_TOP, diversity=FEED_DIVERSITY, warn=say)
         feed_path = out_dir / "feed.jsonl"
@@ -155,7 +155,7 @@ def run_demo(out_dir=DEFAULT_OUT, workers=None, progress=None, log=None, catalog
         lap("evaluate", t0, f"rules and baselines against {events_path.name}")
 
     t0 = time.perf_counter()
-    from .demo_shop import SHOP_NAME
+    from harmony.demo.shop import SHOP_NAME
 
     with Store(db_path) as store:
         data = gather_from_store(

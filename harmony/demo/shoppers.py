@@ -29,7 +29,7 @@ The log has the columns ``session,product,event,timestamp``, sorted by time; ses
 invented dates in February 2026. A few rows name products that are no longer in the catalogue
 (:data:`RETIRED_IDS`), as real logs do; the evaluation counts and reports them.
 
-Regenerate the committed log with ``python -m harmony.demo_events``; the same seed and shop give
+Regenerate the committed log with ``python -m harmony.demo.shoppers``; the same seed and shop give
 a byte-identical file.
 """
 
@@ -43,11 +43,11 @@ from pathlib import Path
 
 import numpy as np
 
-from .catalogue import normalise_category
-from .colour import hue_deg
-from .palette import neutrality
-from .paths import DEMO_DIR
-from .fileio import write_text_whole
+from harmony.colour import hue_deg
+from harmony.colour.neutral import neutrality
+from harmony.fileio import write_text_whole
+from harmony.resources import DEMO_DIR
+from harmony.shop.catalogue import normalise_category
 
 __all__ = [
     "DEFAULT_SEED",
@@ -126,7 +126,7 @@ def simulate_sessions(products, palettes, rooms, rng, sessions=SESSIONS):
 
     Parameters
     ----------
-    products : sequence of harmony.catalogue.Product
+    products : sequence of harmony.shop.catalogue.Product
     palettes : mapping of str to Palette
         Products without a palette are never shown.
     rooms : sequence of sequences of str
@@ -204,7 +204,7 @@ def events_csv(rows, start=_START):
 
 
 def _rooms(directory):
-    from .room import load_room
+    from harmony.suggest.room import load_room
 
     rooms = []
     for path in sorted(Path(directory).glob("*.toml")):
@@ -239,8 +239,8 @@ def write_demo_events(out=DEFAULT_EVENTS_PATH, shop=DEMO_DIR / "shop", rooms_dir
     (Path, int)
         The file written and its number of data rows.
     """
-    from .engine import run_extraction
-    from .store import Store
+    from harmony.shop.engine import run_extraction
+    from harmony.shop.store import Store
 
     with tempfile.TemporaryDirectory() as tmp:
         db = Path(db_path) if db_path is not None else Path(tmp) / "shop.db"
@@ -253,8 +253,8 @@ def write_demo_events(out=DEFAULT_EVENTS_PATH, shop=DEMO_DIR / "shop", rooms_dir
 
 
 def main(argv=None):
-    """``python -m harmony.demo_events [--out FILE] [--seed N]``: regenerate the demo log."""
-    parser = argparse.ArgumentParser(prog="python -m harmony.demo_events",
+    """``python -m harmony.demo.shoppers [--out FILE] [--seed N]``: regenerate the demo log."""
+    parser = argparse.ArgumentParser(prog="python -m harmony.demo.shoppers",
                                      description="Regenerate the invented demo shop's interaction log.")
     parser.add_argument("--out", default=str(DEFAULT_EVENTS_PATH), help="output file (default: %(default)s)")
     parser.add_argument("--seed", type=int, default=DEFAULT_SEED, help="generator seed (default: %(default)s)")

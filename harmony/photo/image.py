@@ -20,7 +20,7 @@ from pathlib import Path
 import numpy as np
 from PIL import Image, ImageCms, UnidentifiedImageError
 
-from .errors import ImageError
+from harmony.errors import ImageError
 
 __all__ = [
     "MAX_PIXELS",

@@ -17,7 +17,7 @@ tells such a frame from a studio shot, applied once the border is found uniform:
   share is far higher than the ring's; the stray threads of a weave fall equally everywhere.
 * The border colour is **not** a studio backdrop. A studio backdrop is light and near-neutral:
   J' at least :data:`BACKDROP_MIN_LIGHTNESS` (75, sRGB grey 0.7 or lighter) and M' below
-  :data:`harmony.palette.NEUTRAL_COLOURFULNESS` (white to light-grey seamless paper and sweeps,
+  :data:`harmony.colour.neutral.NEUTRAL_COLOURFULNESS` (white to light-grey seamless paper and sweeps,
   common practice).
 
 When both hold the frame is one material: nothing is removed, every opaque pixel counts with
@@ -152,9 +152,9 @@ def _side_spread(jab, transparent, width):
 
 def is_backdrop_colour(jab):
     """True where a colour could be a studio backdrop: light (J' >= :data:`BACKDROP_MIN_LIGHTNESS`)
-    and near-neutral (M' below :data:`harmony.palette.NEUTRAL_COLOURFULNESS`). Shape (...)."""
-    from .colour import colourfulness
-    from .palette import NEUTRAL_COLOURFULNESS
+    and near-neutral (M' below :data:`harmony.colour.neutral.NEUTRAL_COLOURFULNESS`). Shape (...)."""
+    from harmony.colour import colourfulness
+    from harmony.colour.neutral import NEUTRAL_COLOURFULNESS
 
     jab = np.asarray(jab, dtype=float)
     return (jab[..., 0] >= BACKDROP_MIN_LIGHTNESS) & (colourfulness(jab) < NEUTRAL_COLOURFULNESS)

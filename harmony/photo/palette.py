@@ -8,8 +8,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import colour
-from .errors import HarmonyError, ImageError
+from harmony import colour
+from harmony.colour.neutral import NEUTRAL_COLOURFULNESS, NEUTRAL_FADE, neutrality
+from harmony.errors import HarmonyError, ImageError
 
 __all__ = [
     "Palette",
@@ -22,30 +23,6 @@ __all__ = [
     "NEUTRAL_FADE",
     "neutrality",
 ]
-
-#: Colourfulness M' below which a colour counts as neutral (its hue carries no meaning), and the
-#: full width of the smooth fade around it. Measured with colour-science's Munsell renotation data
-#: (value 6, ten principal hues, Illuminant C adapted to D65 with CAT02) through colorspacious:
-#: chroma 1 lands at M' 2.7-6.5, chroma 2 at 5.4-10.5, chroma 4 at 10.7-16.8; sRGB white is 2.2.
-#: A centre of 7 with a fade from 5 to 9 treats chroma-1 colours as neutral, chroma-4 colours as
-#: chromatic, and blends chroma 2 (greige, stone, putty: neutrals in interior-design common practice).
-#: ``rules/default.toml`` carries the same numbers; a test checks that they agree.
-NEUTRAL_COLOURFULNESS = 7.0
-NEUTRAL_FADE = 4.0
-
-
-def neutrality(jab, threshold=NEUTRAL_COLOURFULNESS, fade=NEUTRAL_FADE):
-    """How neutral each colour is, in [0, 1]: 1 well below ``threshold``, 0 well above it.
-
-    A smoothstep over colourfulness M' from ``threshold - fade/2`` to ``threshold + fade/2``,
-    so there is no cliff at the threshold. Shape (...) for ``jab`` of shape (..., 3).
-    """
-    m = colour.colourfulness(jab)
-    if fade <= 0:
-        return (m < threshold).astype(float)
-    t = np.clip((m - (threshold - fade / 2.0)) / fade, 0.0, 1.0)
-    return 1.0 - t * t * (3.0 - 2.0 * t)
-
 
 def _frozen(arr, shape_tail, name):
     out = np.array(arr, dtype=float)
@@ -216,8 +193,8 @@ JND_DELTA_E = 2.3
 
 #: Version of the extraction method; part of :attr:`PaletteSettings.key`, so stored palettes
 #: made by an older method are not mistaken for current ones. Version 3: one-material
-#: (full-bleed) frames keep every pixel (:mod:`harmony.mask`), and the pixel cap applies to the
-#: decoded size (:mod:`harmony.image`).
+#: (full-bleed) frames keep every pixel (:mod:`harmony.photo.mask`), and the pixel cap applies to the
+#: decoded size (:mod:`harmony.photo.image`).
 METHOD_VERSION = 3
 
 
@@ -247,7 +224,7 @@ class PaletteSettings:
         left out of the palette (unless that would leave out most of the product).
     max_pixels : int
         Decompression-bomb cap on the decoded size (after JPEG draft-mode scaling); the declared
-        size is capped at :data:`harmony.image.MAX_DECLARED_PIXELS` whatever this is.
+        size is capped at :data:`harmony.photo.image.MAX_DECLARED_PIXELS` whatever this is.
     seed : int
         Seed of the k-means++ initialisation.
     """
@@ -440,11 +417,11 @@ def _bin_colours(srgb8, levels):
 
 
 def palette_from_decoded(decoded, settings=PaletteSettings()):
-    """Extract the palette of an already decoded image (:class:`harmony.image.DecodedImage`).
+    """Extract the palette of an already decoded image (:class:`harmony.photo.image.DecodedImage`).
 
     See :func:`extract_palette` for the method.
     """
-    from .mask import foreground_mask
+    from harmony.photo.mask import foreground_mask
 
     h, w = decoded.srgb8.shape[:2]
     inverse, bin_jab, weighted_means = _bin_colours(decoded.srgb8, settings.levels)
@@ -522,13 +499,13 @@ def extract_palette(source, settings=PaletteSettings()):
         ``"<file>: <reason>"`` for a missing or unreadable file, a file that is not an image, a
         truncated or corrupt image, one over a pixel limit, or one with nothing left after
         removing the background (an empty studio backdrop; a full-bleed frame of one material
-        keeps all its pixels instead, see :mod:`harmony.mask`).
+        keeps all its pixels instead, see :mod:`harmony.photo.mask`).
 
     Notes
     -----
     Steps: decode small (JPEG draft mode, then a box filter to ``max_side``); bin pixels at
     ``levels`` per channel and convert each occupied bin's mean colour to CAM02-UCS; find the
-    backdrop and shadow (:func:`harmony.mask.foreground_mask`); weighted k-means on the product's
+    backdrop and shadow (:func:`harmony.photo.mask.foreground_mask`); weighted k-means on the product's
     bins; merge colours closer than ``merge_delta_e``; drop specks under ``min_share``.
 
     A textured surface of one colour (a woven fabric, a grained wood) is a spread of shades, not
@@ -539,9 +516,9 @@ def extract_palette(source, settings=PaletteSettings()):
     the photo; the score is bilinear in the weights and smooth in the colours, so it barely
     depends on how the spread is cut (collapsing those six blues into one moves that sofa's pair
     scores by at most 0.011). Families of shades are formed where they are needed, by
-    :func:`harmony.roomview.colour_groups`.
+    :func:`harmony.suggest.roomview.colour_groups`.
     """
-    from .image import decode_image, read_source
+    from harmony.photo.image import decode_image, read_source
 
     data, name = read_source(source)
     decoded = decode_image(data, name=name, max_side=settings.max_side, max_pixels=settings.max_pixels)

@@ -6,8 +6,8 @@ import os
 import numpy as np
 from PIL import Image
 
-from . import colour
-from .fileio import write_bytes_whole
+from harmony import colour
+from harmony.fileio import write_bytes_whole
 
 __all__ = ["segment_widths", "swatch_array", "write_swatch", "ansi_block", "terminal_has_colour"]
 

@@ -2,7 +2,7 @@
 
 :func:`gather_report` turns products, palettes, feed rows and bundle results into a
 :class:`ReportData` of small frozen views (no HTML in them except the SVG drawings, which
-:mod:`harmony.svg` builds with every label escaped). :func:`render_report` fills the jinja2
+:mod:`harmony.report.svg` builds with every label escaped). :func:`render_report` fills the jinja2
 template ``templates/report.html.j2`` with autoescaping on, so every string that came from a
 catalogue, a feed or a bundle file is escaped. Thumbnails are embedded as base64 data URIs and the
 CSS is inline: the file needs no network and no scripts.
@@ -19,9 +19,10 @@ import jinja2
 import numpy as np
 from markupsafe import Markup
 
-from . import colour
-from .errors import HarmonyError
-from .safety import (
+from harmony import colour
+from harmony.errors import HarmonyError
+from harmony.fileio import write_text_whole
+from harmony.report.safety import (
     CAUTION_NOTE,
     close_band,
     contrast_caution,
@@ -30,8 +31,7 @@ from .safety import (
     stands_on_floor,
     surface_lrv,
 )
-from .fileio import write_text_whole
-from .svg import WheelLink, hue_wheel_svg, palette_strip_svg
+from harmony.report.svg import WheelLink, hue_wheel_svg, palette_strip_svg
 
 __all__ = [
     "ProductView",
@@ -157,7 +157,7 @@ class FloorView:
     rug: ProductView
     required: float
     band: tuple  # (low, high)
-    caution: object = None  # harmony.safety.ContrastCaution | None
+    caution: object = None  # harmony.report.safety.ContrastCaution | None
     where: str = ""
 
 
@@ -333,7 +333,7 @@ def _links(pair_score, pal_a, pal_b, limit=4):
 
 def _wheel(rules, pal_a, pal_b, cat_a, cat_b, names):
     """Hue wheel of two palettes with the rule links of their exact pair score."""
-    from .score import pair_score
+    from harmony.rules.score import pair_score
 
     links, rows = [], ()
     if rules is not None and rules.pairs_with(cat_a, cat_b):
@@ -375,7 +375,7 @@ def _pick_suggestions(rows, limit):
 def _proportions(value):
     """Room-level proportions of a bundle as (label, text) rows.
 
-    Understands the room view of :mod:`harmony.roomview` (dominant / secondary / accent shares,
+    Understands the room view of :mod:`harmony.suggest.roomview` (dominant / secondary / accent shares,
     their distance from 60-30-10, the best Matsuda hue template); other keys are shown as given.
     """
     if value is None:
@@ -413,7 +413,7 @@ def _proportions(value):
 
 def _room_strip(proportions):
     """The room view's grouped palette ({hex: weight}) as a strip, or None when absent or malformed."""
-    from .palette import Palette
+    from harmony.photo.palette import Palette
 
     pal = proportions.get("palette") if isinstance(proportions, dict) else None
     if not isinstance(pal, dict) or not pal:
@@ -439,7 +439,7 @@ def _combined_strip(items, palettes):
         w.append(pal.weights * item.quantity)
     if not jab:
         return Markup("")
-    from .palette import Palette
+    from harmony.photo.palette import Palette
 
     jab = np.concatenate(jab)
     w = np.concatenate(w)
@@ -570,7 +570,7 @@ def gather_report(
 
     Parameters
     ----------
-    products : iterable of harmony.catalogue.Product
+    products : iterable of harmony.shop.catalogue.Product
         Every product to show (id, title, category, price, currency, stock).
     palettes : mapping of str to Palette
         Chosen palette per product id; products without one are flagged.
@@ -681,7 +681,7 @@ def gather_report(
 
 
 def gather_from_store(store, feed_rows=(), bundle_results=(), rules=None, **kwargs):
-    """:func:`gather_report` over everything in a :class:`harmony.store.Store`."""
+    """:func:`gather_report` over everything in a :class:`harmony.shop.store.Store`."""
     products = store.products()
     palettes = store.palettes()
     images = {p.id: store.image_path(p.id) for p in products if p.id in palettes}

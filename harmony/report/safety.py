@@ -24,7 +24,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import colour
+from harmony import colour
 
 __all__ = [
     "MIN_LRV_DIFFERENCE",
@@ -93,7 +93,7 @@ def surface_lrv(palette):
 
     Parameters
     ----------
-    palette : harmony.palette.Palette
+    palette : harmony.photo.palette.Palette
 
     Returns
     -------

@@ -16,8 +16,8 @@ from html import escape
 
 import numpy as np
 
-from . import colour
-from .palette import NEUTRAL_COLOURFULNESS, NEUTRAL_FADE, neutrality
+from harmony import colour
+from harmony.colour.neutral import NEUTRAL_COLOURFULNESS, NEUTRAL_FADE, neutrality
 
 __all__ = [
     "WheelLink",
@@ -66,7 +66,7 @@ def palette_strip_svg(palette, width=240, height=24, label=None):
 
     Parameters
     ----------
-    palette : harmony.palette.Palette
+    palette : harmony.photo.palette.Palette
     width, height : float
         Size of the drawing in CSS pixels.
     label : str, optional
@@ -164,7 +164,7 @@ def hue_wheel_svg(
 
     Parameters
     ----------
-    palette_a, palette_b : harmony.palette.Palette
+    palette_a, palette_b : harmony.photo.palette.Palette
         Colours of ``palette_a`` are drawn as discs, those of ``palette_b`` as diamonds; the area of
         each mark grows with the colour's weight.
     links : iterable of WheelLink
@@ -174,7 +174,7 @@ def hue_wheel_svg(
     names : (str, str)
         Names of the two palettes for the tooltips (escaped).
     neutral_threshold, neutral_fade : float
-        Colours with :func:`harmony.palette.neutrality` >= 0.5 are gathered in the central disc,
+        Colours with :func:`harmony.colour.neutral.neutrality` >= 0.5 are gathered in the central disc,
         since their hue carries no meaning; the dashed circle marks ``neutral_threshold``.
     max_colourfulness : float
         M' at the rim.

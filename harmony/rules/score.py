@@ -11,8 +11,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import colour
-from .palette import neutrality
+from harmony import colour
+from harmony.colour.neutral import neutrality
 
 __all__ = [
     "ColourPair",
@@ -305,7 +305,7 @@ def pair_score(pal_a, pal_b, pair_rules, top=5, *, labels_a=None, labels_b=None)
 
     Parameters
     ----------
-    pal_a, pal_b : harmony.palette.Palette
+    pal_a, pal_b : harmony.photo.palette.Palette
         Anything with ``jab`` (k, 3) and ``weights`` (k,) works; ``pal_a`` belongs to the first
         category of ``pair_rules``.
     pair_rules : harmony.rules.PairRules
@@ -360,7 +360,7 @@ def pair_scores(pals_a, pals_b, pair_rules, top=5, *, labels_a=None, labels_b=No
         :meth:`harmony.rules.PairRules.pairwise_terms` on zero-weight-padded palettes, then cut
         back to each palette's own colours.
     """
-    from .screen import PaletteStack
+    from harmony.rules.screen import PaletteStack
 
     pals_a, pals_b = list(pals_a), list(pals_b)
     if len(pals_a) != len(pals_b):

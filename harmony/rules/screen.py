@@ -1,7 +1,7 @@
 """All cross-category pairs at once: soft-binned histograms, one blocked matrix product, exact re-rank.
 
 The exact raw score of two palettes is bilinear in their weights (the contract of
-:mod:`harmony.score`)::
+:mod:`harmony.rules.score`)::
 
     raw(a, b) = w_a @ kernel(jab_a, jab_b) @ w_b
 
@@ -25,7 +25,7 @@ Bins
 * neutral bins: ``lightness_bins`` lightness levels on the grey axis (a' = b' = 0); a colour's
   neutral share is spread over the four (cubic) or two (linear) nearest levels.
 
-The neutral share of a colour is :func:`harmony.palette.neutrality` (the same smooth fade the
+The neutral share of a colour is :func:`harmony.colour.neutral.neutrality` (the same smooth fade the
 rules use), the chromatic share is the rest. A chromatic centre takes the weighted mean
 colourfulness M' of the colours that fell into it (at least the end of the neutral fade, so the
 centre is fully chromatic); an empty bin takes :data:`DEFAULT_CENTRE_COLOURFULNESS`.
@@ -40,7 +40,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .palette import NEUTRAL_COLOURFULNESS, NEUTRAL_FADE, Palette, neutrality
+from harmony.colour.neutral import NEUTRAL_COLOURFULNESS, NEUTRAL_FADE, neutrality
+from harmony.photo.palette import Palette
 
 __all__ = [
     "BinGrid",
@@ -82,7 +83,7 @@ class BinGrid:
     lightness_bins : int
         Number of lightness levels J' from 0 to 100, for the chromatic grid and the grey axis.
     neutral_threshold, neutral_fade : float
-        The neutral fade of :func:`harmony.palette.neutrality`; use the rules file's values.
+        The neutral fade of :func:`harmony.colour.neutral.neutrality`; use the rules file's values.
     interpolation : {"cubic", "linear"}
         How a colour's weight is spread over the grid: bilinear over the 2 x 2 nearest centres,
         or bicubic (Keys 1981) over the 4 x 4 nearest, whose weights may be negative but whose
@@ -166,7 +167,7 @@ class PaletteStack:
 
     @classmethod
     def from_palettes(cls, palettes):
-        """Pack a sequence of :class:`~harmony.palette.Palette` (or a PaletteStack, returned as is)."""
+        """Pack a sequence of :class:`~harmony.photo.palette.Palette` (or a PaletteStack, returned as is)."""
         if isinstance(palettes, PaletteStack):
             return palettes
         palettes = list(palettes)

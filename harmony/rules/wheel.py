@@ -12,7 +12,7 @@ from pathlib import Path
 import numpy as np
 from PIL import Image, ImageDraw, ImageFont
 
-from . import colour
+from harmony import colour
 
 __all__ = ["HEADER_HEIGHT", "hue_ring_srgb1", "wheel_geometry", "draw_hue_rules"]
 
@@ -145,7 +145,7 @@ def draw_hue_rules(rule_set, path, *, panel=240, reference_hue=40.0, columns=4):
         total = sum(w * rule.profile(thetas) for rule, w in pair_rules.hue_rules)
         items.append((label, "sum of its hue rules", total))
     if not items:
-        from .errors import RulesError
+        from harmony.errors import RulesError
 
         raise RulesError(f"{rule_set.path}: the file has no hue rules to draw")
     scale = max(float(np.max(np.abs(v))) for _, _, v in items) or 1.0

@@ -19,7 +19,7 @@ import unicodedata
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .errors import CatalogueError
+from harmony.errors import CatalogueError
 
 __all__ = [
     "Product",

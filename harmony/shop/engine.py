@@ -31,9 +31,9 @@ from pathlib import Path
 
 from tqdm import tqdm
 
-from .catalogue import Catalogue, read_catalogue
-from .errors import CatalogueError, HarmonyError, ImageError, StoreError
-from .store import FileHash, Store
+from harmony.errors import CatalogueError, HarmonyError, ImageError, StoreError
+from harmony.shop.catalogue import Catalogue, read_catalogue
+from harmony.shop.store import FileHash, Store
 
 __all__ = [
     "ExtractionSummary",
@@ -210,7 +210,7 @@ def plan_chunks(items, workers, chunk_size=None):
 
 
 def _default_extractor():
-    from .palette import extract_palette
+    from harmony.photo.palette import extract_palette
 
     return extract_palette
 
@@ -224,7 +224,7 @@ def extract_chunk(items, settings, extractor=None):
     settings : object with ``.key``
         Passed to ``extractor``.
     extractor : callable (path, settings) -> Palette, optional
-        Default :func:`harmony.palette.extract_palette`. Must be picklable.
+        Default :func:`harmony.photo.palette.extract_palette`. Must be picklable.
 
     Returns
     -------
@@ -284,13 +284,13 @@ def run_extraction(
         Address of a Dask scheduler (``tcp://host:8786``); without it ``"dask"`` starts a local
         cluster of ``workers`` processes.
     settings : PaletteSettings, optional
-        Default ``harmony.palette.PaletteSettings()``. Its ``.key`` keys the palettes.
+        Default ``harmony.photo.palette.PaletteSettings()``. Its ``.key`` keys the palettes.
     progress : bool or None
         Progress bar on stderr: None shows it when stderr is a terminal.
     chunk_size : int, optional
         Images per task; see :func:`plan_chunks`.
     extractor : callable (path, settings) -> Palette, optional
-        Default :func:`harmony.palette.extract_palette`; must be picklable.
+        Default :func:`harmony.photo.palette.extract_palette`; must be picklable.
 
     Returns
     -------
@@ -315,7 +315,7 @@ def run_extraction(
     if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
         raise HarmonyError(f"workers must be a whole number of at least 1, got {workers!r}")
     if settings is None:
-        from .palette import PaletteSettings
+        from harmony.photo.palette import PaletteSettings
 
         settings = PaletteSettings()
     key = str(settings.key)

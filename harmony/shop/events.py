@@ -28,7 +28,7 @@ from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
 
-from .errors import EventsError
+from harmony.errors import EventsError
 
 __all__ = [
     "DEFAULT_EVENT_WEIGHTS",

@@ -21,9 +21,9 @@ from pathlib import Path
 
 import numpy as np
 
-from .catalogue import Product, normalise_category
-from .errors import StoreError
-from .palette import Palette
+from harmony.errors import StoreError
+from harmony.photo.palette import Palette
+from harmony.shop.catalogue import Product, normalise_category
 
 __all__ = ["Store", "SCHEMA_VERSION", "SCENE_CONFIDENCE", "FileHash"]
 
@@ -427,7 +427,7 @@ class Store:
             for name in ("products", "images", "palettes", "failures")
         }
 
-    # -- writing (used by harmony.engine) ------------------------------------------------------
+    # -- writing (used by harmony.shop.engine) ------------------------------------------------------
 
     def file_hashes(self):
         """{absolute image path: FileHash} remembered from earlier runs (for the stat cache)."""
@@ -448,7 +448,7 @@ class Store:
 
         Parameters
         ----------
-        catalogue : harmony.catalogue.Catalogue
+        catalogue : harmony.shop.catalogue.Catalogue
         hashes : dict of str to FileHash
             By absolute image path (``catalogue.image_file(image)``), for every image.
         settings_key : str

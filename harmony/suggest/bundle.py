@@ -26,7 +26,7 @@ from dataclasses import dataclass, field
 import networkx as nx
 import numpy as np
 
-from .errors import RoomError
+from harmony.errors import RoomError
 
 __all__ = [
     "Candidate",
@@ -523,7 +523,7 @@ class RoomBundle:
     total_price: float
     items: tuple        # ((slot name, product id, quantity, unit price), ...)
     pairs: tuple        # ((slot a, slot b, score, weight), ...)
-    view: object        # harmony.roomview.RoomView
+    view: object        # harmony.suggest.roomview.RoomView
 
 
 @dataclass(frozen=True)
@@ -543,10 +543,10 @@ class BundleResult:
 def _all_pair_scores(pals_a, pals_b, pair_rules):
     """Exact pair scores of every palette of ``pals_a`` with every one of ``pals_b``, (n_a, n_b).
 
-    Uses the bilinear form of the raw score (``harmony.score``): with all colours stacked,
+    Uses the bilinear form of the raw score (``harmony.rules.score``): with all colours stacked,
     ``raw = W_a K W_b^T`` where W holds each palette's weights in its own block of columns.
     """
-    from .score import to_unit
+    from harmony.rules.score import to_unit
 
     def stack(pals):
         jab = np.concatenate([p.jab for p in pals])
@@ -571,13 +571,13 @@ def _prune_pool(room, s, pools, palettes, rules, pool_limit):
     """The ``pool_limit`` candidates of slot ``s`` with the best weighted partner scores.
 
     A candidate's potential is ``sum over partner slots t of w_st * (its best score with pool t)``,
-    the best partner found by the screen (:func:`harmony.screen.screen_top_k`, exact re-rank of
+    the best partner found by the screen (:func:`harmony.rules.screen.screen_top_k`, exact re-rank of
     the screened candidates), so no full score matrix of a large category is ever formed. With an
     anchor, the anchor is the whole pool of its slot, so the pool gathers around it. The cheapest
     candidate is always kept, so a budget that admits some complete set still does.
     """
-    from .score import to_unit
-    from .screen import screen_top_k
+    from harmony.rules.score import to_unit
+    from harmony.rules.screen import screen_top_k
 
     slot, pool = room.slots[s], pools[s]
     potential = np.zeros(len(pool))
@@ -707,8 +707,8 @@ def search_bundles(store, room, rules, budget=None, anchor=None, exclude=(), top
 
     Parameters
     ----------
-    store : harmony.store.Store
-    room : harmony.room.RoomTemplate
+    store : harmony.shop.store.Store
+    room : harmony.suggest.room.RoomTemplate
     rules : harmony.rules.RuleSet
     budget : float or None
         Overrides the room template's budget.
@@ -724,9 +724,9 @@ def search_bundles(store, room, rules, budget=None, anchor=None, exclude=(), top
     Returns
     -------
     BundleResult
-        Bundles best first, each with its room-level view (:func:`harmony.roomview.room_view`).
+        Bundles best first, each with its room-level view (:func:`harmony.suggest.roomview.room_view`).
     """
-    from .roomview import room_view
+    from harmony.suggest.roomview import room_view
 
     problem, eligible, palettes = build_problem(store, room, rules, budget, anchor, exclude, pool_limit)
     result = search(problem, top=top, min_difference=min_difference, max_nodes=max_nodes)

@@ -1,7 +1,7 @@
 """The cross-sell feed and stylist suggestions: best partners of each product in other categories.
 
 For every product and every category the rules pair its category with, the feed lists the top-N
-partners by exact pair score (found by :mod:`harmony.screen`), out-of-stock partners excluded.
+partners by exact pair score (found by :mod:`harmony.rules.screen`), out-of-stock partners excluded.
 With ``diversity > 0`` the list is chosen by maximal marginal relevance, so that near-identical
 partners (the same rug in three sizes) do not fill it.
 
@@ -24,12 +24,18 @@ from pathlib import Path
 import numpy as np
 from tqdm import tqdm
 
-from .catalogue import normalise_category
-from .errors import HarmonyError, StoreError
-from .fileio import write_text_whole, write_whole
-from .palette import Palette
-from .score import PairScore, colour_labels, pair_score, pair_scores, to_unit
-from .screen import BinGrid, PaletteStack, exact_raw, screen_top_k
+from harmony.errors import HarmonyError, StoreError
+from harmony.fileio import write_text_whole, write_whole
+from harmony.photo.palette import Palette
+from harmony.rules.score import (
+    PairScore,
+    colour_labels,
+    pair_score,
+    pair_scores,
+    to_unit,
+)
+from harmony.rules.screen import BinGrid, PaletteStack, exact_raw, screen_top_k
+from harmony.shop.catalogue import normalise_category
 
 __all__ = [
     "FeedRow",
@@ -69,7 +75,7 @@ EXACT_PAIRS = 20_000
 class FeedRow:
     """One line of the feed: ``partner`` is the ``rank``-th best partner of ``product``.
 
-    Categories are normalised (:func:`harmony.catalogue.normalise_category`); ``rank`` starts
+    Categories are normalised (:func:`harmony.shop.catalogue.normalise_category`); ``rank`` starts
     at 1; ``score`` is the exact pair score in [0, 1]; ``reason`` is its explanation sentence.
     """
 
@@ -200,7 +206,7 @@ def build_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, 
 
     Parameters
     ----------
-    store : harmony.store.Store
+    store : harmony.shop.store.Store
     rules : harmony.rules.RuleSet
     top : int
         Partners per product and target category.
@@ -299,7 +305,7 @@ def suggest(store, rules, product_id, category=None, n=5):
 
     Parameters
     ----------
-    store : harmony.store.Store
+    store : harmony.shop.store.Store
     rules : harmony.rules.RuleSet
     product_id : str
     category : str, optional

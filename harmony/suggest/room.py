@@ -34,8 +34,8 @@ import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 
-from .catalogue import normalise_category
-from .errors import RoomError
+from harmony.errors import RoomError
+from harmony.shop.catalogue import normalise_category
 
 __all__ = ["RoomSlot", "RoomTemplate", "load_room", "parse_room"]
 

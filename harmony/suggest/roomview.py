@@ -11,8 +11,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import colour
-from .hue_templates import TemplateFit, best_template
+from harmony import colour
+from harmony.colour.hue_templates import TemplateFit, best_template
 
 __all__ = [
     "RoomView",

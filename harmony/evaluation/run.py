@@ -1,0 +1,65 @@
+"""One whole evaluation from files: a store, an interaction log and rules files (``harmony evaluate``)."""
+
+import os
+import sys
+
+import numpy as np
+
+from harmony.errors import HarmonyError, StoreError, warn
+from harmony.evaluation.core import evaluate
+from harmony.evaluation.methods import standard_methods
+from harmony.evaluation.queries import build_queries
+from harmony.rules import load_rules, unmatched_pair_warnings
+from harmony.shop.events import parse_event_weights, read_events
+from harmony.shop.store import Store
+
+__all__ = ["run_evaluation"]
+
+
+def run_evaluation(db, events, rules_files, weights=(), seed=0, resamples=1000, attribute="colour", progress=None):
+    """Everything ``harmony evaluate`` computes: ``(Evaluation, inputs)`` for the page.
+
+    ``progress`` None shows a bar when stderr is a terminal.
+
+    Raises
+    ------
+    HarmonyError
+        When the same rules file is given twice (named), besides the errors of the steps.
+    """
+    _check_distinct(rules_files)
+    rulesets = [load_rules(path) for path in rules_files]
+    event_weights = parse_event_weights(weights)
+    with Store(db) as store:
+        products = store.products()
+        palettes = store.palettes()
+    if not products:
+        raise StoreError(f"{db}: the store holds no products (run 'harmony extract CATALOGUE --db {db}')")
+    if not palettes:
+        raise StoreError(f"{db}: the store holds no palettes (run 'harmony extract CATALOGUE --db {db}')")
+    log = read_events(events, weights=event_weights, known_products={p.id for p in products})
+    queries = build_queries(log, products, palettes)
+    methods = standard_methods(rulesets, palettes, products, attribute=attribute)
+    if progress is None:
+        progress = sys.stderr.isatty()
+    result = evaluate(
+        queries, methods, products, np.random.default_rng(seed), resamples=resamples,
+        unknown=log.unknown, progress=progress, skipped=log.skipped,
+    )
+    for message in unmatched_pair_warnings(rulesets, [p.category for p in products]):
+        warn(message)
+    inputs = [("store", str(db)), ("interaction log", f"{events} ({log.rows} rows)")]
+    inputs += [("rules file", str(r.path)) for r in rulesets]
+    inputs.append(("event weights", ", ".join(f"{k} {v:g}" for k, v in event_weights.items())))
+    inputs.append(("bootstrap seed", str(seed)))
+    return result, inputs
+
+
+def _check_distinct(rules_files):
+    """Refuse a rules file given twice (the same file under two spellings counts too)."""
+    seen = {}
+    for path in rules_files:
+        key = os.path.normcase(os.path.realpath(path))
+        if key in seen:
+            same = "" if seen[key] == str(path) else f" (as {seen[key]!r} before)"
+            raise HarmonyError(f"--rules: {path} is given twice{same}; each rules file is evaluated once")
+        seen[key] = str(path)

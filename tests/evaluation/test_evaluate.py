@@ -1,0 +1,463 @@
+import importlib
+import itertools
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+from scipy.stats import wasserstein_distance
+from sklearn.metrics import ndcg_score, roc_auc_score
+
+from harmony.errors import EventsError, HarmonyError
+from harmony.evaluation import (
+    ColourAttributeMethod,
+    RandomMethod,
+    RulesMethod,
+    SameColoursMethod,
+    auc,
+    build_queries,
+    emd,
+    emd_one_to_many,
+    evaluate,
+    hit_at_k,
+    ndcg_at_k,
+    standard_methods,
+)
+from harmony.photo.palette import Palette
+from harmony.rules import load_rules
+from harmony.shop.catalogue import Product
+from harmony.shop.events import read_events
+
+DATA = Path(__file__).parent.parent / "data" / "eval"
+
+
+def random_lists(seed, n_lists=60):
+    """Score lists with many ties and graded gains, each with a positive and a negative."""
+    rng = np.random.default_rng(seed)
+    out = []
+    while len(out) < n_lists:
+        n = int(rng.integers(2, 40))
+        scores = rng.integers(0, 6, n).astype(float)
+        gains = rng.integers(1, 4, n) * (rng.random(n) < 0.3)
+        if 0 < np.count_nonzero(gains) < n:
+            out.append((scores, gains.astype(float)))
+    return out
+
+
+# ---- metrics against scikit-learn -------------------------------------------------------------
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_auc_matches_scikit_learn(seed):
+    # Reference: sklearn.metrics.roc_auc_score, ties included.
+    for scores, gains in random_lists(seed):
+        assert auc(scores, gains > 0) == pytest.approx(roc_auc_score(gains > 0, scores), abs=1e-12)
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+@pytest.mark.parametrize("k", [1, 3, 10])
+def test_ndcg_matches_scikit_learn(seed, k):
+    # Reference: sklearn.metrics.ndcg_score (ignore_ties=False averages tied gains, as we do).
+    for scores, gains in random_lists(seed):
+        assert ndcg_at_k(scores, gains, k) == pytest.approx(ndcg_score([gains], [scores], k=k), abs=1e-12)
+
+
+def test_ndcg_worked_example():
+    # Worked by hand: gains 3, 0, 2 in score order; DCG = 3/log2(2) + 0 + 2/log2(4) = 4;
+    # ideal 3, 2, 0: 3 + 2/log2(3).
+    assert ndcg_at_k([0.9, 0.5, 0.1], [3, 0, 2], k=10) == pytest.approx(4.0 / (3.0 + 2.0 / math.log2(3.0)))
+
+
+def test_hit_at_k_matches_enumeration_of_tie_orders():
+    # Reference: the definition, averaged over every order of the tied candidates (exhaustive).
+    rng = np.random.default_rng(5)
+    for _ in range(40):
+        n = int(rng.integers(2, 8))
+        scores = rng.integers(0, 3, n).astype(float)
+        labels = rng.random(n) < 0.3
+        if not labels.any():
+            labels[0] = True
+        k = int(rng.integers(1, n + 1))
+        hits = []
+        for perm in itertools.permutations(range(n)):
+            # A permutation is a tie order: sort by score, then by position in the permutation.
+            rank = sorted(range(n), key=lambda i: (-scores[i], perm.index(i)))
+            hits.append(any(labels[i] for i in rank[:k]))
+        assert hit_at_k(scores, labels, k) == pytest.approx(np.mean(hits), abs=1e-12)
+
+
+def test_metrics_undefined_and_bad_input():
+    assert math.isnan(auc([1, 2], [1, 1]))
+    assert math.isnan(ndcg_at_k([1, 2], [0, 0]))
+    assert math.isnan(hit_at_k([1, 2], [0, 0]))
+    with pytest.raises(ValueError, match="same length"):
+        auc([1, 2, 3], [1, 0])
+    with pytest.raises(ValueError, match="gains must be >= 0"):
+        ndcg_at_k([1, 2], [-1, 1])
+    with pytest.raises(ValueError, match="scores must be finite"):
+        hit_at_k([np.nan, 1], [1, 0])
+
+
+# ---- earth mover's distance -----------------------------------------------------------------
+
+
+def test_emd_hand_worked_transport():
+    # Worked by hand: supplies 0.6 at p1=(50,0,0), 0.4 at p2=(50,10,0); demands 0.3 at q1=p1 and
+    # 0.7 at q2=(50,0,10). With f11 = t the cost is 10.414 - 5.858 t, least at t = 0.3:
+    # 0.3 * 10 (p1->q2) + 0.4 * sqrt(200) (p2->q2).
+    got = emd([[50, 0, 0], [50, 10, 0]], [0.6, 0.4], [[50, 0, 0], [50, 0, 10]], [0.3, 0.7])
+    assert got == pytest.approx(3.0 + 0.4 * math.sqrt(200.0), abs=1e-7)
+
+
+def test_emd_matches_scipy_wasserstein_in_one_dimension():
+    # Reference: scipy.stats.wasserstein_distance (1-D EMD); palettes that differ only in J'.
+    rng = np.random.default_rng(11)
+    for _ in range(20):
+        n, m = rng.integers(1, 8, 2)
+        ja, jb = rng.uniform(0, 100, n), rng.uniform(0, 100, m)
+        wa, wb = rng.random(n) + 0.01, rng.random(m) + 0.01
+        pal_a = np.c_[ja, np.zeros(n), np.zeros(n)]
+        pal_b = np.c_[jb, np.zeros(m), np.zeros(m)]
+        ref = wasserstein_distance(ja, jb, wa, wb)
+        assert emd(pal_a, wa, pal_b, wb) == pytest.approx(ref, rel=1e-6, abs=1e-7)
+
+
+def test_emd_matches_scipy_in_three_dimensions():
+    # Reference: scipy.stats.wasserstein_distance_nd (scipy >= 1.13), the EMD of two weighted
+    # point sets with Euclidean ground distance, solved by its own linear programme.
+    pytest.importorskip("scipy", minversion="1.13")
+    from scipy.stats import wasserstein_distance_nd
+
+    rng = np.random.default_rng(17)
+    for _ in range(15):
+        n, m = rng.integers(1, 9, 2)
+        a, b = rng.normal(50, 20, (n, 3)), rng.normal(50, 20, (m, 3))
+        wa, wb = rng.random(n) + 0.01, rng.random(m) + 0.01
+        ref = wasserstein_distance_nd(a, b, wa, wb)
+        assert emd(a, wa, b, wb) == pytest.approx(ref, rel=1e-6, abs=1e-7)
+
+
+def test_same_colours_solves_each_pair_once_with_the_right_distance(tmp_path, monkeypatch):
+    ev = importlib.import_module("harmony.evaluation.methods")
+
+    products, palettes, _ = known_relation_shop(tmp_path, n=6)
+    sofas = [p for p in products if p.category == "Sofa"]
+    cushions = [p for p in products if p.category == "Cushion"]
+    solved = []
+    real = ev.emd_one_to_many
+    monkeypatch.setattr(ev, "emd_one_to_many", lambda a, w, others, **kw: solved.append(len(others)) or real(a, w, others, **kw))
+    method = SameColoursMethod(palettes)
+    first = method(sofas[0], cushions)
+    swapped = method(cushions[2], sofas)  # (sofa 0, cushion 2) is already known
+    assert solved == [len(cushions), len(sofas) - 1]
+    # Reference: each distance solved alone, in the direction the query asks (EMD is symmetric).
+    want = [emd(palettes[sofas[0].id].jab, palettes[sofas[0].id].weights, palettes[c.id].jab, palettes[c.id].weights) for c in cushions]
+    np.testing.assert_allclose(-first, want, atol=1e-7)
+    want = [emd(palettes[cushions[2].id].jab, palettes[cushions[2].id].weights, palettes[s.id].jab, palettes[s.id].weights) for s in sofas]
+    np.testing.assert_allclose(-swapped, want, atol=1e-7)
+
+
+def test_emd_is_a_metric_and_chunking_does_not_change_it():
+    rng = np.random.default_rng(3)
+    pals = [(rng.normal(0, 20, (k, 3)), rng.dirichlet(np.ones(k))) for k in (1, 3, 5, 10, 10, 7)]
+    a = pals[0]
+    together = emd_one_to_many(*a, pals, chunk=64)
+    alone = emd_one_to_many(*a, pals, chunk=1)
+    np.testing.assert_allclose(together, alone, atol=1e-7)
+    assert together[0] == pytest.approx(0.0, abs=1e-9)
+    d = np.array([emd_one_to_many(*p, pals) for p in pals])
+    np.testing.assert_allclose(d, d.T, atol=1e-6)  # symmetric
+    for i, j, k in itertools.permutations(range(len(pals)), 3):
+        assert d[i, k] <= d[i, j] + d[j, k] + 1e-6  # triangle inequality (Rubner et al. 2000, 4.1)
+    with pytest.raises(ValueError, match="shape"):
+        emd([[1, 2]], [1.0], [[1, 2, 3]], [1.0])
+
+
+# ---- a log generated from a known colour relation ------------------------------------------------
+
+
+def chromatic(hue_deg, j=60.0, m=25.0):
+    h = math.radians(hue_deg)
+    return [j, m * math.cos(h), m * math.sin(h)]
+
+
+def known_relation_shop(tmp_path, seed=0, n=24):
+    """Sofas and cushions of evenly spread hues; each shopper pairs a sofa with a near-opposite cushion.
+
+    Invented test data: the relation is the ground truth the rules files are checked against.
+    """
+    rng = np.random.default_rng(seed)
+    products, palettes = [], {}
+    hues = {}
+    for cat in ("sofa", "cushion"):
+        offset = rng.uniform(0, 360)
+        for i in range(n):
+            pid = f"{cat[:2]}{i:02d}"
+            hue = (offset + 360.0 * i / n) % 360.0
+            hues[pid] = hue
+            products.append(Product(id=pid, category=cat.title(), price=100.0, stock=None if i % 5 else 3))
+            # A dominant chromatic colour and a light neutral share (legs, seams).
+            palettes[pid] = Palette(jab=[chromatic(hue), [85.0, 1.0, 1.0]], weights=[0.8, 0.2])
+    cushions = [p.id for p in products if p.category == "Cushion"]
+    rows = ["session,product,event"]
+    for s in range(60):
+        sofa = f"so{int(rng.integers(n)):02d}"
+        target = (hues[sofa] + 180.0 + rng.normal(0, 10)) % 360.0
+        gap = [abs((hues[c] - target + 180.0) % 360.0 - 180.0) for c in cushions]
+        cushion = cushions[int(np.argmin(gap))]
+        rows += [f"s{s},{sofa},view", f"s{s},{cushion},view", f"s{s},{cushion},purchase"]
+    path = tmp_path / "log.csv"
+    path.write_text("\n".join(rows) + "\n")
+    return products, palettes, read_events(path, known_products={p.id for p in products})
+
+
+def test_known_relation_ranks_above_random_and_inverse_below(tmp_path):
+    products, palettes, log = known_relation_shop(tmp_path)
+    queries = build_queries(log, products, palettes)
+    right = load_rules(DATA / "complementary_only.toml")
+    wrong = load_rules(DATA / "complementary_inverted.toml")
+    methods = [
+        RulesMethod(right, palettes, name="right"),
+        RulesMethod(wrong, palettes, name="wrong"),
+        SameColoursMethod(palettes),
+        RandomMethod(),
+    ]
+    result = evaluate(queries, methods, products, np.random.default_rng(0), resamples=300)
+    by = {r.name: r for r in result.results}
+    assert by["right"].auc > 0.85 and by["right"].auc_ci[0] > 0.6
+    assert by["wrong"].auc < 0.2 and by["wrong"].auc_ci[1] < 0.5
+    assert by["right"].ndcg_at_10 > by["random order"].ndcg_at_10 > by["wrong"].ndcg_at_10
+    # Random order: every candidate tied, so AUC is exactly one half with a zero-width interval.
+    assert by["random order"].auc == pytest.approx(0.5) and by["random order"].auc_ci == pytest.approx((0.5, 0.5))
+    # Opposite hues are far apart: palette likeness ranks the real partners low here.
+    assert by["same colours (EMD)"].auc < 0.5
+    for r in result.results:
+        assert r.auc_ci[0] <= r.auc <= r.auc_ci[1]
+        assert r.hit_ci[0] <= r.hit_at_10 <= r.hit_ci[1]
+
+
+def test_bootstrap_is_reproducible_with_the_generator(tmp_path):
+    products, palettes, log = known_relation_shop(tmp_path)
+    queries = build_queries(log, products, palettes)
+    methods = [RulesMethod(load_rules(DATA / "complementary_only.toml"), palettes, name="r")]
+    one = evaluate(queries, methods, products, np.random.default_rng(42), resamples=200)
+    two = evaluate(queries, methods, products, np.random.default_rng(42), resamples=200)
+    three = evaluate(queries, methods, products, np.random.default_rng(43), resamples=200)
+    assert one.results == two.results
+    assert one.results[0].auc == three.results[0].auc
+    assert one.results[0].auc_ci != three.results[0].auc_ci
+
+
+def test_rules_method_ranks_as_the_exact_pair_score(tmp_path):
+    # The bilinear contract: raw score ranks exactly as harmony.rules.score.pair_score's score.
+    from harmony.rules.score import pair_score
+
+    products, palettes, _ = known_relation_shop(tmp_path)
+    rules = load_rules()
+    by_id = {p.id: p for p in products}
+    anchor = by_id["so03"]
+    cands = [p for p in products if p.category == "Cushion"]
+    got = RulesMethod(rules, palettes)(anchor, cands)
+    pair = rules.for_pair("sofa", "cushion")
+    want = [pair_score(palettes["so03"], palettes[c.id], pair).raw for c in cands]
+    np.testing.assert_allclose(got, want, atol=1e-9)
+
+
+# ---- queries --------------------------------------------------------------------------------
+
+
+def test_positives_negatives_and_coverage(tmp_path):
+    products = [
+        Product("S1", "Sofa", 1.0),
+        Product("S2", "sofa ", 1.0),
+        Product("R1", "Rug", 1.0),
+        Product("R2", "Rug", 1.0, stock=0),  # out of stock: never a negative
+        Product("R3", "Rug", 1.0),
+        Product("R4", "Rug", 1.0),
+        Product("L1", "Lamp", 1.0),
+    ]
+    path = tmp_path / "log.csv"
+    path.write_text(
+        "session,product,event\n"
+        "a,S1,purchase\na,R1,view\na,S2,view\n"  # S1-R1 and S2-R1 positives; S1-S2 same category
+        "b,S1,cart\nb,R1,cart\nb,R2,purchase\n"  # S1-R1 again; R2 positive though out of stock
+        "c,L1,view\nc,GHOST,view\n"  # L1 alone: no query
+    )
+    log = read_events(path, known_products={p.id for p in products})
+    q = build_queries(log, products)
+    got = {(x.anchor, x.category): (x.candidates, list(x.gains)) for x in q.queries}
+    # S1-R1: min(5, 1) in session a + min(3, 3) in b = 4; S1-R2: min(3, 5) = 3.
+    assert got[("S1", "rug")] == (("R1", "R2", "R3", "R4"), [4.0, 3.0, 0.0, 0.0])
+    assert got[("S2", "rug")] == (("R1", "R3", "R4"), [1.0, 0.0, 0.0])
+    assert ("R1", "sofa") not in got  # both sofas are positives: no negative left
+    assert got[("R2", "sofa")] == (("S1", "S2"), [3.0, 0.0])
+    assert q.anchors == 3 and q.products_seen == 5  # S1, S2, R1, R2, L1
+    assert q.coverage == pytest.approx(3 / 5)
+    assert log.unknown == (("GHOST", 1),)
+
+
+def test_products_without_palette_take_no_part(tmp_path):
+    products, palettes, log = known_relation_shop(tmp_path, n=8)
+    dropped = dict(palettes)
+    del dropped["cu03"]
+    q = build_queries(log, products, dropped)
+    assert all("cu03" not in x.candidates and x.anchor != "cu03" for x in q.queries)
+
+
+def test_nothing_to_evaluate_is_a_clear_error(tmp_path):
+    path = tmp_path / "log.csv"
+    path.write_text("session,product,event\na,S1,view\n")
+    products = [Product("S1", "Sofa", 1.0), Product("R1", "Rug", 1.0)]
+    q = build_queries(read_events(path), products)
+    with pytest.raises(EventsError, match="nothing to evaluate"):
+        evaluate(q, [RandomMethod()], products, np.random.default_rng(0))
+
+
+@pytest.mark.parametrize(
+    "rows, palettes, match",
+    [
+        # Every id unknown: the count of distinct ids and the most frequent one are named.
+        ("a,X9,view\na,X7,view\nb,X7,cart\nb,X8,view\n", None,
+         r"^nothing to evaluate: all 3 product ids in the log are unknown to the store \(most frequent: X7\)$"),
+        ("a,X9,view\n", None, r"^nothing to evaluate: the only product id in the log is unknown to the store \(most frequent: X9\)$"),
+        # Known products, but the store has no palette for any of them.
+        ("a,S1,view\na,R1,view\n", {},
+         r"^nothing to evaluate: no known product of the log has a palette in the store \(2 without one, first: R1\)$"),
+        # Every row of a kind without a weight.
+        ("a,S1,like\na,R1,like\nb,R1,share\n", None,
+         r"^nothing to evaluate: no row of the log is an event with a weight above 0 \(kinds without a weight: like 2, share 1\)$"),
+    ],
+)
+def test_nothing_to_evaluate_says_why(tmp_path, rows, palettes, match):
+    path = tmp_path / "log.csv"
+    path.write_text("session,product,event\n" + rows)
+    products = [Product("S1", "Sofa", 1.0), Product("R1", "Rug", 1.0), Product("R2", "Rug", 1.0)]
+    log = read_events(path, known_products={p.id for p in products})
+    q = build_queries(log, products, palettes)
+    with pytest.raises(EventsError, match=match):
+        evaluate(q, [RandomMethod()], products, np.random.default_rng(0), unknown=log.unknown, skipped=log.skipped)
+
+
+def test_shared_method_names_are_named_alone(tmp_path):
+    products, palettes, log = known_relation_shop(tmp_path, n=8)
+    q = build_queries(log, products, palettes)
+    rules = load_rules(DATA / "complementary_only.toml")
+    methods = [RulesMethod(rules, palettes, name="a"), RulesMethod(rules, palettes, name="b"),
+               RulesMethod(rules, palettes, name="a"), RandomMethod()]
+    with pytest.raises(HarmonyError, match=r"^more than one method is named 'a'$"):
+        evaluate(q, methods, products, np.random.default_rng(0))
+
+
+def test_skipped_kinds_reach_the_json(tmp_path):
+    products, palettes, log = known_relation_shop(tmp_path, n=8)
+    q = build_queries(log, products, palettes)
+    result = evaluate(q, [RandomMethod()], products, np.random.default_rng(0), resamples=5,
+                      skipped=(("wishlist", 4), ("click", 1)))
+    assert result.to_dict()["skipped_events"] == {"wishlist": 4, "click": 1}
+
+
+def test_colour_attribute_overlap_and_standard_methods(tmp_path):
+    a = Product("A", "Sofa", 1.0, attributes={"colour": "Light Grey"})
+    cands = [
+        Product("B", "Rug", 1.0, attributes={"colour": "grey"}),
+        Product("C", "Rug", 1.0, attributes={"colour": "light grey"}),
+        Product("D", "Rug", 1.0, attributes={"colour": "ochre"}),
+        Product("E", "Rug", 1.0),
+    ]
+    np.testing.assert_allclose(ColourAttributeMethod()(a, cands), [0.5, 1.0, 0.0, 0.0])
+    rules = [load_rules(DATA / "complementary_only.toml"), load_rules(DATA / "complementary_inverted.toml")]
+    names = [m.name for m in standard_methods(rules, {}, [a, *cands])]
+    assert names == ["complementary_only", "complementary_inverted", "same colours (EMD)", "colour attribute", "random order"]
+    names = [m.name for m in standard_methods(rules[:1], {}, [Product("X", "Sofa", 1.0)])]
+    assert "colour attribute" not in names
+
+
+# ---- the simulated demo shoppers (invented data: properties of the generator, not check values) ----
+
+from harmony.demo import shoppers as demo_events  # noqa: E402
+from harmony.resources import DEMO_DIR  # noqa: E402
+
+
+def test_tastes_as_documented():
+    base = Palette(jab=[chromatic(30.0)], weights=[1.0])
+    close, clash, opposite = (Palette(jab=[chromatic(h)], weights=[1.0]) for h in (45.0, 105.0, 210.0))
+    grey = Palette(jab=[[60.0, 0.5, 0.5]], weights=[1.0])
+    tone = {n: demo_events.appeal(base, p, "tone") for n, p in [("close", close), ("clash", clash), ("opp", opposite), ("grey", grey)]}
+    accent = {n: demo_events.appeal(base, p, "accent") for n, p in [("close", close), ("clash", clash), ("opp", opposite)]}
+    assert tone["close"] > tone["grey"] > tone["opp"] > tone["clash"]
+    assert tone["clash"] < 0 < tone["grey"]
+    assert accent["opp"] > accent["close"] > 0 > accent["clash"]
+    assert demo_events.appeal(base, clash, "price") == 0.0
+    with pytest.raises(ValueError, match="unknown taste"):
+        demo_events.appeal(base, clash, "loud")
+
+
+def small_shop(n=12):
+    products, palettes = [], {}
+    for cat in ("sofa", "rug"):
+        for i in range(n):
+            pid = f"{cat}{i}"
+            products.append(Product(pid, cat, 100.0 + 10 * i))
+            palettes[pid] = Palette(jab=[chromatic(360.0 * i / n + (15 if cat == "rug" else 0))], weights=[1.0])
+    return products, palettes
+
+
+def test_simulation_is_deterministic_and_well_formed():
+    products, palettes = small_shop()
+    one = demo_events.simulate_sessions(products, palettes, [["sofa", "rug"]], np.random.default_rng(1), 50)
+    two = demo_events.simulate_sessions(products, palettes, [["sofa", "rug"]], np.random.default_rng(1), 50)
+    assert one == two
+    text = demo_events.events_csv(one)
+    assert text.splitlines()[0] == "session,product,event,timestamp"
+    # Every purchase follows a cart of the same product in the same session.
+    carted = set()
+    for sid, pid, event, _ in one:
+        if event == "cart":
+            carted.add((sid, pid))
+        if event == "purchase":
+            assert (sid, pid) in carted
+    retired = [r for r in one if r[1] in demo_events.RETIRED_IDS]
+    assert len(retired) == len(demo_events.RETIRED_IDS)
+
+
+def test_tone_shoppers_pick_close_hues(monkeypatch):
+    products, palettes = small_shop()
+    hue = {pid: float(np.degrees(np.arctan2(p.jab[0, 2], p.jab[0, 1]))) for pid, p in palettes.items()}
+    monkeypatch.setattr(demo_events, "TASTE_SHARES", {"tone": 1.0})
+    rows = demo_events.simulate_sessions(products, palettes, [["sofa", "rug"]], np.random.default_rng(2), 200)
+    sessions = {}
+    for sid, pid, event, _ in rows:
+        sessions.setdefault(sid, set()).add(pid)
+    gaps = []
+    for items in sessions.values():
+        for a in items:
+            for b in items:
+                if a.startswith("sofa") and b.startswith("rug"):
+                    gaps.append(abs((hue[a] - hue[b] + 180) % 360 - 180))
+    # Rugs are spread evenly over the hue circle: a random pick would be 90 degrees away on average.
+    assert np.mean(gaps) < 50
+
+
+def test_committed_demo_log_is_small_and_matches_the_catalogue():
+    from harmony.shop.catalogue import read_catalogue
+
+    path = DEMO_DIR / "shop" / "events.csv"
+    assert path.stat().st_size < 1_000_000
+    ids = {p.id for p in read_catalogue(DEMO_DIR / "shop" / "catalogue.csv").products}
+    log = read_events(path, known_products=ids)
+    assert {pid for pid, _ in log.unknown} == set(demo_events.RETIRED_IDS)
+    assert set(log.counts()) == {"view", "cart", "purchase"}
+
+
+@pytest.mark.slow
+def test_demo_log_regenerates_identically(tmp_path):
+    db = tmp_path / "shop.db"  # shared, so the second run reuses the extracted palettes
+    a, n = demo_events.write_demo_events(tmp_path / "a.csv", db_path=db, sessions=60)
+    b, _ = demo_events.write_demo_events(tmp_path / "b.csv", db_path=db, sessions=60)
+    assert a.read_bytes() == b.read_bytes() and n > 60
+    # The committed log is the one today's photos and palettes give (a change to the masking
+    # or the palettes changes what the simulated shoppers see).
+    full, _ = demo_events.write_demo_events(tmp_path / "full.csv", db_path=db)
+    assert full.read_bytes() == demo_events.DEFAULT_EVENTS_PATH.read_bytes(), (
+        "demo_room_sets/shop/events.csv is stale: regenerate it with python -m harmony.demo.shoppers"
+    )
