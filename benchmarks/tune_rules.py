@@ -1,6 +1,6 @@
 """Tune a few numbers of a rules file on the demo shop, with a held-out half to show overfitting.
 
-The objective is the mean AUC over anchor products of :func:`harmony.evaluation.evaluate` (the
+The objective is the mean AUC over query products of :func:`harmony.evaluation.evaluate` (the
 rules method only) on the demo interaction log. The log's sessions are split in two halves with
 a seeded ``numpy.random.Generator``: the numbers are chosen on the *tuning* half only, and the
 *held-out* half's AUC is printed beside it at every step, so a gain that does not carry over is
@@ -106,7 +106,7 @@ def parameters(rules, with_lightness=False):
 
 
 def mean_auc(rules, queries, palettes, products):
-    """Mean AUC over anchors of the rules method on ``queries``."""
+    """Mean AUC over query products of the rules method on ``queries``."""
     method = RulesMethod(rules, palettes, name="rules")
     result = evaluate(queries, [method], products, np.random.default_rng(0), resamples=1)
     return result.results[0].auc
@@ -117,8 +117,8 @@ def flat_queries(rules, queries, palettes, by_id):
     method = RulesMethod(rules, palettes)
     flat, raws = 0, []
     for q in queries.queries:
-        s = method(by_id[q.anchor], [by_id[c] for c in q.candidates])
-        if rules.pairs_with(by_id[q.anchor].category, by_id[q.candidates[0]].category):
+        s = method(by_id[q.product], [by_id[c] for c in q.candidates])
+        if rules.pairs_with(by_id[q.product].category, by_id[q.candidates[0]].category):
             raws.append(s)
             flat += int(np.ptp(s) < 1e-12)
     return flat, np.concatenate(raws) if raws else np.zeros(0)
@@ -169,8 +169,8 @@ def main(argv=None):
     tuning = build_queries(half_a, products, palettes)
     held = build_queries(half_b, products, palettes)
     rules = load_rules(args.rules)
-    print(f"{args.rules}: {len(tuning.queries)} tuning queries ({tuning.anchors} anchors), "
-          f"{len(held.queries)} held-out queries ({held.anchors} anchors), split seed {args.seed}")
+    print(f"{args.rules}: {len(tuning.queries)} tuning queries ({tuning.query_products} query products), "
+          f"{len(held.queries)} held-out queries ({held.query_products} query products), split seed {args.seed}")
 
     tuned, steps = tune(rules, tuning, held, palettes, by_id, rounds=args.rounds, with_lightness=args.with_lightness)
 

@@ -1,12 +1,35 @@
 """Writing output files whole: a reader never sees half a file, a failure leaves the old one."""
 
 import os
+import sys
 import tempfile
 from pathlib import Path
 
 from harmony.errors import HarmonyError
 
-__all__ = ["write_whole", "write_text_whole", "write_bytes_whole"]
+__all__ = ["STDOUT", "is_stdout", "write_whole", "write_text_whole", "write_bytes_whole"]
+
+#: The file name that means standard output, in every command that writes one file.
+STDOUT = "-"
+
+
+def is_stdout(path):
+    """True when ``path`` is :data:`STDOUT` (``-``)."""
+    return str(path) == STDOUT
+
+
+def _write_stdout(write):
+    """Let ``write(tmp_path)`` fill a private temporary file, then copy it to standard output."""
+    with tempfile.TemporaryDirectory(prefix="harmony-out-") as folder:
+        tmp = Path(folder) / "out"
+        write(tmp)
+        data = tmp.read_bytes()
+    stream = getattr(sys.stdout, "buffer", None)
+    if stream is None:  # a text-only stdout (tests): the outputs are UTF-8 text or bytes
+        sys.stdout.write(data.decode("utf-8", errors="replace"))
+    else:
+        stream.write(data)
+    sys.stdout.flush()
 
 
 def write_whole(path, write, what="file"):
@@ -16,7 +39,11 @@ def write_whole(path, write, what="file"):
     file keeps its own. Any failure (full disk, an encoding error, an interrupt)
     removes the temporary file and leaves an older ``path`` as it was; an ``OSError`` becomes a
     :class:`HarmonyError` ``"<path>: cannot write the <what>: <reason>"``. Returns the path.
+    ``path`` ``-`` writes to standard output instead (and returns ``"-"``).
     """
+    if is_stdout(path):
+        _write_stdout(write)
+        return STDOUT
     path = Path(path)
     folder = path.parent if str(path.parent) else Path(".")
     try:

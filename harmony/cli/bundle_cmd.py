@@ -7,10 +7,6 @@ import click
 
 from harmony.errors import RoomError
 from harmony.resources import DEFAULT_RULES, DEMO_DIR
-from harmony.rules import load_rules
-from harmony.shop.store import Store
-from harmony.suggest.bundle import result_to_dict, search_bundles
-from harmony.suggest.room import load_room
 
 from . import main
 from .feed_cmd import warn_unmatched_pairs
@@ -45,6 +41,10 @@ def _ids(value):
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON object.")
 def bundle(db_path, room_file, budget, anchor, exclude, top, min_difference, pool_limit, rules_file, as_json):
     """Assemble the best-coordinated room sets within a budget."""
+    from harmony.rules import load_rules
+    from harmony.shop.store import Store
+    from harmony.suggest.bundle import result_to_dict, search_bundles
+    from harmony.suggest.room import load_room
     room = load_room(_room_path(room_file))
     rules = load_rules(rules_file)
     with Store(db_path) as store:

@@ -8,7 +8,7 @@ __all__ = ["demo"]
 
 
 @main.command("demo")
-@click.option("--out", "out_dir", default="harmony-demo", show_default=True, metavar="DIR",
+@click.option("--out-dir", "out_dir", default="harmony-demo", show_default=True, metavar="DIR",
               help="Folder for the store, the feed, the sets and the report.")
 @click.option("--workers", type=click.IntRange(min=1), default=None, help="Extraction processes (default: all cores).")
 @click.option("--progress/--no-progress", default=None, help="Progress bars on stderr (default: when it is a terminal).")

@@ -1,11 +1,12 @@
 """``harmony evaluate``: rules files and baselines ranked against an interaction log."""
 
+import functools
 import json
 
 import click
 
-from harmony.evaluation import result_table, write_html
-from harmony.evaluation.run import run_evaluation
+from harmony.errors import HarmonyError
+from harmony.fileio import is_stdout
 from harmony.resources import DEFAULT_RULES
 
 from . import main
@@ -23,14 +24,15 @@ def _skipped_line(skipped, limit=5):
     )
 
 
-def _print_table(result):
+def _print_table(result, echo=click.echo):
+    from harmony.evaluation import result_table
     header, rows = result_table(result)
     widths = [max(len(h), *(len(r[i]) for r in rows)) for i, h in enumerate(header)]
     line = lambda cells: "  ".join(c.ljust(w) if i == 0 else c.rjust(w) for i, (c, w) in enumerate(zip(cells, widths)))
-    click.echo(line(header))
-    click.echo("  ".join("-" * w for w in widths))
+    echo(line(header))
+    echo("  ".join("-" * w for w in widths))
     for row in rows:
-        click.echo(line(row))
+        echo(line(row))
 
 
 @main.command("evaluate")
@@ -55,29 +57,34 @@ def evaluate_command(db, events, rules_files, as_json, out, weights, seed, resam
     Compares each rules file with baselines (random order, same colours by the earth mover's
     distance, the catalogue's colour attribute): AUC, NDCG@10 and hit@10 with bootstrap intervals.
     """
+    from harmony.evaluation import write_html
+    from harmony.evaluation.run import run_evaluation
+    if out is not None and is_stdout(out) and as_json:
+        raise HarmonyError("--out - and --json both write to standard output; give --out a file name")
+    echo = functools.partial(click.echo, err=out is not None and is_stdout(out))
     rules_files = rules_files or (str(DEFAULT_RULES),)
     result, inputs = run_evaluation(db, events, rules_files, weights, seed, resamples, attribute, progress)
     if out is not None:
         write_html(result, out, inputs=inputs)
     if as_json:
-        click.echo(json.dumps(result.to_dict(), indent=2))
+        echo(json.dumps(result.to_dict(), indent=2))  # --out is not - here
         return
-    click.echo(
-        f"{result.events} events, {result.anchors} anchor products ({result.queries} queries), "
+    echo(
+        f"{result.events} events, {result.query_products} query products ({result.queries} queries), "
         f"coverage {result.coverage * 100:.0f} % of {result.products_seen} products in the log"
     )
     if result.unknown:
         shown = ", ".join(pid for pid, _ in result.unknown[:5])
         more = ", ..." if len(result.unknown) > 5 else ""
         rows = sum(n for _, n in result.unknown)
-        click.echo(f"{len(result.unknown)} unknown product ids in {rows} rows left out ({shown}{more})")
+        echo(f"{len(result.unknown)} unknown product ids in {rows} rows left out ({shown}{more})")
     if result.skipped:
-        click.echo(_skipped_line(result.skipped))
+        echo(_skipped_line(result.skipped))
     if result.no_palette:
-        click.echo(f"{len(result.no_palette)} products of the log have no palette and were left out")
-    click.echo("")
-    _print_table(result)
-    click.echo("")
-    click.echo(f"intervals: {result.level * 100:g} % bootstrap over anchor products ({result.resamples} resamples)")
+        echo(f"{len(result.no_palette)} products of the log have no palette and were left out")
+    echo("")
+    _print_table(result, echo)
+    echo("")
+    echo(f"intervals: {result.level * 100:g} % bootstrap over query products ({result.resamples} resamples)")
     if out is not None:
-        click.echo(f"page: {out}")
+        echo(f"page: {out}")

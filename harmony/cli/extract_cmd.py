@@ -8,10 +8,8 @@ from pathlib import Path
 import click
 
 from harmony.errors import HarmonyError
-from harmony.fileio import write_text_whole
-from harmony.shop.catalogue import read_catalogue
-from harmony.shop.engine import DEFAULT_DB_NAME, ENGINES, run_extraction
-from harmony.shop.store import Store
+from harmony.fileio import is_stdout
+from harmony.shop import DEFAULT_DB_NAME, ENGINES
 
 from . import fail, main
 
@@ -23,7 +21,7 @@ SHOWN_FAILURES = 10
 #: Columns of ``harmony palettes --format csv``: one row per palette colour.
 PALETTE_CSV_COLUMNS = (
     "product", "category", "image", "sha256", "scene", "confidence",
-    "rank", "hex", "weight", "J", "a", "b", "M", "hue", "lrv", "neutral",
+    "rank", "hex", "share", "J", "a", "b", "M", "hue", "lrv", "neutral",
 )
 
 
@@ -46,6 +44,9 @@ def extract(catalogue, db_path, workers, engine, scheduler, strict):
     Exit status: 0 done; 2 an error, nothing changed (with --strict: any catalogue problem);
     1 with --strict only: the run is stored in full but some products have no palette.
     """
+    from harmony.shop.catalogue import read_catalogue
+    from harmony.shop.engine import run_extraction
+    from harmony.shop.store import Store
     if scheduler and engine != "dask":
         raise HarmonyError("--scheduler needs --engine dask")
     cat = read_catalogue(catalogue)
@@ -94,7 +95,7 @@ def _csv(rows, out):
         for rank, c in enumerate(data["colours"], start=1):
             writer.writerow([
                 product.id, product.category, image, data["sha256"], int(data["scene"]), data["confidence"],
-                rank, c["hex"], c["weight"], c["J"], c["a"], c["b"], c["M"], c["hue"], c["lrv"], int(c["neutral"]),
+                rank, c["hex"], c["share"], c["J"], c["a"], c["b"], c["M"], c["hue"], c["lrv"], int(c["neutral"]),
             ])
 
 
@@ -103,9 +104,11 @@ def _csv(rows, out):
 @click.option("--format", "fmt", type=click.Choice(("jsonl", "csv")), default=None,
               help="Output format; default from the --out suffix, else jsonl.")
 @click.option("--out", "out_path", type=click.Path(dir_okay=False), default=None,
-              help="Output file (written whole or not at all); default standard output.")
+              help="Output file (written whole or not at all); default, or -, standard output.")
 def palettes(db_path, fmt, out_path):
     """Export every product's chosen palette: JSONL (one product a line) or CSV (one colour a row)."""
+    from harmony.fileio import write_text_whole
+    from harmony.shop.store import Store
     if fmt is None:
         fmt = "csv" if out_path and Path(out_path).suffix.lower() == ".csv" else "jsonl"
     writer = _csv if fmt == "csv" else _jsonl
@@ -113,7 +116,7 @@ def palettes(db_path, fmt, out_path):
         missing = len(store) - len(store.palettes())
         buffer = io.StringIO()
         writer(_palette_rows(store), buffer)
-    if out_path is None:
+    if out_path is None or is_stdout(out_path):
         click.echo(buffer.getvalue(), nl=False)
     else:
         write_text_whole(Path(out_path), buffer.getvalue(), what="palette export")

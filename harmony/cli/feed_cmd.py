@@ -6,11 +6,8 @@ import sys
 import click
 
 from harmony.errors import HarmonyError
-from harmony.photo.swatch import ansi_block, segment_widths, terminal_has_colour
+from harmony.fileio import is_stdout
 from harmony.resources import DEFAULT_RULES
-from harmony.rules import load_rules, unmatched_pair_warnings
-from harmony.shop.store import Store
-from harmony.suggest.feed import build_feed, suggest, write_feed
 
 from . import main
 
@@ -24,6 +21,7 @@ STRIP_CELLS = 20
 def colour_blocks(palette, colour=True, cells=STRIP_CELLS):
     """The palette as a strip of terminal colour blocks, each colour as wide as its weight
     (24-bit ANSI backgrounds); without colour, the hex codes heaviest first."""
+    from harmony.photo.swatch import ansi_block, segment_widths
     if not colour:
         return " ".join(palette.hex)
     spans = segment_widths(palette.weights, cells)
@@ -37,6 +35,7 @@ def _warn(message):
 def warn_unmatched_pairs(rule_sets, categories):
     """Warn on stderr, one line each, of the pair sections of ``rule_sets`` (one RuleSet or
     several) that name a category absent from ``categories`` (the store's)."""
+    from harmony.rules import unmatched_pair_warnings
     for message in unmatched_pair_warnings(rule_sets, categories):
         _warn(message)
 
@@ -53,7 +52,7 @@ def warn_unmatched_pairs(rule_sets, categories):
               help="0 = best scores; higher spreads near-identical partners apart (maximal marginal relevance).")
 @click.option("--format", "fmt", type=click.Choice(["jsonl", "csv", "parquet"]), default=None,
               help="Output format (default: from the --out suffix).")
-@click.option("--out", required=True, type=click.Path(dir_okay=False), help="The feed file to write.")
+@click.option("--out", required=True, type=click.Path(dir_okay=False), help="The feed file to write (- for standard output).")
 @click.option("--progress/--no-progress", default=None, help="Progress bar on stderr (default: when it is a terminal).")
 def feed(db, rules_path, top, targets, diversity, fmt, out, progress):
     """Write the cross-sell feed: each product's best partners in the other categories.
@@ -61,6 +60,9 @@ def feed(db, rules_path, top, targets, diversity, fmt, out, progress):
     Out-of-stock partners are left out. Each row holds product, category, partner,
     partner_category, rank, score and a one-sentence reason.
     """
+    from harmony.rules import load_rules
+    from harmony.shop.store import Store
+    from harmony.suggest.feed import build_feed, write_feed
     rules = load_rules(rules_path)
     target_list = None
     if targets is not None:
@@ -79,22 +81,26 @@ def feed(db, rules_path, top, targets, diversity, fmt, out, progress):
         )
     path = write_feed(rows, out, fmt)
     products = len({r.product for r in rows})
-    click.echo(f"wrote {len(rows)} rows for {products} products to {path}")
+    click.echo(f"wrote {len(rows)} rows for {products} products to {path}", err=is_stdout(out))
 
 
 @main.command("suggest")
 @click.argument("product_id")
 @click.option("--db", "db", required=True, type=click.Path(dir_okay=False), help="The palette store.")
 @click.option("--category", default=None, help="Only partners of this category.")
-@click.option("-n", "n", type=click.IntRange(1, 1000), default=5, show_default=True, help="How many partners.")
+@click.option("--top", type=click.IntRange(1, 1000), default=5, show_default=True, help="How many partners.")
 @click.option("--json", "as_json", is_flag=True, help="Print JSON instead of a table.")
 @click.option("--rules", "rules_path", type=click.Path(dir_okay=False), default=str(DEFAULT_RULES),
               show_default="rules/default.toml", help="Harmony rules file.")
-def suggest_cmd(product_id, db, category, n, as_json, rules_path):
+def suggest_cmd(product_id, db, category, top, as_json, rules_path):
     """The best in-stock partners of PRODUCT_ID, with scores, reasons and their colours."""
+    from harmony.photo.swatch import terminal_has_colour
+    from harmony.rules import load_rules
+    from harmony.shop.store import Store
+    from harmony.suggest.feed import suggest
     rules = load_rules(rules_path)
     with Store(db) as store:
-        found = suggest(store, rules, product_id, category=category, n=n)
+        found = suggest(store, rules, product_id, category=category, n=top)
         warn_unmatched_pairs(rules, store.categories())
         own = store.palette(found[0].row.product)
     if as_json:

@@ -1,13 +1,12 @@
 """``harmony palette IMAGE...``: the palette of each photo as a table, JSON lines or a swatch."""
 
+import functools
 import sys
 
 import click
 
-from harmony import colour
 from harmony.errors import HarmonyError
-from harmony.photo.palette import PaletteSettings, extract_palette, neutrality
-from harmony.photo.swatch import ansi_block, terminal_has_colour, write_swatch
+from harmony.fileio import is_stdout
 
 from . import main
 
@@ -16,6 +15,9 @@ __all__ = ["palette", "format_table"]
 
 def format_table(pal, name, blocks=False):
     """Human-readable lines for one palette: a heading, then hex, share, J', M', hue per colour."""
+    from harmony import colour
+    from harmony.photo.palette import neutrality
+    from harmony.photo.swatch import ansi_block
     kind = "room scene (low confidence)" if pal.scene else "studio shot"
     if pal.background_jab is not None:
         back = f"background {colour.jab_to_hex(pal.background_jab)} {pal.background_share:.0%}"
@@ -48,7 +50,11 @@ def palette(images, colours, as_json, swatch):
     Studio backdrops and soft shadows are left out; room scenes are flagged. A bad image is
     reported as an error and the others are still processed; the exit status is then 2.
     """
+    from harmony.photo.palette import PaletteSettings, extract_palette
+    from harmony.photo.swatch import terminal_has_colour, write_swatch
     settings = PaletteSettings(colours=colours)
+    # With --swatch - the picture is standard output, so the palettes go to stderr.
+    echo = functools.partial(click.echo, err=swatch is not None and is_stdout(swatch))
     blocks = not as_json and terminal_has_colour(sys.stdout)
     done = []
     failed = 0
@@ -61,11 +67,11 @@ def palette(images, colours, as_json, swatch):
             continue
         done.append(pal)
         if as_json:
-            click.echo(pal.to_json(image=name))
+            echo(pal.to_json(image=name))
         else:
             if len(done) > 1:
-                click.echo("")
-            click.echo("\n".join(format_table(pal, name, blocks=blocks)))
+                echo("")
+            echo("\n".join(format_table(pal, name, blocks=blocks)))
     if swatch is not None and done:
         try:
             write_swatch(done, swatch)

@@ -4,6 +4,8 @@ from pathlib import Path
 
 import click
 
+from harmony.fileio import is_stdout
+
 from . import main
 
 __all__ = ["report"]
@@ -46,7 +48,7 @@ def report(db_path, feed_path, bundle_paths, rules_path, title, floor_lrv, illum
         data = gather_from_store(store, feed_rows, bundles, rules, title=title, floor_lrv=floor_lrv,
                                  illuminance_lux=illuminance_lux)
     out = write_report(data, out_path)
-    click.echo(
+    click.echo(err=is_stdout(out_path), message=
         f"wrote {out} ({len(data.products)} products, {len(data.suggestions)} pairs, "
         f"{len(data.bundles)} sets, {len(data.flagged)} flagged, {len(data.cautions) + sum(f.caution is not None for f in data.floors)} contrast cautions)"
     )

@@ -3,7 +3,7 @@
 import click
 
 from harmony.errors import RulesError
-from harmony.rules import load_rules
+from harmony.fileio import is_stdout
 
 from . import main
 
@@ -17,6 +17,7 @@ def rules_group():
 @click.argument("files", nargs=-1, required=True, type=click.Path(dir_okay=False))
 def check(files):
     """Validate each rules FILE; print every problem as FILE:LINE: key: reason."""
+    from harmony.rules import load_rules
     bad = 0
     for path in files:
         try:
@@ -38,6 +39,7 @@ def check(files):
               help="CAM02-UCS hue of the first colour, at the top of each wheel.")
 def show(file, out, reference_hue):
     """Draw each hue rule of FILE, and each pair section's sum of them, around a hue wheel."""
+    from harmony.rules import load_rules
     from harmony.rules.wheel import draw_hue_rules
 
     rule_set = load_rules(file)
@@ -45,4 +47,4 @@ def show(file, out, reference_hue):
         panels = draw_hue_rules(rule_set, out, reference_hue=reference_hue)
     except OSError as exc:
         raise RulesError(f"{out}: cannot write the picture: {exc.strerror or exc}") from None
-    click.echo(f"{out}: {len(panels)} wheels")
+    click.echo(f"{out}: {len(panels)} wheels", err=is_stdout(out))

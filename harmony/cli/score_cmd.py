@@ -6,16 +6,14 @@ from pathlib import Path
 import click
 
 from harmony.errors import HarmonyError
-from harmony.photo.palette import Palette
 from harmony.resources import DEFAULT_RULES
-from harmony.rules import load_rules
-from harmony.rules.score import pair_score
 
 from . import main
 
 
 def read_palette(path):
     """A palette from palette JSON (as ``harmony palette --json`` writes) or from an image file."""
+    from harmony.photo.palette import Palette
     path = Path(path)
     if path.suffix.lower() in (".json", ".jsonl"):
         try:
@@ -43,6 +41,8 @@ def read_palette(path):
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON object.")
 def score(a, b, rules_file, categories, as_json):
     """Score how well product A goes with product B (images or palette JSON files)."""
+    from harmony.rules import load_rules
+    from harmony.rules.score import pair_score
     rule_set = load_rules(rules_file)
     if categories is None:
         pair_rules = rule_set.default_rules()
@@ -60,6 +60,7 @@ def score(a, b, rules_file, categories, as_json):
                    f"this is what its rules would give", err=True)
     if as_json:
         out = {
+            "format": 2,  # format 1 (before harmony 0.2) named colour_pairs "pairs"
             "score": result.score,
             "categories": [c or None for c in result.categories],
             "rules_file": str(rules_file),
@@ -67,7 +68,7 @@ def score(a, b, rules_file, categories, as_json):
             "scored": pair_rules.scored,
             "raw": result.raw,
             "contributions": [{"rule": r, "value": v} for r, v in result.contributions],
-            "pairs": [{"a": p.hex_a, "b": p.hex_b, "rule": p.rule, "value": p.value} for p in result.pairs],
+            "colour_pairs": [{"a": p.hex_a, "b": p.hex_b, "rule": p.rule, "value": p.value} for p in result.pairs],
             "reason": result.reason,
         }
         click.echo(json.dumps(out))

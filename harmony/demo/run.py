@@ -73,7 +73,7 @@ def _evaluation_tables(db_path, events_path, rules_path, progress):
                                      progress=progress)
     header, rows = result_table(result)
     heading = (f"Ranking real partners of the demo shoppers' log: {result.events} events, "
-               f"{result.anchors} anchor products")
+               f"{result.query_products} query products")
     return ((heading, (tuple(header), tuple(tuple(r) for r in rows))),)
 
 

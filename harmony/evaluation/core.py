@@ -3,15 +3,15 @@
 From an interaction log (:mod:`harmony.shop.events`) products of *different* categories that share a
 session are **positives** of each other; the gain of a positive pair is the sum over the sessions
 that hold both of the weaker of the two products' event weights (a purchased sofa with a viewed
-rug counts as a view). For an **anchor** product and a partner category that holds at least one
+rug counts as a view). For a **query product** and a partner category that holds at least one
 of its positives, the **candidates** are those positives and every other in-stock product of that
-category (the **negatives**); every method ranks the same candidates. One such (anchor, category)
+category (the **negatives**); every method ranks the same candidates. One such (query product, category)
 is a *query*.
 
 Per query: AUC (positives against negatives), NDCG@10 over the graded gains, and hit@10 (a
 positive in the first ten). A product's value is the mean over its queries, a method's value the
-mean over anchors, and the confidence interval a percentile bootstrap over anchors (Efron &
-Tibshirani 1993) with the same resampled anchors for every method, so intervals are comparable.
+mean over query products, and the confidence interval a percentile bootstrap over query products (Efron &
+Tibshirani 1993) with the same resampled query products for every method, so intervals are comparable.
 Coverage is the share of the log's products that had a query at all.
 
 Ties are handled exactly, never broken by order: AUC counts a tied pair as one half, NDCG
@@ -23,7 +23,7 @@ orders, without sampling noise.
 Methods
 -------
 rules
-    The exact pair score of a rules file (:mod:`harmony.rules`, bilinear contract), anchor first.
+    The exact pair score of a rules file (:mod:`harmony.rules`, bilinear contract), query product first.
 same colours
     Negative earth mover's distance between the weighted palettes in CAM02-UCS with Euclidean
     ground distance (Rubner, Tomasi & Guibas 2000): the more alike the colours, the higher.
@@ -64,7 +64,7 @@ __all__ = ["MethodResult", "Evaluation", "evaluate"]
 
 @dataclass(frozen=True)
 class MethodResult:
-    """The metrics of one method: means over anchors and bootstrap intervals ``(lo, hi)``."""
+    """The metrics of one method: means over query products and bootstrap intervals ``(lo, hi)``."""
 
     name: str
     kind: str
@@ -96,10 +96,10 @@ class Evaluation:
     ----------
     results : tuple of MethodResult
         In the order the methods were given.
-    events, anchors, products_seen, queries : int
-        See :class:`QuerySet`; ``anchors`` is the number of products the metrics average over.
+    events, query_products, products_seen, queries : int
+        See :class:`QuerySet`; ``query_products`` is the number of products the metrics average over.
     coverage : float
-        anchors / products_seen.
+        query_products / products_seen.
     unknown : tuple of (str, int)
         Product ids of the log not in the catalogue, with their row counts.
     no_palette : tuple of str
@@ -111,7 +111,7 @@ class Evaluation:
 
     results: tuple
     events: int
-    anchors: int
+    query_products: int
     products_seen: int
     queries: int
     coverage: float
@@ -125,7 +125,7 @@ class Evaluation:
     def to_dict(self):
         """The JSON of ``harmony evaluate --json``.
 
-        ``events``, ``anchors`` and ``results`` (each with ``name``, ``auc``, ``ndcg_at_10``,
+        ``events``, ``query_products`` and ``results`` (each with ``name``, ``auc``, ``ndcg_at_10``,
         ``hit_at_10``, ``auc_ci``), plus what a reader needs to trust them: each result's
         ``kind`` and the intervals of the other two metrics; the ``coverage`` with the counts it
         comes from (``products_seen``, ``queries``); what was left out (``unknown_products`` with
@@ -135,7 +135,7 @@ class Evaluation:
         """
         return {
             "events": self.events,
-            "anchors": self.anchors,
+            "query_products": self.query_products,
             "results": [r.to_dict() for r in self.results],
             "products_seen": self.products_seen,
             "queries": self.queries,
@@ -148,9 +148,9 @@ class Evaluation:
         }
 
 
-def _per_anchor(values, owner, n_anchors):
-    sums = np.bincount(owner, weights=values, minlength=n_anchors)
-    counts = np.bincount(owner, minlength=n_anchors)
+def _per_product(values, owner, n_products):
+    sums = np.bincount(owner, weights=values, minlength=n_products)
+    counts = np.bincount(owner, minlength=n_products)
     return sums / counts
 
 
@@ -191,11 +191,11 @@ def evaluate(queries, methods, products, rng, resamples=1000, level=0.95, unknow
     ----------
     queries : QuerySet
     methods : sequence of callables with ``name`` and ``kind``
-        ``method(anchor_product, candidate_products) -> ndarray`` of scores, higher first
+        ``method(query_product, candidate_products) -> ndarray`` of scores, higher first
         (see :class:`RulesMethod` and the baselines).
     products : mapping of str to Product, or iterable of Product
     rng : numpy.random.Generator
-        Draws the bootstrap resamples of anchors (shared by every method).
+        Draws the bootstrap resamples of query products (shared by every method).
     resamples : int
         Bootstrap resamples (>= 1).
     level : float
@@ -233,11 +233,11 @@ def evaluate(queries, methods, products, rng, resamples=1000, level=0.95, unknow
         raise EventsError(_why_nothing(queries, tuple(unknown), tuple(skipped)))
     by_id = products if isinstance(products, dict) else {p.id: p for p in products}
 
-    anchor_ids = sorted({q.anchor for q in queries.queries})
-    index = {a: i for i, a in enumerate(anchor_ids)}
-    owner = np.array([index[q.anchor] for q in queries.queries])
-    n_anchors = len(anchor_ids)
-    draws = rng.integers(0, n_anchors, size=(int(resamples), n_anchors))
+    product_ids = sorted({q.product for q in queries.queries})
+    index = {a: i for i, a in enumerate(product_ids)}
+    owner = np.array([index[q.product] for q in queries.queries])
+    n_products = len(product_ids)
+    draws = rng.integers(0, n_products, size=(int(resamples), n_products))
     alpha = (1.0 - float(level)) / 2.0
 
     work = [(m, q) for m in methods for q in queries.queries]
@@ -249,15 +249,15 @@ def evaluate(queries, methods, products, rng, resamples=1000, level=0.95, unknow
     row_of = {id(q): i for i, q in enumerate(queries.queries)}
     for method, q in work:
         cands = [by_id[c] for c in q.candidates]
-        s = np.asarray(method(by_id[q.anchor], cands), dtype=float)
+        s = np.asarray(method(by_id[q.product], cands), dtype=float)
         labels = q.gains > 0
         values[method.name][row_of[id(q)]] = (auc(s, labels), ndcg_at_k(s, q.gains, CUTOFF), hit_at_k(s, labels, CUTOFF))
 
     results = []
     for method in methods:
-        per_anchor = np.stack([_per_anchor(values[method.name][:, j], owner, n_anchors) for j in range(3)])
-        means = per_anchor.mean(axis=1)
-        boot = per_anchor[:, draws].mean(axis=2)  # (3, resamples)
+        per_product = np.stack([_per_product(values[method.name][:, j], owner, n_products) for j in range(3)])
+        means = per_product.mean(axis=1)
+        boot = per_product[:, draws].mean(axis=2)  # (3, resamples)
         lo = np.quantile(boot, alpha, axis=1)
         hi = np.quantile(boot, 1.0 - alpha, axis=1)
         results.append(
@@ -275,7 +275,7 @@ def evaluate(queries, methods, products, rng, resamples=1000, level=0.95, unknow
     return Evaluation(
         results=tuple(results),
         events=queries.events,
-        anchors=queries.anchors,
+        query_products=queries.query_products,
         products_seen=queries.products_seen,
         queries=len(queries.queries),
         coverage=queries.coverage,

@@ -25,7 +25,7 @@ def _stack(palettes, ids):
 
 @dataclass(frozen=True, eq=False)
 class RulesMethod:
-    """Rank by the raw pair score of a rules file, the anchor's category first.
+    """Rank by the raw pair score of a rules file, the query product's category first.
 
     The raw score ``w_a @ kernel(jab_a, jab_b) @ w_b`` ranks exactly as the score in [0, 1], which
     is strictly increasing in it. Pairs the file does not score tie.
@@ -36,12 +36,12 @@ class RulesMethod:
     name: str = ""
     kind: str = field(default="rules", init=False)
 
-    def __call__(self, anchor, candidates):
-        cat_a, cat_b = anchor.category, candidates[0].category
+    def __call__(self, product, candidates):
+        cat_a, cat_b = product.category, candidates[0].category
         if not self.rules.pairs_with(cat_a, cat_b):
             return np.zeros(len(candidates))
         pair = self.rules.for_pair(cat_a, cat_b)
-        pa = self.palettes[anchor.id]
+        pa = self.palettes[product.id]
         jab, w, starts = _stack(self.palettes, [c.id for c in candidates])
         per_colour = (pa.weights @ pair.kernel(pa.jab, jab)) * w
         return np.add.reduceat(per_colour, starts)
@@ -52,7 +52,7 @@ class SameColoursMethod:
     """Rank by palette likeness: minus the earth mover's distance (Rubner et al. 2000).
 
     The distance is symmetric, and a pair usually comes back with its roles swapped (when the
-    partner is an anchor too), so each unordered pair is solved once and remembered.
+    partner is a query product too), so each unordered pair is solved once and remembered.
     """
 
     palettes: dict
@@ -60,11 +60,11 @@ class SameColoursMethod:
     kind: str = field(default="baseline", init=False)
     _known: dict = field(default_factory=dict, init=False, repr=False)
 
-    def __call__(self, anchor, candidates):
-        keys = [(min(anchor.id, c.id), max(anchor.id, c.id)) for c in candidates]
+    def __call__(self, product, candidates):
+        keys = [(min(product.id, c.id), max(product.id, c.id)) for c in candidates]
         todo = [(key, c.id) for key, c in zip(keys, candidates) if key not in self._known]
         if todo:
-            pa = self.palettes[anchor.id]
+            pa = self.palettes[product.id]
             others = [(self.palettes[cid].jab, self.palettes[cid].weights) for _, cid in todo]
             self._known.update(zip([key for key, _ in todo], emd_one_to_many(pa.jab, pa.weights, others).tolist()))
         return -np.array([self._known[key] for key in keys])
@@ -83,8 +83,8 @@ class ColourAttributeMethod:
     name: str = "colour attribute"
     kind: str = field(default="baseline", init=False)
 
-    def __call__(self, anchor, candidates):
-        mine = _colour_words(anchor, self.attribute)
+    def __call__(self, product, candidates):
+        mine = _colour_words(product, self.attribute)
         out = np.zeros(len(candidates))
         if not mine:
             return out
@@ -102,7 +102,7 @@ class RandomMethod:
     name: str = "random order"
     kind: str = field(default="baseline", init=False)
 
-    def __call__(self, anchor, candidates):
+    def __call__(self, product, candidates):
         return np.zeros(len(candidates))
 
 

@@ -16,11 +16,11 @@ __all__ = ["Query", "QuerySet", "build_queries"]
 
 @dataclass(frozen=True, eq=False)
 class Query:
-    """One anchor product and the candidates of one partner category.
+    """One query product and the candidates of one partner category.
 
     Attributes
     ----------
-    anchor : str
+    product : str
         Product id.
     category : str
         The partner category, normalised.
@@ -30,7 +30,7 @@ class Query:
         Gain of each candidate, > 0 exactly for positives.
     """
 
-    anchor: str
+    product: str
     category: str
     candidates: tuple
     gains: np.ndarray
@@ -47,12 +47,12 @@ class QuerySet:
     Attributes
     ----------
     queries : tuple of Query
-        Sorted by anchor, then category.
+        Sorted by query product, then category.
     events : int
         Interactions used (known product, weight above 0).
     products_seen : int
         Distinct products of the log that could be evaluated (known, and with a palette).
-    anchors : int
+    query_products : int
         Of those, the products with at least one query (a positive of another category and at
         least one negative beside it).
     no_palette : tuple of str
@@ -62,13 +62,13 @@ class QuerySet:
     queries: tuple
     events: int
     products_seen: int
-    anchors: int
+    query_products: int
     no_palette: tuple = ()
 
     @property
     def coverage(self):
         """Share of the log's products that had a query; NaN for an empty log."""
-        return self.anchors / self.products_seen if self.products_seen else math.nan
+        return self.query_products / self.products_seen if self.products_seen else math.nan
 
 
 def build_queries(log, products, palettes=None):
@@ -80,7 +80,7 @@ def build_queries(log, products, palettes=None):
     products : iterable of harmony.shop.catalogue.Product
         The catalogue (a store's ``products()``).
     palettes : mapping of str to Palette, optional
-        When given, products without a palette take no part (neither as anchor nor candidate),
+        When given, products without a palette take no part (neither as query product nor candidate),
         so every colour method ranks the same candidates.
 
     Returns
@@ -95,7 +95,7 @@ def build_queries(log, products, palettes=None):
         if by_id[pid].in_stock():
             in_stock.setdefault(category[pid], []).append(pid)
 
-    gains = {}  # (anchor, partner) -> gain
+    gains = {}  # (query product, partner) -> gain
     seen, no_palette = set(), set()
     for session, weights in log.sessions().items():
         items = []
@@ -116,10 +116,10 @@ def build_queries(log, products, palettes=None):
                 gains[(b, a)] = gains.get((b, a), 0.0) + g
     n_events = sum(1 for ev in log.events if ev.product in usable)
 
-    positives = {}  # anchor -> category -> {partner: gain}
+    positives = {}  # query product -> category -> {partner: gain}
     for (a, b), g in gains.items():
         positives.setdefault(a, {}).setdefault(category[b], {})[b] = g
-    queries, anchors = [], set()
+    queries, queried = [], set()
     for a in sorted(positives):
         for cat in sorted(positives[a]):
             pos = positives[a][cat]
@@ -129,13 +129,13 @@ def build_queries(log, products, palettes=None):
             ids = tuple(sorted(pos)) + tuple(negatives)
             g = np.array([pos.get(pid, 0.0) for pid in ids])
             g.setflags(write=False)
-            queries.append(Query(anchor=a, category=cat, candidates=ids, gains=g))
-            anchors.add(a)
+            queries.append(Query(product=a, category=cat, candidates=ids, gains=g))
+            queried.add(a)
     return QuerySet(
         queries=tuple(queries),
         events=n_events,
         products_seen=len(seen),
-        anchors=len(anchors),
+        query_products=len(queried),
         no_palette=tuple(sorted(no_palette)),
     )
 

@@ -13,6 +13,7 @@ from harmony.colour.neutral import NEUTRAL_COLOURFULNESS, NEUTRAL_FADE, neutrali
 from harmony.errors import HarmonyError, ImageError
 
 __all__ = [
+    "PALETTE_JSON_FORMAT",
     "Palette",
     "PaletteSettings",
     "JND_DELTA_E",
@@ -23,6 +24,11 @@ __all__ = [
     "NEUTRAL_FADE",
     "neutrality",
 ]
+
+#: Version of the palette JSON (``harmony palette --json``, ``harmony palettes``): 2 names a
+#: colour's proportion ``share`` (format 1 called it ``weight``; both are read).
+PALETTE_JSON_FORMAT = 2
+
 
 def _frozen(arr, shape_tail, name):
     out = np.array(arr, dtype=float)
@@ -108,7 +114,7 @@ class Palette:
         colours = [
             {
                 "hex": code,
-                "weight": float(w),
+                "share": float(w),
                 "J": float(j[0]),
                 "a": float(j[1]),
                 "b": float(j[2]),
@@ -126,6 +132,7 @@ class Palette:
                 "share": float(self.background_share),
             }
         return {
+            "format": PALETTE_JSON_FORMAT,
             "image": self.source if image is None else str(image),
             "sha256": self.sha256,
             "width": int(self.width),
@@ -146,7 +153,8 @@ class Palette:
         try:
             colours = data["colours"]
             jab = [[c["J"], c["a"], c["b"]] for c in colours]
-            weights = [c["weight"] for c in colours]
+            # "weight" is the name format 1 (before harmony 0.2) gave the share.
+            weights = [c["share"] if "share" in c else c["weight"] for c in colours]
             bg = data.get("background")
             # The background is stored as a hex code: it round-trips to 8 bits per channel.
             bg_jab = None if bg is None else colour.srgb1_to_jab(colour.hex_to_srgb1(bg["hex"]))

@@ -466,7 +466,7 @@ def _bundle_views(data, views, palettes, rules, where, per_room):
         by_slot = {it.slot: it for it in items}
         by_id = {it.product.id: it for it in items}
         pairs = []
-        for p in bundle.get("pairs") or []:
+        for p in bundle.get("slot_pairs") or bundle.get("pairs") or []:  # "pairs": bundle JSON format 1
             if isinstance(p, dict):
                 pairs.append((str(p.get("a", "")), str(p.get("b", "")), float(p.get("score", 0.0)),
                               float(p.get("weight", 1.0))))

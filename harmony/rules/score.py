@@ -97,7 +97,7 @@ class PairScore:
             "categories": list(self.categories),
             "section": self.section,
             "contributions": [{"rule": r, "value": v} for r, v in self.contributions],
-            "pairs": [
+            "colour_pairs": [
                 {"a": p.hex_a, "b": p.hex_b, "rule": p.rule, "value": p.value,
                  "share_a": p.share_a, "share_b": p.share_b, "name_a": p.name_a, "name_b": p.name_b}
                 for p in self.pairs

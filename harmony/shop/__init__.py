@@ -4,3 +4,10 @@ Dask) and interaction logs.
 May import :mod:`harmony.colour` and :mod:`harmony.photo`; never the rules, suggestions, report,
 evaluation, demo or command line.
 """
+
+__all__ = ["ENGINES", "DEFAULT_DB_NAME"]
+
+#: Where extraction runs: local processes, or a Dask cluster.
+ENGINES = ("local", "dask")
+#: Name of the store file beside the catalogue when no path is given.
+DEFAULT_DB_NAME = "harmony.db"

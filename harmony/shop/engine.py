@@ -49,9 +49,7 @@ __all__ = [
     "extract_chunk",
 ]
 
-ENGINES = ("local", "dask")
-#: Name of the store file beside the catalogue when no path is given.
-DEFAULT_DB_NAME = "harmony.db"
+from harmony.shop import DEFAULT_DB_NAME, ENGINES  # noqa: E402  (light constants for the command line)
 #: Added to the store's file name to name the lock file of its writer (``harmony.db.lock``).
 LOCK_SUFFIX = ".lock"
 #: Upper bound of images per chunk: at most this much work is lost when a run is killed.

@@ -739,7 +739,7 @@ def search_bundles(store, room, rules, budget=None, anchor=None, exclude=(), top
             slot, cand = room.slots[s], problem.pools[s][i]
             items.append((slot.name, cand.id, slot.quantity, cand.price))
             pals.append(palettes[cand.id])
-            visible.append(slot.quantity * slot.size)
+            visible.append(slot.quantity * slot.visible_share)
         pairs = []
         for (s, t), mat in sorted(problem.scores.items()):
             i, j = b.choice[s], b.choice[t]
@@ -753,13 +753,17 @@ def search_bundles(store, room, rules, budget=None, anchor=None, exclude=(), top
                         bundles=tuple(bundles), nodes=result.nodes, eligible=eligible)
 
 
+#: Version of ``harmony bundle --json``: 2 names the slot pairs ``slot_pairs`` (format 1: ``pairs``).
+BUNDLE_JSON_FORMAT = 2
+
+
 def bundle_to_dict(bundle):
     """One bundle as the JSON object of ``harmony bundle --json``."""
     return {
         "score": round(float(bundle.score), 6),
         "total_price": round(float(bundle.total_price), 2),
         "items": [{"slot": s, "id": pid, "quantity": int(q), "price": float(p)} for s, pid, q, p in bundle.items],
-        "pairs": [{"a": a, "b": b, "score": round(sc, 6), "weight": w} for a, b, sc, w in bundle.pairs],
+        "slot_pairs": [{"a": a, "b": b, "score": round(sc, 6), "weight": w} for a, b, sc, w in bundle.pairs],
         "proportions": bundle.view.to_dict(),
     }
 
@@ -767,6 +771,7 @@ def bundle_to_dict(bundle):
 def result_to_dict(result):
     """The whole answer as the JSON object of ``harmony bundle --json``."""
     return {
+        "format": BUNDLE_JSON_FORMAT,
         "room": result.room,
         "budget": float(result.budget),
         "currency": result.currency,

@@ -12,13 +12,13 @@ A room template is a TOML file a stylist edits::
     category = "dining table"       # a catalogue category (compared case-insensitively)
     quantity = 1                    # units bought of the chosen product (integer >= 1; default 1)
     required = true                 # false: the slot may stay empty (default true)
-    size = 1.0                      # visible share of one unit in the room view (> 0; default 1)
+    visible_share = 1.0             # visible share of one unit in the room view (> 0; default 1)
 
     [[slot]]
     name = "chairs"
     category = "dining chair"
     quantity = 4
-    size = 0.35
+    visible_share = 0.35
 
     [[pair]]
     slots = ["table", "chairs"]     # two different slot names
@@ -40,7 +40,9 @@ from harmony.shop.catalogue import normalise_category
 __all__ = ["RoomSlot", "RoomTemplate", "load_room", "parse_room"]
 
 _TOP_KEYS = {"name", "budget", "currency", "default_weight", "slot", "pair"}
-_SLOT_KEYS = {"name", "category", "quantity", "required", "size"}
+_SLOT_KEYS = {"name", "category", "quantity", "required", "visible_share"}
+#: Keys renamed since an earlier release, with their new names.
+_RENAMED_KEYS = {"size": "visible_share"}
 _PAIR_KEYS = {"slots", "weight"}
 #: ISO 4217 alphabetic codes are three capital Latin letters.
 _CURRENCY = re.compile(r"^[A-Z]{3}$")
@@ -54,7 +56,7 @@ class RoomSlot:
     category: str
     quantity: int = 1
     required: bool = True
-    size: float = 1.0
+    visible_share: float = 1.0
 
 
 @dataclass(frozen=True)
@@ -153,7 +155,9 @@ def parse_room(text, path="<room>"):
             bad(where.find(None, table, i), tag, "must be a table")
             return False
         for key in item:
-            if key not in allowed:
+            if key in _RENAMED_KEYS and _RENAMED_KEYS[key] in allowed:
+                bad(where.find(key, table, i), f"{tag}.{key}", f"renamed '{_RENAMED_KEYS[key]}' in harmony 0.2")
+            elif key not in allowed:
                 bad(where.find(key, table, i), f"{tag}.{key}",
                     f"unknown key (expected one of {', '.join(sorted(allowed))})")
         return True
@@ -206,13 +210,14 @@ def parse_room(text, path="<room>"):
         if not isinstance(required, bool):
             bad(where.find("required", "slot", i), f"{tag}.required", f"true or false is required, got {required!r}")
             ok = False
-        size = s.get("size", 1.0)
-        if not _is_number(size) or size <= 0:
-            bad(where.find("size", "slot", i), f"{tag}.size", f"a positive number is required, got {size!r}")
+        share = s.get("visible_share", 1.0)
+        if not _is_number(share) or share <= 0:
+            bad(where.find("visible_share", "slot", i), f"{tag}.visible_share",
+                f"a positive number is required, got {share!r}")
             ok = False
         if ok:
             slots.append(RoomSlot(name=sname, category=normalise_category(category), quantity=quantity,
-                                  required=required, size=float(size)))
+                                  required=required, visible_share=float(share)))
     if raw_slots and not any(s.get("required", True) is True for s in raw_slots if isinstance(s, dict)):
         bad(where.find(None, "slot", 0), "slot", "at least one slot must be required")
 

@@ -30,7 +30,8 @@ def test_json_shape_and_consistency(db):
     res = run("--db", db, "--room", DEMO_DIR / "dining_corner.toml", "--top", 3, "--json")
     assert res.exit_code == 0, res.output
     data = json.loads(res.output)
-    assert set(data) == {"room", "budget", "currency", "exact", "pool_sizes", "eligible_sizes", "bundles"}
+    assert set(data) == {"format", "room", "budget", "currency", "exact", "pool_sizes", "eligible_sizes", "bundles"}
+    assert data["format"] == 2
     assert data["room"] == "Dining corner" and data["currency"] == "EUR" and data["exact"] is True
     room = load_room(DEMO_DIR / "dining_corner.toml")
     assert set(data["pool_sizes"]) == {s.name for s in room.slots}
@@ -40,7 +41,7 @@ def test_json_shape_and_consistency(db):
     assert scores == sorted(scores, reverse=True)
     with Store(db) as store:
         for b in data["bundles"]:
-            assert set(b) == {"score", "total_price", "items", "pairs", "proportions"}
+            assert set(b) == {"score", "total_price", "items", "slot_pairs", "proportions"}
             total = sum(i["quantity"] * i["price"] for i in b["items"])
             assert b["total_price"] == pytest.approx(total) and total <= data["budget"]
             slots = {i["slot"]: i for i in b["items"]}
@@ -48,7 +49,7 @@ def test_json_shape_and_consistency(db):
             assert slots["chairs"]["quantity"] == 4
             # Each pair score equals harmony.rules.score.pair_score on the stored palettes.
             value = 0.0
-            for p in b["pairs"]:
+            for p in b["slot_pairs"]:
                 a, c = slots[p["a"]], slots[p["b"]]
                 pa, pc = store.product(a["id"]), store.product(c["id"])
                 exact = pair_score(store.palette(pa.id), store.palette(pc.id), rules.for_pair(pa.category, pc.category))

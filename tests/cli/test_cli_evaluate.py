@@ -72,13 +72,13 @@ def test_json_output_has_the_documented_keys(shop):
     res = run("evaluate", "--db", db, "--events", log, "--rules", RIGHT, "--rules", WRONG, "--json", "--resamples", 200)
     assert res.exit_code == 0, res.output
     data = json.loads(res.output)
-    assert {"events", "anchors", "results"} <= set(data)
+    assert {"events", "query_products", "results"} <= set(data)
     # Every extra key is deliberate (coverage and what was left out, how intervals were drawn).
     assert set(data) == {
-        "events", "anchors", "results", "products_seen", "queries", "coverage", "unknown_products",
+        "events", "query_products", "results", "products_seen", "queries", "coverage", "unknown_products",
         "no_palette", "skipped_events", "confidence_level", "bootstrap_resamples",
     }
-    assert data["coverage"] == pytest.approx(data["anchors"] / data["products_seen"])
+    assert data["coverage"] == pytest.approx(data["query_products"] / data["products_seen"])
     assert data["bootstrap_resamples"] == 200 and data["confidence_level"] == 0.95
     names = [r["name"] for r in data["results"]]
     assert names == ["complementary_only", "complementary_inverted", "same colours (EMD)", "colour attribute", "random order"]
@@ -93,13 +93,13 @@ def test_json_output_has_the_documented_keys(shop):
     assert data["skipped_events"] == {}
 
 
-def test_anchor_and_event_counts(shop):
+def test_query_product_and_event_counts(shop):
     db, log = shop
     data = json.loads(run("evaluate", "--db", db, "--events", log, "--rules", RIGHT, "--json", "--resamples", 50).output)
     # 40 sessions of one sofa view and one cushion purchase; the rows of unknown ids are left out.
     assert data["events"] == 80
-    assert data["anchors"] == data["products_seen"]  # every product of the log had a partner
-    assert 0 < data["anchors"] <= 32
+    assert data["query_products"] == data["products_seen"]  # every product of the log had a partner
+    assert 0 < data["query_products"] <= 32
 
 
 def test_table_and_html_page(shop, tmp_path):

@@ -65,7 +65,7 @@ def test_feed_warns_about_a_target_without_stock(tmp_path):
 
 
 def test_suggest_table_and_json(db):
-    res = run("suggest", "S0", "--db", db, "-n", 3)
+    res = run("suggest", "S0", "--db", db, "--top", 3)
     assert res.exit_code == 0, res.output
     lines = res.stdout.splitlines()
     assert lines[0].startswith("S0 (sofa)") and "#" in lines[0]
@@ -131,11 +131,11 @@ def test_feed_out_in_an_unwritable_folder_and_an_empty_store(db, tmp_path):
 def test_suggest_draws_weighted_colour_blocks_in_a_terminal_only(db, monkeypatch):
     import harmony.cli.feed_cmd as feed_cmd
 
-    plain = run("suggest", "S0", "--db", db, "-n", 2)
+    plain = run("suggest", "S0", "--db", db, "--top", 2)
     assert plain.exit_code == 0 and "\x1b[" not in plain.output  # not a terminal: hex codes
-    monkeypatch.setattr(feed_cmd, "terminal_has_colour", lambda stream: True)
+    monkeypatch.setattr("harmony.photo.swatch.terminal_has_colour", lambda stream: True)
     # color=True: click's runner would otherwise strip escape codes as for a pipe.
-    res = CliRunner().invoke(main, ["suggest", "S0", "--db", str(db), "-n", "2"], color=True)
+    res = CliRunner().invoke(main, ["suggest", "S0", "--db", str(db), "--top", "2"], color=True)
     assert res.exit_code == 0, res.output
     lines = res.stdout.splitlines()
     assert len(lines) == 5  # the product, then a score line and a reason line per partner
@@ -153,7 +153,7 @@ def test_suggest_bad_input_is_one_error_line(db, tmp_path):
     for args, says in [
         (["S7", "--db", db], "unknown product id 'S7'"),
         (["S0", "--db", db, "--category", "sofa"], "'sofa' is the category of 'S0' itself"),
-        (["S0", "--db", db, "-n", 0], "Invalid value for '-n'"),
+        (["S0", "--db", db, "--top", 0], "Invalid value for '--top'"),
         (["S0", "--db", tmp_path / "none.db"], "no palette store here"),
     ]:
         res = run("suggest", *args)
@@ -213,3 +213,13 @@ def test_no_pair_warning_when_every_category_is_in_the_store(db, tmp_path):
     res = run("feed", "--db", db, "--rules", rules, "--out", tmp_path / "feed.jsonl")
     assert res.exit_code == 0, res.output
     assert "pair " not in res.stderr
+
+
+def test_feed_to_standard_output_keeps_the_summary_off_it(db, tmp_path):
+    # "-" means standard output in every command that writes one file; the summary goes to stderr.
+    res = CliRunner().invoke(main, ["feed", "--db", str(db), "--top", "2", "--format", "csv", "--out", "-"])
+    assert res.exit_code == 0, res.output
+    lines = res.stdout.splitlines()
+    assert lines[0].startswith("product,category,partner,partner_category,rank,score")
+    assert "wrote" not in res.stdout and "wrote" in res.stderr
+    assert not (tmp_path / "-").exists()

@@ -12,8 +12,8 @@ from harmony.errors import HarmonyError
 from harmony.photo.palette import extract_palette
 from harmony.photo.swatch import ansi_block, segment_widths, write_swatch
 
-KEYS = {"image", "sha256", "width", "height", "scene", "confidence", "background", "colours"}
-COLOUR_KEYS = {"hex", "weight", "J", "a", "b", "M", "hue", "lrv", "neutral"}
+KEYS = {"format", "image", "sha256", "width", "height", "scene", "confidence", "background", "colours"}
+COLOUR_KEYS = {"hex", "share", "J", "a", "b", "M", "hue", "lrv", "neutral"}
 
 
 @pytest.fixture(scope="module")
@@ -47,7 +47,7 @@ def test_json_keys_and_order(files):
     assert set(obj) == KEYS and obj["image"] == str(good)
     assert set(obj["background"]) == {"hex", "share"}
     assert all(set(c) == COLOUR_KEYS for c in obj["colours"])
-    weights = [c["weight"] for c in obj["colours"]]
+    weights = [c["share"] for c in obj["colours"]]
     assert weights == sorted(weights, reverse=True) and len(weights) <= 6
     assert abs(sum(weights) - 1) < 1e-9
 
@@ -79,7 +79,7 @@ def test_swatch_widths_are_weights(files, tmp_path):
     row = img[10]
     runs = np.flatnonzero(np.any(row[1:] != row[:-1], axis=1)) + 1
     widths = np.diff(np.concatenate([[0], runs, [600]]))
-    expected = segment_widths([c["weight"] for c in obj["colours"]], 600)
+    expected = segment_widths([c["share"] for c in obj["colours"]], 600)
     assert widths.tolist() == expected.tolist()
 
 

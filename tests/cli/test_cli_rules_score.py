@@ -109,11 +109,11 @@ def test_score_json(runner, palettes):
     result = runner.invoke(main, ["score", str(rug), str(sofa), "--categories", "Rug,SOFA", "--json"])
     assert result.exit_code == 0, result.stderr
     out = json.loads(result.output)
-    assert set(out) >= {"score", "categories", "rules_file", "contributions", "pairs", "reason"}
+    assert set(out) >= {"score", "categories", "rules_file", "contributions", "colour_pairs", "reason"}
     assert out["categories"] == ["rug", "sofa"]
     assert 0.0 <= out["score"] <= 1.0
     assert {c["rule"] for c in out["contributions"]} >= {"complementary", "neutral_anchor", "lightness_step"}
-    assert all(set(p) == {"a", "b", "rule", "value"} for p in out["pairs"])
+    assert all(set(p) == {"a", "b", "rule", "value"} for p in out["colour_pairs"])
     assert out["reason"].startswith("the rug's ") and " the sofa's " in out["reason"]
 
 

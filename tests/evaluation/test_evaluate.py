@@ -255,9 +255,9 @@ def test_rules_method_ranks_as_the_exact_pair_score(tmp_path):
     products, palettes, _ = known_relation_shop(tmp_path)
     rules = load_rules()
     by_id = {p.id: p for p in products}
-    anchor = by_id["so03"]
+    query = by_id["so03"]
     cands = [p for p in products if p.category == "Cushion"]
-    got = RulesMethod(rules, palettes)(anchor, cands)
+    got = RulesMethod(rules, palettes)(query, cands)
     pair = rules.for_pair("sofa", "cushion")
     want = [pair_score(palettes["so03"], palettes[c.id], pair).raw for c in cands]
     np.testing.assert_allclose(got, want, atol=1e-9)
@@ -285,13 +285,13 @@ def test_positives_negatives_and_coverage(tmp_path):
     )
     log = read_events(path, known_products={p.id for p in products})
     q = build_queries(log, products)
-    got = {(x.anchor, x.category): (x.candidates, list(x.gains)) for x in q.queries}
+    got = {(x.product, x.category): (x.candidates, list(x.gains)) for x in q.queries}
     # S1-R1: min(5, 1) in session a + min(3, 3) in b = 4; S1-R2: min(3, 5) = 3.
     assert got[("S1", "rug")] == (("R1", "R2", "R3", "R4"), [4.0, 3.0, 0.0, 0.0])
     assert got[("S2", "rug")] == (("R1", "R3", "R4"), [1.0, 0.0, 0.0])
     assert ("R1", "sofa") not in got  # both sofas are positives: no negative left
     assert got[("R2", "sofa")] == (("S1", "S2"), [3.0, 0.0])
-    assert q.anchors == 3 and q.products_seen == 5  # S1, S2, R1, R2, L1
+    assert q.query_products == 3 and q.products_seen == 5  # S1, S2, R1, R2, L1
     assert q.coverage == pytest.approx(3 / 5)
     assert log.unknown == (("GHOST", 1),)
 
@@ -301,7 +301,7 @@ def test_products_without_palette_take_no_part(tmp_path):
     dropped = dict(palettes)
     del dropped["cu03"]
     q = build_queries(log, products, dropped)
-    assert all("cu03" not in x.candidates and x.anchor != "cu03" for x in q.queries)
+    assert all("cu03" not in x.candidates and x.product != "cu03" for x in q.queries)
 
 
 def test_nothing_to_evaluate_is_a_clear_error(tmp_path):

@@ -248,3 +248,12 @@ def test_studio_master_over_the_decoded_cap_gives_a_palette():
 
 def test_method_version_in_key():
     assert PaletteSettings().key.startswith("v3-")
+
+
+def test_palette_json_format_2_says_share_and_still_reads_format_1():
+    pal = Palette(jab=[[50.0, 10.0, 5.0], [70.0, 0.0, 0.0]], weights=[0.75, 0.25])
+    data = pal.to_dict()
+    assert data["format"] == 2 and [c["share"] for c in data["colours"]] == [0.75, 0.25]
+    old = {**data, "colours": [{("weight" if k == "share" else k): v for k, v in c.items()} for c in data["colours"]]}
+    del old["format"]
+    assert np.allclose(Palette.from_dict(old).weights, [0.75, 0.25])

@@ -462,7 +462,7 @@ def test_demo_command_prints_where_the_report_is(small_shop, tmp_path, monkeypat
     monkeypatch.setattr(demo, "run_demo", lambda out, **kw: real(out, catalogue=small_shop,
                                                                   rooms=[DEMO_DIR / "living_room.toml"], **kw))
     out = tmp_path / "d"
-    result = _cli("demo", "--out", out, "--workers", "1", "--no-progress")
+    result = _cli("demo", "--out-dir", out, "--workers", "1", "--no-progress")
     assert result.exit_code == 0, result.output
     last = result.output.strip().splitlines()[-1]
     assert last == f"report: {(out / 'report.html').resolve()}"
@@ -471,7 +471,7 @@ def test_demo_command_prints_where_the_report_is(small_shop, tmp_path, monkeypat
 def test_demo_command_reports_an_unusable_folder(tmp_path):
     blocker = tmp_path / "file"
     blocker.write_text("x")
-    result = _cli("demo", "--out", blocker / "sub", "--no-progress")
+    result = _cli("demo", "--out-dir", blocker / "sub", "--no-progress")
     assert result.exit_code == 2
     assert "error: " in result.output and "cannot make the output folder" in result.output
 

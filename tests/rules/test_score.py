@@ -130,7 +130,7 @@ def test_pairs_are_sorted_and_limited(rules):
     values = [abs(p.value) for p in result.pairs]
     assert len(values) == 6 and values == sorted(values, reverse=True)
     d = result.to_dict()
-    assert set(d) >= {"score", "categories", "contributions", "pairs", "reason"}
+    assert set(d) >= {"score", "categories", "contributions", "colour_pairs", "reason"}
 
 
 @pytest.mark.parametrize(

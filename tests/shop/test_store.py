@@ -214,7 +214,7 @@ def test_cli_palettes_csv_file(tmp_path):
     a = [r for r in rows if r["product"] == "A"]
     assert [int(r["rank"]) for r in a] == [1, 2, 3]
     assert np.array_equal([[float(r["J"]), float(r["a"]), float(r["b"])] for r in a], pals["A"].jab)
-    assert sum(float(r["weight"]) for r in a) == pytest.approx(1.0)
+    assert sum(float(r["share"]) for r in a) == pytest.approx(1.0)
     same = CliRunner().invoke(main, ["palettes", "--db", str(tmp_path / "x.db"), "--format", "jsonl", "--out", str(out)])
     assert same.exit_code == 0 and out.read_text().startswith('{"product":"A"')
 

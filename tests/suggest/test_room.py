@@ -37,7 +37,7 @@ def test_dining_corner_contents():
 def test_categories_are_normalised():
     room = parse_room('name = "x"\nbudget = 10\ncurrency = "EUR"\n[[slot]]\nname = "a"\ncategory = "  Dining   CHAIR "\n')
     assert room.slots[0].category == "dining chair"
-    assert room.slots[0].quantity == 1 and room.slots[0].required and room.slots[0].size == 1.0
+    assert room.slots[0].quantity == 1 and room.slots[0].required and room.slots[0].visible_share == 1.0
 
 
 def test_every_problem_listed_with_line_and_key():
@@ -58,7 +58,7 @@ def test_every_problem_listed_with_line_and_key():
         ":12: slot[2].name: duplicate slot name 'table'",
         ":13: slot[2].category:",
         ":14: slot[2].required: true or false",
-        ":15: slot[2].size: a positive number",
+        ":15: slot[2].visible_share: a positive number",
         ":18: pair[1].slots: unknown slot 'sideboard'",
         ":19: pair[1].weight: a number >= 0",
     ]
@@ -111,7 +111,7 @@ def test_proportions_of_an_exact_60_30_10_room():
     sofa = Palette(jab[:1], [1.0])
     rug = Palette(jab[1:2], [1.0])
     cushion = Palette(jab[2:], [1.0])
-    # visible shares quantity x size: 1 x 0.6, 1 x 0.3, 2 x 0.05
+    # visible shares quantity x visible_share: 1 x 0.6, 1 x 0.3, 2 x 0.05
     view = room_view([sofa, rug, cushion], [0.6, 0.3, 0.1])
     assert view.shares == pytest.approx((0.6, 0.3, 0.1))
     assert view.distance == pytest.approx(0.0, abs=1e-12)
@@ -141,3 +141,9 @@ def test_bad_visible_shares():
         room_view([grey], [1.0, 2.0])
     with pytest.raises(ValueError, match="not all zero"):
         room_view([grey], [0.0])
+
+
+def test_the_renamed_size_key_says_its_new_name():
+    text = 'name = "r"\nbudget = 10\ncurrency = "EUR"\n[[slot]]\nname = "a"\ncategory = "sofa"\nsize = 0.5\n'
+    with pytest.raises(RoomError, match=r"x.toml:7: slot\[1\].size: renamed 'visible_share'"):
+        parse_room(text, "x.toml")
