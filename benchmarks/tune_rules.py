@@ -152,7 +152,7 @@ def tune(rules, tuning, held, palettes, products, rounds=2, with_lightness=False
 
 def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    parser.add_argument("--db", required=True, help="store written by 'harmony demo --out DIR'")
+    parser.add_argument("--db", required=True, help="store written by 'harmony demo --out-dir DIR'")
     parser.add_argument("--events", default=str(DEMO_DIR / "shop" / "events.csv"))
     parser.add_argument("--rules", default=str(DEFAULT_RULES))
     parser.add_argument("--seed", type=int, default=7, help="seed of the session split")

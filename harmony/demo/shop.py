@@ -90,10 +90,10 @@ def write_shop(directory=DEFAULT_SHOP_DIR, seed=DEFAULT_SEED, only=None, progres
 
 
 def main(argv=None):
-    """``python -m harmony.demo.shop [--out DIR] [--seed N]``: regenerate the demo shop."""
+    """``python -m harmony.demo.shop [--out-dir DIR] [--seed N]``: regenerate the demo shop."""
     parser = argparse.ArgumentParser(prog="python -m harmony.demo.shop",
                                      description=f"Regenerate the invented demo shop {SHOP_NAME}.")
-    parser.add_argument("--out", default=str(DEFAULT_SHOP_DIR), help="output folder (default: %(default)s)")
+    parser.add_argument("--out-dir", dest="out", default=str(DEFAULT_SHOP_DIR), help="output folder (default: %(default)s)")
     parser.add_argument("--seed", type=int, default=DEFAULT_SEED, help="generator seed (default: %(default)s)")
     args = parser.parse_args(argv)
     summary = write_shop(args.out, seed=args.seed)
