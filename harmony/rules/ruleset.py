@@ -1,23 +1,15 @@
-"""Harmony rules a stylist edits in TOML, validated on loading, and their colour-pair kernels.
+"""The rules of a whole file and of one pair of categories.
 
 A rules file (see ``rules/README.md`` for the format) names *rules* -- hue relations, a neutral
-anchor, a lightness step, the Ou & Luo (2006) model -- and chooses, per pair of product
-categories, which rules apply with what weight. :func:`load_rules` reads and validates a file
-into a :class:`RuleSet`; :meth:`RuleSet.for_pair` gives the :class:`PairRules` of two
-categories, whose :meth:`PairRules.kernel` is the signed harmony of every colour pair.
+anchor, a lightness step, the Ou & Luo (2006) model; see :mod:`harmony.rules.kinds` -- and
+chooses, per pair of product categories, which rules apply with what weight.
+:func:`harmony.rules.load_rules` reads and validates a file into a :class:`RuleSet`;
+:meth:`RuleSet.for_pair` gives the :class:`PairRules` of two categories, whose
+:meth:`PairRules.kernel` is the signed harmony of every colour pair.
 
 The bilinear contract that the pair score and the all-pairs screen rely on::
 
     raw(pa, pb) = pa.weights @ pair_rules.kernel(pa.jab, pb.jab) @ pb.weights
-
-References
-----------
-P. Moon, D. E. Spencer (1944). Geometric formulation of classical color harmony.
-    J. Opt. Soc. Am. 34(1):46-59 -- similarity at about 7-12 and contrast at 28-50 steps of the
-    100-step Munsell hue circle, an "ambiguity" zone between (intervals as commonly cited;
-    volume, issue and pages from memory -- the paper itself was not read).
-L.-C. Ou, M. R. Luo (2006). A colour harmony model for two-colour combinations.
-    Color Research & Application 31(3):191-204.
 """
 
 import difflib
