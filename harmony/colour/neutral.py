@@ -13,11 +13,12 @@ __all__ = ["NEUTRAL_COLOURFULNESS", "NEUTRAL_FADE", "neutrality"]
 #: full width of the smooth fade around it. Measured with colour-science's Munsell renotation data
 #: (value 6, ten principal hues, Illuminant C adapted to D65 with CAT02) through colorspacious:
 #: chroma 1 lands at M' 2.7-6.5, chroma 2 at 5.4-10.5, chroma 4 at 10.7-16.8; sRGB white is 2.2.
-#: A centre of 7 with a fade from 5 to 9 treats chroma-1 colours as neutral, chroma-4 colours as
-#: chromatic, and blends chroma 2 (greige, stone, putty: neutrals in interior-design common practice).
+#: A centre of 7 with a fade from 3 to 11 treats sRGB white as neutral, chroma-4 colours as
+#: chromatic, and blends chroma 1 and 2 (greige, stone, putty: neutrals in interior-design common
+#: practice). The wide fade keeps a score's slope over M' gentle near the threshold.
 #: ``rules/default.toml`` carries the same numbers; a test checks that they agree.
 NEUTRAL_COLOURFULNESS = 7.0
-NEUTRAL_FADE = 4.0
+NEUTRAL_FADE = 8.0
 
 
 def neutrality(jab, threshold=NEUTRAL_COLOURFULNESS, fade=NEUTRAL_FADE):

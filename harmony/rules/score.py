@@ -25,22 +25,24 @@ __all__ = [
     "ColourLabels",
     "colour_labels",
     "pair_scores",
+    "net_colour_pairs",
     "SCORE_BATCH",
 ]
 
 
 @dataclass(frozen=True)
 class ColourPair:
-    """One colour of each product and what one rule made of them.
+    """One colour of each product and the net effect of the rules on them.
 
     Attributes
     ----------
     hex_a, hex_b : str
         '#rrggbb' of the two colours.
     rule : str
-        The rule's name.
+        The rule that leads the pair: the largest contribution with the sign of ``value``.
     value : float
-        Its contribution to the raw score: ``w_a * w_b * weighted kernel``.
+        The pair's net contribution to the raw score, summed over every rule:
+        ``w_a * w_b * kernel`` (see :func:`net_colour_pairs`).
     share_a, share_b : float
         The colours' weights in their palettes (0..1).
     name_a, name_b : str
@@ -77,7 +79,8 @@ class PairScore:
     contributions : tuple of (str, float)
         Each rule's share of ``raw``; they sum to ``raw``. In the order of the rules file.
     pairs : tuple of ColourPair
-        The colour pairs with the largest absolute contributions, largest first.
+        The colour pairs with the largest absolute net contributions, largest first; each colour
+        pair appears once.
     reason : str
         One sentence a stylist can read.
     """
@@ -251,10 +254,15 @@ def _rule_label(rule):
 def explain_reason(pairs, categories, pair_rules, jab_a, jab_b, raw):
     """One sentence naming the colour pair that drove the score, and the worst clash if any.
 
+    Each colour pair is spoken of by its net effect (the sum of the rules on it, see
+    :func:`net_colour_pairs`) and in the words of the rule that leads it with that sign, so no
+    colour pair is praised and faulted in one sentence. The "but" clause names a different
+    colour pair whose net effect is negative.
+
     Parameters
     ----------
     pairs : sequence of ColourPair
-        Largest absolute contribution first (as in :attr:`PairScore.pairs`).
+        Largest absolute net contribution first, one per colour pair (as in :attr:`PairScore.pairs`).
     categories : (str, str)
         Category names; empty strings give "the first/second product's", and one category
         twice gives "the first/second sofa's".
@@ -388,6 +396,51 @@ def pair_scores(pals_a, pals_b, pair_rules, top=5, *, labels_a=None, labels_b=No
     return out
 
 
+def net_colour_pairs(stack, top):
+    """The colour pairs with the largest net effect, and the rule that leads each one.
+
+    A colour pair's *net* value is the sum of every rule's contribution on it; an explanation
+    speaks of a colour pair by that sum only, so one pair is never said to both "sit close in
+    hue" and "clash" (two rules of opposite sign on the same two colours).
+
+    Parameters
+    ----------
+    stack : ndarray, shape (rules, n, m)
+        Each rule's weighted contribution to the raw score per colour pair.
+    top : int
+        How many colour pairs to return at most (pairs with a net value of exactly 0 are left out).
+
+    Returns
+    -------
+    rule, i, j : ndarray of int, shape (count,)
+        Indices of the leading rule (the largest contribution with the sign of the net value) and
+        of the two colours, largest absolute net value first; ties go to the lower flat index
+        (colour a, then colour b), as a stable sort orders them.
+    net : ndarray, shape (count,)
+        The net values.
+    """
+    empty = np.zeros(0, dtype=int)
+    if stack.size == 0 or top <= 0:
+        return empty, empty, empty, np.zeros(0)
+    net = stack.sum(axis=0)
+    flat = np.abs(net).ravel()
+    count = min(int(top), int(np.count_nonzero(flat)))
+    if count == 0:
+        return empty, empty, empty, np.zeros(0)
+    # The `count` largest without sorting all n x m entries.
+    if count < flat.size:
+        kth = np.partition(flat, flat.size - count)[flat.size - count]
+        cand = np.flatnonzero(flat >= kth)
+    else:
+        cand = np.arange(flat.size)
+    order = cand[np.lexsort((cand, -flat[cand]))][:count]
+    i_idx, j_idx = np.unravel_index(order, net.shape)
+    values = net[i_idx, j_idx]
+    per_rule = stack[:, i_idx, j_idx] * np.sign(values)[None, :]  # same sign as the net: > 0
+    r_idx = np.argmax(per_rule, axis=0)
+    return r_idx, i_idx, j_idx, values
+
+
 def _explained(stack, names, w_a, w_b, jab_a, jab_b, pair_rules, top, labels_a, labels_b):
     """The PairScore of a pair from its weighted per-rule contributions ``stack`` (rules, n, m)."""
     per_rule = stack.reshape(len(names), -1).sum(axis=1)
@@ -395,29 +448,19 @@ def _explained(stack, names, w_a, w_b, jab_a, jab_b, pair_rules, top, labels_a, 
     contributions = tuple((name, float(v)) for name, v in zip(names, per_rule))
 
     pairs = ()
-    if stack.size and top > 0:
-        flat = np.abs(stack).ravel()
-        count = min(top, int(np.count_nonzero(flat)))
-        # The `count` largest, ties to the lower flat index: a stable sort's order, without
-        # sorting all n x m x rules entries.
-        if 0 < count < flat.size:
-            kth = np.partition(flat, flat.size - count)[flat.size - count]
-            cand = np.flatnonzero(flat >= kth)
-        else:
-            cand = np.arange(flat.size if count else 0)
-        order = cand[np.lexsort((cand, -flat[cand]))][:count]
-        r_idx, i_idx, j_idx = np.unravel_index(order, stack.shape)
+    r_idx, i_idx, j_idx, net = net_colour_pairs(stack, top)
+    if len(net):
         t = pair_rules.neutral_threshold
         hex_a, word_a = _labels_of(labels_a, jab_a, sorted(set(i_idx.tolist())), t, "labels_a")
         hex_b, word_b = _labels_of(labels_b, jab_b, sorted(set(j_idx.tolist())), t, "labels_b")
         pairs = tuple(
             ColourPair(
-                hex_a=hex_a[i], hex_b=hex_b[j], rule=names[r], value=float(stack[r, i, j]),
+                hex_a=hex_a[i], hex_b=hex_b[j], rule=names[r], value=float(v),
                 share_a=float(w_a[i]), share_b=float(w_b[j]),
                 name_a=word_a[i], name_b=word_b[j],
                 index_a=int(i), index_b=int(j),
             )
-            for r, i, j in zip(r_idx.tolist(), i_idx.tolist(), j_idx.tolist())
+            for r, i, j, v in zip(r_idx.tolist(), i_idx.tolist(), j_idx.tolist(), net.tolist())
         )
     reason = explain_reason(pairs, pair_rules.categories, pair_rules, jab_a, jab_b, raw)
     return PairScore(
