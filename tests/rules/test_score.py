@@ -1,5 +1,7 @@
 """The exact pair score: the bilinear contract, the map to [0, 1], symmetry, explanations."""
 
+import re
+
 import numpy as np
 import pytest
 from scipy.special import expit
@@ -277,3 +279,88 @@ def test_reason_for_two_products_of_one_category():
     a, b = _palette([("#b8400d", 1.0)]), _palette([("#008080", 1.0)])
     assert pair_score(a, b, rs.for_pair("Sofa", "sofa")).reason.startswith(
         "the first sofa's rust (100 %) sits opposite the second sofa's teal (100 %)")
+
+
+# ---- reasons agree with the score: one colour pair, one net effect -------------------------------
+
+_CLAUSE = re.compile(r"^(the .+?'s .+? \(\d+ %\)) (.+?) (the .+?'s .+? \(\d+ %\))")
+
+
+def contradicting_rows(reasons):
+    """Reasons whose "but" clause names the same colour pair as the first clause."""
+    bad = []
+    for reason in reasons:
+        parts = reason.split("; but ")
+        if len(parts) == 2:
+            a, b = _CLAUSE.match(parts[0]), _CLAUSE.match(parts[1])
+            if a and b and (a.group(1), a.group(3)) == (b.group(1), b.group(3)):
+                bad.append(reason)
+    return bad
+
+
+_OVERLAP = """format = 1
+[neutral]
+threshold = 7.0
+fade = 4.0
+[rule.analogous]
+kind = "hue"
+centre = 0.0
+spread = 30.0
+weight = 1.0
+phrase = "sits close in hue to"
+[rule.clash]
+kind = "hue"
+centre = 70.0
+spread = 28.0
+weight = -0.8
+[default]
+rules = { analogous = 1.0, clash = 1.0 }
+"""
+
+
+def test_one_colour_pair_is_spoken_of_by_its_net_effect():
+    # Overlapping bumps (analogous up to about 60 degrees, clash from about 40): rust and a colour
+    # about 45 degrees on get both rules. The sentence names the pair once, by the sign of the sum.
+    rs = parse_rules(_OVERLAP)
+    pr = rs.for_pair("rug", "sofa")
+    rust = _palette([("#b8400d", 1.0)])
+    signs = set()
+    for code in ("#c07000", "#c09000", "#a0a000", "#80a000"):
+        other = _palette([(code, 1.0)])
+        result = pair_score(rust, other, pr)
+        terms = {name: float(k[0, 0]) for name, k in pr.kernel_terms(rust.jab, other.jab)}
+        net = sum(terms.values())
+        assert terms["analogous"] > 0.05 and terms["clash"] < -0.05, (code, terms)  # both rules fire
+        signs.add(net > 0)
+        assert len(result.pairs) == 1 and result.pairs[0].value == pytest.approx(net)
+        assert ("clashes with" in result.reason) == (net < 0)
+        assert ("close in hue" in result.reason) == (net > 0)
+        assert "; but " not in result.reason
+    assert signs == {True, False}
+
+
+def test_contradiction_detector_finds_a_self_contradiction():
+    # Both sides of the check below: the detector flags a sentence of the old form.
+    old = ("the rug's rust (50 %) sits close in hue to the sofa's amber (40 %): analogous; "
+           "but the rug's rust (50 %) clashes with the sofa's amber (40 %)")
+    fine = ("the rug's rust (50 %) sits close in hue to the sofa's amber (40 %): analogous; "
+            "but the rug's cream (50 %) clashes with the sofa's amber (40 %)")
+    assert contradicting_rows([old, fine]) == [old]
+
+
+@pytest.mark.slow
+def test_no_row_of_the_demo_feed_contradicts_itself(tmp_path):
+    # The demo shop's feed under the default rules (22,536 rows): before reasons spoke of net
+    # effects, 920 rows named one colour pair with rules of opposite sign.
+    from harmony.resources import DEFAULT_RULES, DEMO_DIR
+    from harmony.shop.engine import run_extraction
+    from harmony.shop.store import Store
+    from harmony.suggest.feed import build_feed
+
+    db = tmp_path / "shop.db"
+    run_extraction(DEMO_DIR / "shop" / "catalogue.csv", db, workers=1, progress=False)
+    with Store(db) as store:
+        rows = build_feed(store, load_rules(DEFAULT_RULES), top=10)
+    assert len(rows) > 10_000
+    assert contradicting_rows([r.reason for r in rows]) == []
+    assert any("; but " in r.reason for r in rows)  # the "but" clause still appears, for other pairs
