@@ -13,17 +13,24 @@ likely the ones they find appealing (their thumbnails show the colours); they pu
 appealing of those in the cart with probability :data:`CART_CHANCE` and buy it with probability
 :data:`BUY_CHANCE` once in the cart; the anchor is carted and bought the same way.
 
-Appeal of a partner ``b`` to a shopper who holds ``a`` is a weighted sum over the colour pairs of
-the two palettes (the palettes that harmony extracts from the photos, i.e. what the shopper sees),
-with one of three tastes, drawn per session:
+Appeal of a partner ``b`` to a shopper who holds ``a`` comes from one of three tastes, drawn per
+session. None of them uses the rules of ``rules/*.toml`` (no hue-angle bumps, no clash zone, no
+neutral anchor), so an evaluation on this log does not grade the rules against their own
+assumptions:
 
-``tone``   (:data:`TASTE_SHARES` 55 %)
-    likes close dominant hues (within about 25 degrees), dislikes hues 50-100 degrees apart,
-    and finds any pairing with a neutral mildly pleasing;
-``accent`` (25 %)
-    likes one bold contrast (hues about opposite), mildly likes close hues, same dislike;
+``harmony`` (:data:`TASTE_SHARES` 60 %)
+    the Ou & Luo (2006) two-colour harmony model (:mod:`harmony.colour.ou_luo`), a model fitted
+    to people's ratings of colour pairs, applied to every colour pair of the two palettes and
+    weighted by the colours' shares: ``sum_ij share_a[i] share_b[j] CH(a_i, b_j)``;
+``contrast`` (20 %)
+    seeks one bold contrast: the largest CAM02-UCS colour difference between a colour of ``a``
+    and a colour of ``b`` that both hold at least :data:`BOLD_MIN_SHARE` of their palettes,
+    divided by 100;
 ``price``  (20 %)
     ignores colour and prefers cheaper products.
+
+Each session also draws how strongly its taste steers it (a factor from 0.5 to 1.5), and every
+choice carries Gumbel noise, so shoppers of one taste do not all pick alike.
 
 The log has the columns ``session,product,event,timestamp``, sorted by time; sessions fall on
 invented dates in February 2026. A few rows name products that are no longer in the catalogue
@@ -43,8 +50,7 @@ from pathlib import Path
 
 import numpy as np
 
-from harmony.colour import hue_deg
-from harmony.colour.neutral import neutrality
+from harmony.colour.ou_luo import jab_to_lab, two_colour_harmony
 from harmony.fileio import write_text_whole
 from harmony.resources import DEMO_DIR
 from harmony.shop.catalogue import normalise_category
@@ -57,7 +63,10 @@ __all__ = [
     "BUY_CHANCE",
     "RETIRED_IDS",
     "DEFAULT_EVENTS_PATH",
+    "BOLD_MIN_SHARE",
     "appeal",
+    "expected_appeal",
+    "TasteMethod",
     "simulate_sessions",
     "events_csv",
     "write_demo_events",
@@ -71,7 +80,9 @@ DEFAULT_SEED = 2026_02
 #: every method here, and AUC and NDCG@10 are the columns that tell the methods apart.
 SESSIONS = 400
 #: Share of sessions with each taste (invented).
-TASTE_SHARES = {"tone": 0.55, "accent": 0.25, "price": 0.20}
+TASTE_SHARES = {"harmony": 0.60, "contrast": 0.20, "price": 0.20}
+#: A colour must hold at least this share of its palette to count as a bold contrast (invented).
+BOLD_MIN_SHARE = 0.15
 #: Chance that the most appealing viewed product of a category goes in the cart, and that a
 #: carted product is bought (invented).
 CART_CHANCE = 0.45
@@ -85,31 +96,88 @@ DEFAULT_EVENTS_PATH = DEMO_DIR / "shop" / "events.csv"
 _START = datetime(2026, 2, 1, 7, 0, tzinfo=timezone.utc)
 
 
-def _bump(x, centre, spread):
-    return np.exp(-(((x - centre) / spread) ** 2))
+def _lab(pal):
+    return jab_to_lab(np.asarray(pal.jab, dtype=float))
 
 
-def appeal(pal_a, pal_b, taste):
+def appeal(pal_a, pal_b, taste, lab_a=None, lab_b=None):
     """How much a shopper with ``taste`` likes ``pal_b`` beside ``pal_a`` (colour tastes only).
 
-    Returns the weighted sum over colour pairs ``w_a[i] * w_b[j] * f(c_a[i], c_b[j])`` where ``f``
-    blends the hue taste of chromatic pairs with a mild liking for neutrals (see the module notes).
-    The ``price`` taste has no colour preference: 0.
+    Parameters
+    ----------
+    pal_a, pal_b : Palette
+    taste : {"harmony", "contrast", "price"}
+    lab_a, lab_b : ndarray, optional
+        CIELAB (D65) of the palettes' colours, when the caller has them already.
+
+    Returns
+    -------
+    float
+        ``harmony``: the share-weighted mean of Ou & Luo's CH over colour pairs; ``contrast``:
+        the largest CAM02-UCS difference between two colours of at least :data:`BOLD_MIN_SHARE`,
+        over 100; ``price``: 0 (no colour preference).
     """
     if taste == "price":
         return 0.0
-    ha, hb = hue_deg(pal_a.jab), hue_deg(pal_b.jab)
-    dh = np.abs((ha[:, None] - hb[None, :] + 180.0) % 360.0 - 180.0)  # 0..180 degrees
-    chroma = (1.0 - neutrality(pal_a.jab))[:, None] * (1.0 - neutrality(pal_b.jab))[None, :]
-    dislike = -0.9 * _bump(dh, 75.0, 18.0)
-    if taste == "tone":
-        hue_term = _bump(dh, 0.0, 25.0) + dislike
-    elif taste == "accent":
-        hue_term = 1.2 * _bump(dh, 180.0, 25.0) + 0.3 * _bump(dh, 0.0, 20.0) + dislike
-    else:
-        raise ValueError(f"unknown taste {taste!r}")
-    f = chroma * hue_term + (1.0 - chroma) * 0.35
-    return float(pal_a.weights @ f @ pal_b.weights)
+    if taste == "harmony":
+        lab_a = _lab(pal_a) if lab_a is None else lab_a
+        lab_b = _lab(pal_b) if lab_b is None else lab_b
+        ch = two_colour_harmony(lab_a[:, None, :], lab_b[None, :, :])
+        return float(np.asarray(pal_a.weights) @ ch @ np.asarray(pal_b.weights))
+    if taste == "contrast":
+        ja, jb = np.asarray(pal_a.jab, dtype=float), np.asarray(pal_b.jab, dtype=float)
+        keep_a = np.asarray(pal_a.weights) >= BOLD_MIN_SHARE
+        keep_b = np.asarray(pal_b.weights) >= BOLD_MIN_SHARE
+        if not keep_a.any() or not keep_b.any():
+            return 0.0
+        diff = np.linalg.norm(ja[keep_a][:, None, :] - jb[keep_b][None, :, :], axis=-1)
+        return float(diff.max()) / 100.0
+    raise ValueError(f"unknown taste {taste!r}")
+
+
+def expected_appeal(pal_a, pal_b, price_b, cheapest, lab_a=None, lab_b=None):
+    """The simulator's own ranking value: each taste's appeal weighted by its share of sessions.
+
+    The price taste's value is the one :func:`simulate_sessions` uses, ``-log(price / cheapest) / 2``.
+    """
+    total = 0.0
+    for taste, share in TASTE_SHARES.items():
+        if taste == "price":
+            total += share * (-np.log(price_b / cheapest + 1e-9) / 2.0)
+        else:
+            total += share * appeal(pal_a, pal_b, taste, lab_a, lab_b)
+    return total
+
+
+class TasteMethod:
+    """An evaluation method that ranks by :func:`expected_appeal`: the ceiling of the demo log.
+
+    Called like the methods of :mod:`harmony.evaluation` (``method(anchor, candidates)``).
+    """
+
+    kind = "ceiling"
+
+    def __init__(self, palettes, products, name="simulated shoppers' own taste (ceiling)"):
+        self.palettes, self.name = palettes, name
+        self._lab = {}
+        self._cheapest = {}
+        for p in products:
+            if p.id in palettes and p.in_stock():
+                key = normalise_category(p.category)
+                self._cheapest[key] = min(self._cheapest.get(key, np.inf), p.price)
+
+    def _labs(self, pid):
+        if pid not in self._lab:
+            self._lab[pid] = _lab(self.palettes[pid])
+        return self._lab[pid]
+
+    def __call__(self, anchor, candidates):
+        pa = self.palettes[anchor.id]
+        out = np.empty(len(candidates))
+        for k, c in enumerate(candidates):
+            cheapest = self._cheapest.get(normalise_category(c.category), c.price)
+            out[k] = expected_appeal(pa, self.palettes[c.id], c.price, cheapest, self._labs(anchor.id), self._labs(c.id))
+        return out
 
 
 def _choose(rng, values, count):
@@ -148,6 +216,7 @@ def simulate_sessions(products, palettes, rooms, rng, sessions=SESSIONS):
     if not rooms:
         raise ValueError("no room has two categories with products in stock and palettes")
     tastes, shares = list(TASTE_SHARES), np.array(list(TASTE_SHARES.values()))
+    labs = {pid: _lab(pal) for pid, pal in palettes.items()}
     rows = []
     width = len(str(sessions))
     span = 28 * 24 * 3600
@@ -155,6 +224,7 @@ def simulate_sessions(products, palettes, rooms, rng, sessions=SESSIONS):
         sid = f"s{s + 1:0{width}d}"
         room = rooms[int(rng.integers(len(rooms)))]
         taste = tastes[int(rng.choice(len(tastes), p=shares / shares.sum()))]
+        strength = float(rng.uniform(0.5, 1.5))
         clock = float(rng.uniform(0, span))
         anchor = by_cat[room[0]][int(rng.integers(len(by_cat[room[0]])))]
 
@@ -173,7 +243,9 @@ def simulate_sessions(products, palettes, rooms, rng, sessions=SESSIONS):
                 prices = np.array([p.price for p in shelf])
                 values = -np.log(prices / prices.min() + 1e-9) / 2.0
             else:
-                values = np.array([appeal(palettes[anchor.id], palettes[p.id], taste) for p in shelf])
+                values = np.array([appeal(palettes[anchor.id], palettes[p.id], taste, labs[anchor.id], labs[p.id])
+                                   for p in shelf])
+            values = strength * values
             viewed = _choose(rng, values, int(rng.integers(1, 5)))
             for i in viewed:
                 emit(shelf[int(i)], "view")
