@@ -192,7 +192,7 @@ def fit_weights(names, weights, items, n_anchors, fixed=(), rounds=3, progress=F
         moved = False
         for k in free:
             base = w[k] if w[k] != 0.0 else start[k]
-            trials = sorted({round(base * f, 4) for f in FACTORS} - {w[k]})
+            trials = sorted({round(base * f, 4) + 0.0 for f in FACTORS} - {w[k]})  # + 0.0: no -0
             for v in trials:
                 cand = w.copy()
                 cand[k] = v
