@@ -53,7 +53,7 @@ def evaluation_table(db, events, progress):
     methods.append(TasteMethod(palettes, products, name="ceiling: the simulated shoppers' own taste"))
     result = evaluate(queries, methods, products, np.random.default_rng(SEED), resamples=1000, progress=progress)
     lines = [f"Held-out half of the sessions ({tuned.held_sessions} of {tuned.held_sessions + tuned.train_sessions}; "
-             f"{result.anchors} anchor products, {result.queries} queries), simulated shoppers:", "",
+             f"{result.query_products} query products, {result.queries} queries), simulated shoppers:", "",
              "| method | AUC | AUC 95 % CI | NDCG@10 | NDCG@10 95 % CI | hit@10 | hit@10 95 % CI |",
              "| --- | --- | --- | --- | --- | --- | --- |"]
     for r in result.results:

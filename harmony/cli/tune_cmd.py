@@ -65,7 +65,7 @@ def tune_command(events, rules_in, out, db, split, seed, resamples, progress):
     ev = result.evaluation
     click.echo(f"{rules_in} tuned on {events}: split by {split} (seed {seed}), "
                f"{result.train_sessions} training and {result.held_sessions} held-out sessions, "
-               f"{ev.anchors} held-out anchor products ({ev.queries} queries)", err=out == "-")
+               f"{ev.query_products} held-out query products ({ev.queries} queries)", err=out == "-")
     say = lambda line: click.echo(line, err=out == "-")
     say("")
     say(f"{'held out':<8}  {'AUC':>5}  {'95 % CI':>11}  {'NDCG@10':>7}  {'95 % CI':>11}  {'hit@10':>6}  {'95 % CI':>11}")

@@ -152,7 +152,7 @@ def expected_appeal(pal_a, pal_b, price_b, cheapest, lab_a=None, lab_b=None):
 class TasteMethod:
     """An evaluation method that ranks by :func:`expected_appeal`: the ceiling of the demo log.
 
-    Called like the methods of :mod:`harmony.evaluation` (``method(anchor, candidates)``).
+    Called like the methods of :mod:`harmony.evaluation` (``method(product, candidates)``).
     """
 
     kind = "ceiling"

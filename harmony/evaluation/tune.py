@@ -2,11 +2,11 @@
 
 The log is split in two (by time: the earlier sessions train, the later ones are held out; or by
 session: a seeded random half of the sessions). On the training half, the rule weights are fitted
-by a coordinate search that maximises the mean AUC over anchor products (:mod:`harmony.evaluation`);
+by a coordinate search that maximises the mean AUC over query products (:mod:`harmony.evaluation`);
 the score map (``[score] midpoint`` and ``scale``, which change no ranking) is then *measured* on
 the training half's raw scores (median to 0.5, 5th and 95th percentiles to 0.2 and 0.8). Both
-rules files are then evaluated on the held-out half, with bootstrap intervals over anchor products
-and a paired interval of the difference (the same resampled anchors for both): when that interval
+rules files are then evaluated on the held-out half, with bootstrap intervals over query products
+and a paired interval of the difference (the same resampled query products for both): when that interval
 covers 0, the gain is within noise and the report says so.
 
 The raw score is linear in the rule weights: ``raw = sum_r weight_r * multiplier_r(pair) *
@@ -130,8 +130,8 @@ def query_terms(rules, queries, palettes, products, progress=False):
     items : list of _QueryTerms
         One per query of a scored pair of categories; the others rank every candidate equally
         whatever the weights, so they are left out of the fit.
-    anchors : int
-        Number of distinct anchors among ``items``.
+    query_products : int
+        Number of distinct query products among ``items``.
     """
     names = tuple(rules.rules)
     index = {n: k for k, n in enumerate(names)}
@@ -143,7 +143,7 @@ def query_terms(rules, queries, palettes, products, progress=False):
         work = tqdm(work, desc="terms", unit="query", leave=False)
     items, anchor_ids = [], {}
     for q in work:
-        anchor = by_id[q.anchor]
+        anchor = by_id[q.product]
         cands = [by_id[c] for c in q.candidates]
         if not rules.pairs_with(anchor.category, cands[0].category):
             continue
@@ -156,7 +156,7 @@ def query_terms(rules, queries, palettes, products, progress=False):
                 continue  # the term cannot be told from 0; such a rule is never fitted
             # k is weight x multiplier x term: divided by the rule's weight, multiplier x term.
             t[index[name]] = np.add.reduceat((pa.weights @ k) * w, starts) / rule.weight
-        items.append(_QueryTerms(t, q.gains > 0, q.gains, anchor_ids.setdefault(q.anchor, len(anchor_ids))))
+        items.append(_QueryTerms(t, q.gains > 0, q.gains, anchor_ids.setdefault(q.product, len(anchor_ids))))
     return names, items, len(anchor_ids)
 
 
@@ -224,10 +224,10 @@ def _per_anchor_metrics(rules, queries, palettes, products):
     by_id = products if isinstance(products, dict) else {p.id: p for p in products}
     values, owners = [], []
     for q in queries.queries:
-        s = method(by_id[q.anchor], [by_id[c] for c in q.candidates])
+        s = method(by_id[q.product], [by_id[c] for c in q.candidates])
         labels = q.gains > 0
         values.append((auc(s, labels), ndcg_at_k(s, q.gains, CUTOFF), hit_at_k(s, labels, CUTOFF)))
-        owners.append(q.anchor)
+        owners.append(q.product)
     ids = sorted(set(owners))
     pos = {a: i for i, a in enumerate(ids)}
     owner = np.array([pos[a] for a in owners])
@@ -238,7 +238,7 @@ def _per_anchor_metrics(rules, queries, palettes, products):
 
 
 def paired_difference(before, after, queries, palettes, products, rng, resamples=1000, level=0.95):
-    """Mean of ``after - before`` per metric over anchors, and its paired bootstrap interval.
+    """Mean of ``after - before`` per metric over query products, and its paired bootstrap interval.
 
     Returns
     -------
