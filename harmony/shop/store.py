@@ -123,6 +123,9 @@ class Store:
         The database file.
     create : bool
         Make an empty store when the file does not exist (otherwise that is an error).
+    read_only : bool
+        Open the file read-only (SQLite URI ``mode=ro``): no statement of this connection can
+        change it, and no pragma is set (a live server reading while an extraction writes).
 
     Raises
     ------
@@ -136,8 +139,10 @@ class Store:
     by id and palettes of the settings used by the last extraction (:attr:`settings_key`).
     """
 
-    def __init__(self, path, create=False):
+    def __init__(self, path, create=False, read_only=False):
         self.path = Path(path)
+        if create and read_only:
+            raise ValueError("a store cannot be both created and opened read-only")
         exists = self.path.exists()
         if not exists and not create:
             raise StoreError(
@@ -151,8 +156,14 @@ class Store:
                 if handle.read(len(_SQLITE_HEADER)) != _SQLITE_HEADER:
                     raise StoreError(f"{self.path}: not a palette store (not an SQLite file); left untouched")
         self._may_create = bool(create)
+        self.read_only = bool(read_only)
         try:
-            self._db = sqlite3.connect(self.path, timeout=60.0, isolation_level=None)
+            if self.read_only:
+                uri = self.path.resolve().as_uri() + "?mode=ro"
+                self._db = sqlite3.connect(uri, uri=True, timeout=60.0, isolation_level=None,
+                                           check_same_thread=False)
+            else:
+                self._db = sqlite3.connect(self.path, timeout=60.0, isolation_level=None)
         except sqlite3.Error as exc:
             raise StoreError(f"{self.path}: cannot open: {exc}") from None
         try:
@@ -174,7 +185,8 @@ class Store:
 
     def _open(self):
         db = self._db
-        db.execute("PRAGMA foreign_keys = ON")
+        if not self.read_only:
+            db.execute("PRAGMA foreign_keys = ON")
         tables = self._tables()
         if not tables:
             if not self._may_create:
@@ -200,6 +212,8 @@ class Store:
                 f"{self.path}: store schema version {version}, this harmony reads version {SCHEMA_VERSION}; "
                 f"extract again into a new --db file"
             )
+        if self.read_only:
+            return
         db.execute("PRAGMA journal_mode = WAL")
         # NORMAL is safe in WAL mode against a killed process (only power loss may drop the
         # last commits), and much faster than FULL (SQLite documentation, "PRAGMA synchronous").
@@ -418,6 +432,11 @@ class Store:
             " WHERE pi.error IS NOT NULL OR f.reason IS NOT NULL ORDER BY pi.product_id, pi.position"
         )
         return [(pid, path, reason) for pid, _pos, path, reason in self._db.execute(sql, (self.settings_key,))]
+
+    def data_version(self):
+        """SQLite's ``PRAGMA data_version`` of this connection: it changes when another connection
+        commits to the file, so a reader can tell cheaply whether to read again."""
+        return int(self._db.execute("PRAGMA data_version").fetchone()[0])
 
     def counts(self):
         """Row counts: products, images, palettes (all settings), failures (all settings)."""

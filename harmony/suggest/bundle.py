@@ -21,6 +21,7 @@ T. C. Koopmans, M. Beckmann (1957). Assignment problems and the location of econ
 import heapq
 import itertools
 import math
+import time
 from dataclasses import dataclass, field
 
 import networkx as nx
@@ -204,8 +205,9 @@ def _differences(a, b):
 class _Searcher:
     """Depth-first branch-and-bound over a fixed slot order (see :func:`search`, Notes)."""
 
-    def __init__(self, problem, max_nodes):
+    def __init__(self, problem, max_nodes, time_limit=None):
         self.p = problem
+        self.deadline = None if time_limit is None else time.monotonic() + float(time_limit)
         n = len(problem.slots)
         # Heavier slots first: their pair values become exact early, which tightens the bound.
         incident = [sum(abs(float(problem.weights.get((min(s, t), max(s, t)), 0.0)))
@@ -354,6 +356,9 @@ class _Searcher:
             if self.max_nodes is not None and self.nodes >= self.max_nodes:
                 self.stopped = True
                 return
+            if self.deadline is not None and self.nodes % 64 == 0 and time.monotonic() > self.deadline:
+                self.stopped = True
+                return
             c = None if children[k] < 0 else int(children[k])
             new_diffs = diffs
             if avoid:
@@ -378,7 +383,7 @@ class _Searcher:
                 return
 
 
-def search(problem, top=1, min_difference=1, max_nodes=None):
+def search(problem, top=1, min_difference=1, max_nodes=None, time_limit=None):
     """The top bundles of ``problem``, exactly, by branch-and-bound.
 
     Parameters
@@ -390,6 +395,9 @@ def search(problem, top=1, min_difference=1, max_nodes=None):
         Every two returned bundles differ in at least this many slots (1 = merely distinct).
     max_nodes : int or None
         Stop after expanding this many nodes; the result then says ``exact=False``.
+    time_limit : float or None
+        Stop after about this many seconds (checked every 64 nodes); the result then holds the
+        best bundles found so far and says ``exact=False``.
 
     Returns
     -------
@@ -433,7 +441,7 @@ def search(problem, top=1, min_difference=1, max_nodes=None):
     if min_difference < 1 or min_difference > max(1, len(problem.slots)):
         raise RoomError(f"min-difference must lie in 1..{len(problem.slots)}, got {min_difference}")
     _check_problem(problem)
-    searcher = _Searcher(problem, max_nodes)
+    searcher = _Searcher(problem, max_nodes, time_limit)
     order = searcher.order
     if min_difference == 1:
         found = searcher.run(top)
@@ -702,7 +710,7 @@ def build_problem(store, room, rules, budget=None, anchor=None, exclude=(), pool
 
 
 def search_bundles(store, room, rules, budget=None, anchor=None, exclude=(), top=3, min_difference=1,
-                   pool_limit=60, max_nodes=None):
+                   pool_limit=60, max_nodes=None, time_limit=None):
     """The top bundles of a room from a store's products, scored under ``rules``.
 
     Parameters
@@ -716,8 +724,8 @@ def search_bundles(store, room, rules, budget=None, anchor=None, exclude=(), top
         A product id every bundle must contain.
     exclude : iterable of str
         Product ids no bundle may contain.
-    top, min_difference, max_nodes
-        As in :func:`search`.
+    top, min_difference, max_nodes, time_limit
+        As in :func:`search` (the time limit covers the search, not building the pools).
     pool_limit : int
         Largest candidate pool per slot (see :func:`build_problem`).
 
@@ -729,7 +737,8 @@ def search_bundles(store, room, rules, budget=None, anchor=None, exclude=(), top
     from harmony.suggest.roomview import room_view
 
     problem, eligible, palettes = build_problem(store, room, rules, budget, anchor, exclude, pool_limit)
-    result = search(problem, top=top, min_difference=min_difference, max_nodes=max_nodes)
+    result = search(problem, top=top, min_difference=min_difference, max_nodes=max_nodes,
+                    time_limit=time_limit)
     bundles = []
     for b in result.bundles:
         items, pals, visible = [], [], []

@@ -1,0 +1,61 @@
+"""``harmony serve --db DB``: the live, read-only JSON API (Starlette run by uvicorn)."""
+
+import ipaddress
+
+import click
+
+from harmony.errors import HarmonyError, warn
+from harmony.resources import DEFAULT_RULES, ROOMS_DIR
+
+from . import main
+
+__all__ = ["serve", "DEFAULT_PORT"]
+
+#: The port ``harmony serve`` listens on unless told otherwise (unassigned by IANA for any service
+#: this machine is likely to run; any free port will do).
+DEFAULT_PORT = 8765
+
+
+@main.command("serve")
+@click.option("--db", "db", required=True, type=click.Path(dir_okay=False), help="The palette store (opened read-only).")
+@click.option("--rules", "rules_path", type=click.Path(dir_okay=False), default=str(DEFAULT_RULES),
+              show_default="rules/default.toml", help="Harmony rules file.")
+@click.option("--rooms", "rooms_dir", type=click.Path(file_okay=False), default=str(ROOMS_DIR),
+              show_default="the shipped room templates", help="Folder of room templates (*.toml) the API may name.")
+@click.option("--host", default="127.0.0.1", show_default=True,
+              help="Address to listen on; keep the loopback default behind a reverse proxy.")
+@click.option("--port", type=click.IntRange(1, 65535), default=DEFAULT_PORT, show_default=True)
+@click.option("--room-time-limit", type=click.FloatRange(0.05, 60.0), default=2.0, show_default=True,
+              help="Seconds one room-set search may take (the best found so far is returned, marked not exact).")
+@click.option("--access-log/--no-access-log", default=False, show_default=True, help="Log every request.")
+def serve(db, rules_path, rooms_dir, host, port, room_time_limit, access_log):
+    """Answer partners, palettes, scores and room sets over HTTP, as JSON.
+
+    The store is opened read-only and watched: products a later 'harmony extract' adds are
+    answered within about a second of its commit, without a restart. The API is described at
+    /openapi.json. Stop with Ctrl-C (or SIGTERM).
+    """
+    import logging
+
+    import uvicorn
+
+    from harmony.rules import load_rules
+    from harmony.serve.app import create_app
+    from harmony.serve.snapshot import LiveStore
+
+    try:
+        loopback = ipaddress.ip_address(host).is_loopback
+    except ValueError:
+        loopback = host == "localhost"
+    if not loopback:
+        warn(f"listening on {host}, not on loopback: put a reverse proxy with access control in front")
+    rules = load_rules(rules_path)
+    live = LiveStore(db, rules)
+    if len(live.snapshot) == 0:
+        live.close()
+        raise HarmonyError(f"{db}: the store holds no products (run 'harmony extract' first)")
+    logging.basicConfig(level=logging.INFO, format="%(levelname)s: %(name)s: %(message)s")
+    app = create_app(live, rules_path=rules_path, rooms_dir=rooms_dir, room_time_limit=room_time_limit)
+    click.echo(f"serving {len(live.snapshot)} products of {db} on http://{host}:{port} (API: /openapi.json)", err=True)
+    uvicorn.run(app, host=host, port=port, access_log=access_log, log_level="info", server_header=False,
+                timeout_keep_alive=5, limit_concurrency=512, h11_max_incomplete_event_size=16 * 1024)
