@@ -300,6 +300,7 @@ class LiveStore:
         self.last_error = None
         self._stop = threading.Event()
         self._thread = None
+        self._warmer = None
 
     def _stat(self):
         st = os.stat(self.path)
@@ -334,8 +335,28 @@ class LiveStore:
         self.last_error = None
         self.snapshot = fresh
         self.reloads += 1
+        self._warm_up()
         log.info("store reloaded: %d products, version %s", len(fresh), fresh.version)
         return True
+
+    def _warm(self, snap):
+        """Build the screens of every category pair the rules score whose partner side is too large
+        for the exact path, so that first requests do not pay for them; stops when replaced."""
+        from harmony.serve.engine import EXACT_ROW
+
+        for own in snap.categories():
+            for target in snap.categories():
+                if self._stop.is_set() or self.snapshot is not snap:
+                    return
+                if own == target or not self.rules.pairs_with(own, target):
+                    continue
+                if len(snap.category_data[target].partner_ids) > EXACT_ROW and snap.category_data[own].ids:
+                    snap.screen(own, target, self.rules.for_pair(own, target))
+
+    def _warm_up(self):
+        self._warmer = threading.Thread(target=self._warm, args=(self.snapshot,), name="harmony-screen-warm-up",
+                                        daemon=True)
+        self._warmer.start()
 
     def _run(self):
         while not self._stop.wait(self.poll_seconds):
@@ -346,10 +367,12 @@ class LiveStore:
         if self._thread is None:
             self._thread = threading.Thread(target=self._run, name="harmony-store-watcher", daemon=True)
             self._thread.start()
+            self._warm_up()
 
     def close(self):
         self._stop.set()
-        if self._thread is not None:
-            self._thread.join(timeout=10)
-            self._thread = None
+        for thread in (self._thread, self._warmer):
+            if thread is not None:
+                thread.join(timeout=30)
+        self._thread = self._warmer = None
         self._probe.close()

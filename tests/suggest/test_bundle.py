@@ -295,3 +295,20 @@ def test_hard_instances_diverse_top_k(problem, k, n):
         assert a.choice in feasible
         for b in result.bundles[:i]:
             assert sum(x != y for x, y in zip(a.choice, b.choice)) >= n
+
+
+def test_time_limit_stops_the_search_and_says_so():
+    # A random instance (seeded generator); no time at all must stop before the first node, and no
+    # limit must finish exactly with the same best bundle as a generous limit.
+    rng = np.random.default_rng(16)
+    slots = tuple(BundleSlot(f"s{i}", f"c{i}") for i in range(4))
+    pools = tuple(tuple(Candidate(f"p{i}-{j}", float(rng.integers(10, 100))) for j in range(12)) for i in range(4))
+    scores = {(s, t): rng.random((12, 12)) for s in range(4) for t in range(s + 1, 4)}
+    weights = {k: 1.0 for k in scores}
+    problem = BundleProblem(slots, pools, scores, weights, 250.0)
+    stopped = search(problem, top=3, time_limit=0.0)
+    assert stopped.exact is False and stopped.nodes == 0
+    full = search(problem, top=3)
+    generous = search(problem, top=3, time_limit=600.0)
+    assert full.exact and generous.exact
+    assert [b.choice for b in generous.bundles] == [b.choice for b in full.bundles]
