@@ -9,11 +9,17 @@ from harmony.resources import DEFAULT_RULES, ROOMS_DIR
 
 from . import main
 
-__all__ = ["serve", "DEFAULT_PORT"]
+__all__ = ["serve", "DEFAULT_PORT", "KEEP_ALIVE_SECONDS"]
 
 #: The port ``harmony serve`` listens on unless told otherwise (unassigned by IANA for any service
 #: this machine is likely to run; any free port will do).
 DEFAULT_PORT = 8765
+
+
+#: Idle keep-alive connections are closed after this long: longer than a reverse proxy's own
+#: upstream idle time (nginx's keepalive_timeout is 60 s by default), so the proxy closes first
+#: and never sends a request on a connection the server is closing (common practice).
+KEEP_ALIVE_SECONDS = 65
 
 
 @main.command("serve")
@@ -58,4 +64,4 @@ def serve(db, rules_path, rooms_dir, host, port, room_time_limit, access_log):
     app = create_app(live, rules_path=rules_path, rooms_dir=rooms_dir, room_time_limit=room_time_limit)
     click.echo(f"serving {len(live.snapshot)} products of {db} on http://{host}:{port} (API: /openapi.json)", err=True)
     uvicorn.run(app, host=host, port=port, access_log=access_log, log_level="info", server_header=False,
-                timeout_keep_alive=5, limit_concurrency=512, h11_max_incomplete_event_size=16 * 1024)
+                timeout_keep_alive=KEEP_ALIVE_SECONDS, limit_concurrency=512, h11_max_incomplete_event_size=16 * 1024)

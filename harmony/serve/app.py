@@ -194,6 +194,7 @@ def create_app(live, *, rules_path=None, curation_path=None, rooms_dir=ROOMS_DIR
             "products": len(snap),
             "with_palette": len(snap.palettes()),
             "categories": len(snap.category_data),
+            "warming_up": live.warming,
             "rules": None if rules_path is None else Path(rules_path).name,
             "rules_sha256": rules_hash,
             "curation_sha256": curation_hash,

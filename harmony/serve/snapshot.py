@@ -353,6 +353,11 @@ class LiveStore:
                 if len(snap.category_data[target].partner_ids) > EXACT_ROW and snap.category_data[own].ids:
                     snap.screen(own, target, self.rules.for_pair(own, target))
 
+    @property
+    def warming(self):
+        """Whether screens of the current snapshot are still being built in the background."""
+        return self._warmer is not None and self._warmer.is_alive()
+
     def _warm_up(self):
         self._warmer = threading.Thread(target=self._warm, args=(self.snapshot,), name="harmony-screen-warm-up",
                                         daemon=True)
