@@ -14,7 +14,8 @@ from harmony import resources
 
 PACKAGE = Path(harmony.__file__).resolve().parent
 #: Bottom to top, as in DEVELOPERS.md; a module may import its own level and those below.
-LEVELS = ["base", "colour", "photo", "shop", "rules", "suggest", "evaluation", "report", "demo", "cli", "top"]
+LEVELS = ["base", "colour", "photo", "shop", "rules", "suggest", "evaluation", "report", "demo", "serve", "cli",
+          "top"]
 BASE = {"errors", "fileio", "resources"}
 
 
