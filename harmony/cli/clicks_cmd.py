@@ -11,7 +11,9 @@ __all__ = ["clicks_command", "read_feed_order"]
 
 
 def read_feed_order(path):
-    """``{(product, partner): rank}`` from a feed file (JSONL or CSV with product, partner, rank).
+    """``{(product, partner): (rank, partner_category)}`` from a feed file (JSONL or CSV with
+    product, partner, rank and optionally partner_category); only rows of the ``partner``
+    relation count when the feed has a ``relation`` column.
 
     Raises
     ------
@@ -37,12 +39,14 @@ def read_feed_order(path):
                         row = json.loads(row)
                     except json.JSONDecodeError as exc:
                         raise HarmonyError(f"{path}:{line}: not JSON: {exc.msg}") from None
+                if row.get("relation") not in (None, "", "partner"):
+                    continue
                 try:
                     rank = int(row["rank"])
                     key = (str(row["product"]), str(row["partner"]))
                 except (KeyError, TypeError, ValueError):
                     raise HarmonyError(f"{path}:{line}: needs product, partner and a whole-number rank") from None
-                order.setdefault(key, rank)
+                order.setdefault(key, (rank, str(row.get("partner_category") or "")))
     except OSError as exc:
         raise HarmonyError(f"{path}: cannot read the feed: {exc.strerror or exc}") from None
     if not order:

@@ -405,9 +405,11 @@ def new_positions(log, order):
     Parameters
     ----------
     log : ImpressionLog
-    order : mapping of (product, partner) to int
-        The new slot (1-based) of a partner beside a product, e.g. a feed's ``rank``. A request
-        shows as many slots as it showed in the log; a partner ranked below that is not shown.
+    order : mapping of (product, partner) to int or to (int, str)
+        The new slot (1-based) of a partner beside a product, e.g. a feed's ``rank``, optionally
+        with the partner's category (a feed ranks each category apart; a request's slider is the
+        category of the partners it showed). A request shows as many slots as it showed in the
+        log; a partner ranked below that is not shown.
 
     Returns
     -------
@@ -416,20 +418,22 @@ def new_positions(log, order):
         Of the new order's slots within the logged requests' lengths, the share whose suggestion
         the logged request showed (and can therefore be estimated).
     """
+    rank = {k: (v[0] if isinstance(v, tuple) else int(v)) for k, v in order.items()}
+    group = {k: (v[1] if isinstance(v, tuple) else "") for k, v in order.items()}
+    category_of = {partner: g for (_product, partner), g in group.items()}
     shown = np.bincount(log.request, minlength=len(log.requests))
-    new = np.array([order.get(log.pairs[q], 0) for q in log.suggestion], dtype=np.int64)
+    new = np.array([rank.get(log.pairs[q], 0) for q in log.suggestion], dtype=np.int64)
     new = np.where(new <= shown[log.request], new, 0)
-    products = {}
-    for (product, _partner), rank in order.items():
-        products.setdefault(product, []).append(rank)
-    first_product = {}
-    for r, q in zip(log.request, log.suggestion):
-        first_product.setdefault(int(r), log.pairs[q][0])
-    slots_total = 0
-    for r, product in first_product.items():
-        ranks = products.get(product, [])
-        slots_total += sum(1 for k in ranks if k <= shown[r])
-    support = float(np.count_nonzero(new)) / slots_total if slots_total else 0.0
+    ranks_by = {}
+    for (product, partner), k in rank.items():
+        ranks_by.setdefault((product, group[(product, partner)]), []).append(k)
+    sliders = {}
+    for r, q in zip(log.request.tolist(), log.suggestion.tolist()):
+        product, partner = log.pairs[q]
+        if partner in category_of:
+            sliders.setdefault(r, set()).add((product, category_of[partner]))
+    slots_total = sum(sum(1 for k in ranks_by.get(key, ()) if k <= shown[r]) for r, keys in sliders.items() for key in keys)
+    support = min(1.0, float(np.count_nonzero(new)) / slots_total) if slots_total else 0.0
     return new, support
 
 

@@ -69,3 +69,35 @@ def test_clicks_bad_row_is_one_line(tmp_path):
     log.write_text("request,product,partner,position,clicked\nr1,P,X,0,1\n")
     res = run("clicks", "--impressions", log)
     assert res.exit_code == 2 and "log.csv:2: position" in res.output and "Traceback" not in res.output
+
+
+from test_cli_evaluate import shop  # noqa: E402,F401  (the invented sofas and cushions, and their log)
+
+
+def test_evaluate_compares_blend_weights(shop, tmp_path):
+    db, log = shop
+    # An oracle candidate list: each sofa's cushions scored by closeness to the opposite hue, which is
+    # how the log was simulated; W = 1 must rank real partners at least as well as W = 0.
+    from harmony.shop.store import Store
+    from harmony.colour import hue_deg
+
+    with Store(db) as store:
+        pals = store.palettes()
+    sofas = sorted(p for p in pals if p.startswith("S"))
+    cushions = sorted(p for p in pals if p.startswith("C"))
+    lines = ["product,partner,score"]
+    for s in sofas:
+        target = (hue_deg(pals[s].jab[0]) + 180.0) % 360.0
+        for c in cushions:
+            gap = abs((hue_deg(pals[c].jab[0]) - target + 180.0) % 360.0 - 180.0)
+            lines += [f"{s},{c},{-gap:.3f}", f"{c},{s},{-gap:.3f}"]  # both directions: cushions are anchors too
+    cands = tmp_path / "oracle.csv"
+    cands.write_text("\n".join(lines) + "\n")
+    res = run("evaluate", "--db", db, "--events", log, "--blend", cands, "--blend-weights", "0,1",
+              "--resamples", 20, "--json")
+    assert res.exit_code == 0, res.output
+    by = {r["name"]: r for r in json.loads(res.output)["results"]}
+    assert by["blend W=0 (default)"]["auc"] == pytest.approx(by["default"]["auc"])
+    assert by["blend W=1 (default)"]["auc"] >= by["blend W=0 (default)"]["auc"]
+    res = run("evaluate", "--db", db, "--events", log, "--blend", cands, "--blend-weights", "0,x")
+    assert res.exit_code == 2 and "not a number: 'x'" in res.output

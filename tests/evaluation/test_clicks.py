@@ -145,6 +145,10 @@ def test_new_positions_drops_slots_beyond_the_logged_length_and_measures_support
     slots, support = new_positions(log, {("P", "y"): 1, ("P", "z"): 2, ("P", "x"): 3})
     assert slots.tolist() == [0, 1]
     assert support == pytest.approx(0.5)  # y is shown, z never was
+    # With categories, only the slider's own category counts: the lamp slots are another slider.
+    order = {("P", "y"): (1, "rug"), ("P", "z"): (2, "rug"), ("P", "x"): (3, "rug"), ("P", "L"): (1, "lamp")}
+    slots, support = new_positions(log, order)
+    assert slots.tolist() == [0, 1] and support == pytest.approx(0.5)
 
 
 def test_garwood_interval_matches_published_values():
