@@ -51,7 +51,14 @@ def _print_table(result, echo=click.echo):
 @click.option("--attribute", default="colour", show_default=True,
               help="Catalogue attribute of the attribute-match baseline (used when products have it).")
 @click.option("--progress/--no-progress", default=None, help="Progress bar on stderr (default: when it is a terminal).")
-def evaluate_command(db, events, rules_files, as_json, out, weights, seed, resamples, attribute, progress):
+# --- issue 18: blend weights ---
+@click.option("--blend", "blend", default=None, type=click.Path(dir_okay=False),
+              help="Candidate list of another system (CSV/JSONL: product, partner, score) blended with the first rules file.")
+@click.option("--blend-weights", "blend_weights", default="0,0.25,0.5,0.75,1", show_default=True,
+              help="Weights of the candidate list to compare, comma-separated (with --blend).")
+# --- end issue 18 ---
+def evaluate_command(db, events, rules_files, as_json, out, weights, seed, resamples, attribute, progress,
+                     blend, blend_weights):
     """Rank, for every product of an interaction log, the partners shoppers combined with it.
 
     Compares each rules file with baselines (random order, same colours by the earth mover's
@@ -63,7 +70,13 @@ def evaluate_command(db, events, rules_files, as_json, out, weights, seed, resam
         raise HarmonyError("--out - and --json both write to standard output; give --out a file name")
     echo = functools.partial(click.echo, err=out is not None and is_stdout(out))
     rules_files = rules_files or (str(DEFAULT_RULES),)
-    result, inputs = run_evaluation(db, events, rules_files, weights, seed, resamples, attribute, progress)
+    extra = None
+    if blend is not None:  # issue 18
+        from harmony.suggest.blend import blend_methods_factory
+
+        extra = blend_methods_factory(blend, blend_weights)
+    result, inputs = run_evaluation(db, events, rules_files, weights, seed, resamples, attribute, progress,
+                                    extra_methods=extra)
     if out is not None:
         write_html(result, out, inputs=inputs)
     if as_json:

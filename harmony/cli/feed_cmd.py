@@ -54,7 +54,14 @@ def warn_unmatched_pairs(rule_sets, categories):
               help="Output format (default: from the --out suffix).")
 @click.option("--out", required=True, type=click.Path(dir_okay=False), help="The feed file to write (- for standard output).")
 @click.option("--progress/--no-progress", default=None, help="Progress bar on stderr (default: when it is a terminal).")
-def feed(db, rules_path, top, targets, diversity, fmt, out, progress):
+# --- issue 18: blend and look-alike options ---
+@click.option("--blend", "blend", default=None, type=click.Path(dir_okay=False),
+              help="Candidate list of another system (CSV/JSONL: product, partner, score) to blend in.")
+@click.option("--blend-weight", "blend_weight", type=click.FloatRange(0.0, 1.0), default=0.5, show_default=True,
+              help="Weight of the candidate list's rank-normalised score (0 = harmony alone).")
+@click.option("--similar", is_flag=True, help="Also write same-category look-alike rows (relation 'similar').")
+# --- end issue 18 ---
+def feed(db, rules_path, top, targets, diversity, fmt, out, progress, blend, blend_weight, similar):
     """Write the cross-sell feed: each product's best partners in the other categories.
 
     Out-of-stock partners are left out. Each row holds product, category, partner,
@@ -75,11 +82,27 @@ def feed(db, rules_path, top, targets, diversity, fmt, out, progress):
         rows = build_feed(store, rules, top=top, targets=target_list, diversity=diversity, warn=_warn,
                           progress=progress)
         warn_unmatched_pairs(rules, store.categories())
+        # --- issue 18: blend and look-alike hook ---
+        extended = blend is not None or similar
+        if extended:
+            from harmony.suggest.blend import BLEND_COLUMNS, blend_from_store, read_candidates
+            from harmony.suggest.lookalike import similar_rows
+
+            if blend is not None:
+                rows = blend_from_store(store, rules, rows, read_candidates(blend), blend_weight, top)
+            if similar:
+                rows = list(rows) + similar_rows(store, top=top, progress=progress)[0]
+        # --- end issue 18 ---
     if not rows:
         raise HarmonyError(
             f"{db}: no feed rows: the rules pair none of the store's categories with an in-stock target"
         )
-    path = write_feed(rows, out, fmt)
+    if extended:  # issue 18: rows with extra columns (relation, blend inputs)
+        from harmony.suggest.blend import write_records
+
+        path = write_records(rows, out, BLEND_COLUMNS, fmt)
+    else:
+        path = write_feed(rows, out, fmt)
     products = len({r.product for r in rows})
     click.echo(f"wrote {len(rows)} rows for {products} products to {path}", err=is_stdout(out))
 

@@ -16,10 +16,12 @@ from harmony.shop.store import Store
 __all__ = ["run_evaluation"]
 
 
-def run_evaluation(db, events, rules_files, weights=(), seed=0, resamples=1000, attribute="colour", progress=None):
+def run_evaluation(db, events, rules_files, weights=(), seed=0, resamples=1000, attribute="colour", progress=None,
+                   extra_methods=None):
     """Everything ``harmony evaluate`` computes: ``(Evaluation, inputs)`` for the page.
 
-    ``progress`` None shows a bar when stderr is a terminal.
+    ``progress`` None shows a bar when stderr is a terminal. ``extra_methods(methods, palettes,
+    products)``, when given, returns more methods to compare (issue 18: blend weights).
 
     Raises
     ------
@@ -39,6 +41,8 @@ def run_evaluation(db, events, rules_files, weights=(), seed=0, resamples=1000, 
     log = read_events(events, weights=event_weights, known_products={p.id for p in products})
     queries = build_queries(log, products, palettes)
     methods = standard_methods(rulesets, palettes, products, attribute=attribute)
+    if extra_methods is not None:  # issue 18: blend weights side by side
+        methods = methods + list(extra_methods(methods, palettes, products))
     if progress is None:
         progress = sys.stderr.isatty()
     result = evaluate(

@@ -33,7 +33,7 @@ def test_help_and_version_exit_zero():
 
 def test_every_command_module_registers_a_command():
     names = set(main.commands)
-    assert len(COMMAND_MODULES) == 10
+    assert len(COMMAND_MODULES) == 12
     for expected in ("palette", "score", "rules", "extract", "palettes", "feed", "suggest",
-                     "bundle", "evaluate", "tune", "report", "demo"):
+                     "bundle", "evaluate", "tune", "report", "demo", "clicks", "serve"):
         assert expected in names

@@ -1,0 +1,368 @@
+"""Blending harmony's colour score with another system's candidates (the shop's own recommender).
+
+The two scores live on different scales, so both are turned into ranks first. Within each group
+of one product and one partner category:
+
+- harmony's exact pair scores of every partner in the group (harmony's own top partners, and
+  every candidate the other system proposes that the store can score) become
+  ``rank_norm = (n - rank) / (n - 1)``, 1 for the best, 0 for the worst, with tied scores sharing
+  their mean rank (a single partner gets 1);
+- the other system's scores are rank-normalised the same way over the partners it proposed in the
+  group; a partner it did not propose gets 0 (it fell below that system's own cut-off);
+
+and the blended score is ``(1 - W) * harmony + W * other``: ``W = 0`` is harmony alone, ``W = 1``
+the other system alone. A candidate the store cannot score (a product unknown to the store, or
+without a palette) keeps its own rank-normalised score as its blended score, whatever ``W``, and its
+row says so in ``source``. Out-of-stock partners of the store are left out, as in the feed.
+
+Rank normalisation ignores the distance between scores, which is the point: it needs no
+calibration between systems, and is the usual first choice for combining ranked lists (the
+Borda-count family; Fox & Shaw 1994, Montague & Aslam 2001).
+
+References
+----------
+E. A. Fox, J. A. Shaw (1994). Combination of multiple searches. TREC-2, NIST SP 500-215, 243-252.
+M. Montague, J. A. Aslam (2001). Relevance score normalization for metasearch. CIKM 2001, 427-433.
+"""
+
+import csv
+import io
+import json
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from harmony.errors import HarmonyError
+from harmony.fileio import write_text_whole
+from harmony.shop.catalogue import normalise_category
+
+__all__ = [
+    "CANDIDATE_COLUMNS",
+    "BLEND_COLUMNS",
+    "Candidate",
+    "BlendRow",
+    "read_candidates",
+    "rank_normalise",
+    "blend_group",
+    "blend_feed",
+    "blend_from_store",
+    "BlendMethod",
+    "write_records",
+    "parse_weights",
+    "blend_methods_factory",
+]
+
+#: Required columns of a candidate list; ``partner_category`` is optional.
+CANDIDATE_COLUMNS = ("product", "partner", "score")
+#: Columns of a blended feed: the feed's, then both input scores and where the row came from.
+BLEND_COLUMNS = ("product", "category", "partner", "partner_category", "rank", "score", "reason",
+                 "harmony_score", "candidate_score", "source", "relation")
+_SHOWN = 5
+
+
+@dataclass(frozen=True)
+class Candidate:
+    """One row of a candidate list (``line`` is its line in the file)."""
+
+    product: str
+    partner: str
+    score: float
+    partner_category: str = ""
+    line: int = 0
+
+
+@dataclass(frozen=True)
+class BlendRow:
+    """A blended feed row. ``source`` is ``both``, ``harmony`` (not proposed by the other system),
+    ``candidates`` (not in harmony's list but scored by it) or ``not in store`` (kept its own
+    score); ``harmony_score`` / ``candidate_score`` are the raw inputs (None when absent)."""
+
+    product: str
+    category: str
+    partner: str
+    partner_category: str
+    rank: int
+    score: float
+    reason: str
+    harmony_score: float | None
+    candidate_score: float | None
+    source: str
+    relation: str = "partner"
+
+    def to_dict(self):
+        return asdict(self)
+
+
+def read_candidates(path):
+    """Read a candidate list: CSV with a header, or JSONL; columns product, partner, score and
+    optionally partner_category.
+
+    Raises
+    ------
+    HarmonyError
+        Unreadable file, missing column, or bad rows (each named ``FILE:LINE: key: reason``, the
+        first five listed), a pair given twice, or no rows.
+    """
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise HarmonyError(f"{path}: cannot read the candidate list: {getattr(exc, 'strerror', None) or exc}") from None
+    records = []
+    problems = []
+    if path.suffix.lower() in (".jsonl", ".ndjson"):
+        for line, raw in enumerate(text.splitlines(), start=1):
+            if not raw.strip():
+                continue
+            try:
+                obj = json.loads(raw)
+            except json.JSONDecodeError as exc:
+                problems.append(f"{path}:{line}: not JSON: {exc.msg}")
+                continue
+            if not isinstance(obj, dict):
+                problems.append(f"{path}:{line}: not a JSON object")
+                continue
+            records.append((line, obj))
+    else:
+        reader = csv.DictReader(io.StringIO(text))
+        missing = [c for c in CANDIDATE_COLUMNS if c not in (reader.fieldnames or ())]
+        if missing:
+            raise HarmonyError(f"{path}:1: missing column(s) {', '.join(missing)} (need {','.join(CANDIDATE_COLUMNS)})")
+        records = [(reader.line_num, row) for row in reader]
+    out, seen = [], {}
+    for line, rec in records:
+        values = {k: str(rec.get(k) if rec.get(k) is not None else "").strip() for k in (*CANDIDATE_COLUMNS, "partner_category")}
+        bad = next((k for k in CANDIDATE_COLUMNS if not values[k]), None)
+        if bad:
+            problems.append(f"{path}:{line}: {bad}: missing")
+            continue
+        try:
+            score = float(values["score"])
+            if not np.isfinite(score):
+                raise ValueError
+        except ValueError:
+            problems.append(f"{path}:{line}: score: not a finite number: {values['score']!r}")
+            continue
+        first = seen.setdefault((values["product"], values["partner"]), line)
+        if first != line:
+            problems.append(f"{path}:{line}: partner: '{values['partner']}' is given twice for '{values['product']}' (line {first})")
+            continue
+        out.append(Candidate(values["product"], values["partner"], score,
+                             normalise_category(values["partner_category"]) if values["partner_category"] else "", line))
+    if problems:
+        more = f" (and {len(problems) - _SHOWN} more)" if len(problems) > _SHOWN else ""
+        raise HarmonyError(f"{len(problems)} bad row(s): " + "; ".join(problems[:_SHOWN]) + more)
+    if not out:
+        raise HarmonyError(f"{path}: the candidate list has no rows")
+    return out
+
+
+def rank_normalise(scores):
+    """Scores to ``(n - rank) / (n - 1)`` in [0, 1], higher score = higher value, ties share their
+    mean rank; a single score gives 1.
+
+    >>> rank_normalise([0.2, 0.9, 0.5, 0.5]).tolist()
+    [0.0, 1.0, 0.5, 0.5]
+    """
+    from scipy.stats import rankdata
+
+    s = np.asarray(scores, dtype=float)
+    n = s.size
+    if n == 0:
+        return s
+    if n == 1:
+        return np.ones(1)
+    return (rankdata(s, method="average") - 1.0) / (n - 1.0)
+
+
+def blend_group(harmony, other, weight):
+    """Blend one group (one product, one partner category).
+
+    Parameters
+    ----------
+    harmony : mapping of partner to float
+        harmony's scores of the partners it can score.
+    other : mapping of partner to float
+        The other system's scores of the partners it proposed.
+    weight : float in [0, 1]
+        Weight of the other system.
+
+    Returns
+    -------
+    dict of partner to (blended score, source)
+    """
+    w = float(weight)
+    if not 0.0 <= w <= 1.0:
+        raise HarmonyError(f"the blend weight must lie in [0, 1], got {weight!r}")
+    h_ids = sorted(harmony)
+    o_ids = sorted(other)
+    h_norm = dict(zip(h_ids, rank_normalise([harmony[i] for i in h_ids])))
+    o_norm = dict(zip(o_ids, rank_normalise([other[i] for i in o_ids])))
+    out = {}
+    for pid in sorted(set(h_ids) | set(o_ids)):
+        if pid not in harmony:
+            out[pid] = (float(o_norm[pid]), "not in store")
+            continue
+        source = "both" if pid in other else "harmony"
+        out[pid] = ((1.0 - w) * float(h_norm[pid]) + w * float(o_norm.get(pid, 0.0)), source)
+    return out
+
+
+def blend_feed(feed_rows, candidates, weight, top, extra=None, categories=None, excluded=()):
+    """Blend feed rows with a candidate list.
+
+    Parameters
+    ----------
+    feed_rows : iterable of FeedRow
+        harmony's rows (product, category, partner, partner_category, score, reason).
+    candidates : sequence of Candidate
+    weight : float in [0, 1]
+    top : int
+        Rows kept per product and partner category.
+    extra : mapping of (product, partner) to (score, reason), optional
+        harmony's exact scores of candidate pairs that are not among ``feed_rows``.
+    categories : mapping of str to str, optional
+        Category of each store product (candidates' partners are grouped by it).
+    excluded : set of str
+        Store partners that must not appear (out of stock).
+
+    Returns
+    -------
+    list of BlendRow
+        Sorted by product, partner category, rank.
+    """
+    categories = dict(categories or {})
+    extra = dict(extra or {})
+    h_score, reason, own_cat = {}, {}, {}
+    for r in feed_rows:
+        h_score[(r.product, r.partner_category)] = h_score.get((r.product, r.partner_category), {})
+        h_score[(r.product, r.partner_category)][r.partner] = float(r.score)
+        reason[(r.product, r.partner)] = r.reason
+        own_cat[r.product] = r.category
+    other = {}
+    for c in candidates:
+        if c.partner in excluded:
+            continue
+        cat = categories.get(c.partner) or c.partner_category or "unknown"
+        other.setdefault((c.product, cat), {})[c.partner] = c.score
+        if (c.product, c.partner) in extra:
+            score, why = extra[(c.product, c.partner)]
+            h_score.setdefault((c.product, cat), {})[c.partner] = float(score)
+            reason[(c.product, c.partner)] = why
+    rows = []
+    for key in sorted(set(h_score) | set(other)):
+        product, cat = key
+        harmony, theirs = h_score.get(key, {}), other.get(key, {})
+        mixed = blend_group(harmony, theirs, weight)
+        order = sorted(mixed, key=lambda pid: (-mixed[pid][0], pid))[: int(top)]
+        for rank, pid in enumerate(order, start=1):
+            value, source = mixed[pid]
+            why = reason.get((product, pid), "")
+            if source == "not in store":
+                why = "not in the store: the candidate list's own score is kept"
+            rows.append(BlendRow(product, own_cat.get(product, categories.get(product, "")), pid, cat, rank,
+                                 float(value), why, harmony.get(pid), theirs.get(pid), source))
+    return rows
+
+
+def blend_from_store(store, rules, feed_rows, candidates, weight, top):
+    """:func:`blend_feed` with harmony's exact scores of every candidate pair the store can score."""
+    from harmony.rules.score import pair_scores
+
+    products = {p.id: p for p in store.products()}
+    palettes = store.palettes()
+    in_feed = {(r.product, r.partner) for r in feed_rows}
+    todo = [c for c in candidates if (c.product, c.partner) not in in_feed and c.product in palettes
+            and c.partner in palettes and products[c.product].category_key != products[c.partner].category_key
+            and rules.pairs_with(products[c.product].category_key, products[c.partner].category_key)]
+    extra = {}
+    by_pair = {}
+    for c in todo:
+        by_pair.setdefault((products[c.product].category_key, products[c.partner].category_key), []).append(c)
+    for (cat_a, cat_b), group in sorted(by_pair.items()):
+        pr = rules.for_pair(cat_a, cat_b)
+        scored = pair_scores([palettes[c.product] for c in group], [palettes[c.partner] for c in group], pr)
+        for c, ps in zip(group, scored):
+            extra[(c.product, c.partner)] = (float(ps.score), ps.reason)
+    categories = {pid: p.category_key for pid, p in products.items() if pid in palettes}
+    excluded = {pid for pid, p in products.items() if not p.in_stock()}
+    return blend_feed(feed_rows, candidates, weight, top, extra=extra, categories=categories, excluded=excluded)
+
+
+@dataclass(frozen=True, eq=False)
+class BlendMethod:
+    """An evaluation method (see :mod:`harmony.evaluation.core`): harmony's raw pair score and the
+    candidate list, rank-normalised over a query's candidates and mixed with ``weight``.
+
+    ``rules_method`` is a :class:`harmony.evaluation.methods.RulesMethod`; candidates the list does
+    not propose get 0 from it (see the module notes).
+    """
+
+    rules_method: object
+    candidates: dict  # (product, partner) -> score
+    weight: float
+    name: str = ""
+    kind: str = field(default="blend", init=False)
+
+    def __call__(self, anchor, candidates):
+        h = rank_normalise(self.rules_method(anchor, candidates))
+        proposed = np.array([(anchor.id, c.id) in self.candidates for c in candidates])
+        o = np.zeros(len(candidates))
+        if proposed.any():
+            o[proposed] = rank_normalise([self.candidates[(anchor.id, c.id)] for c, p in zip(candidates, proposed) if p])
+        return (1.0 - self.weight) * h + self.weight * o
+
+
+def write_records(rows, path, columns, fmt=None, what="feed"):
+    """Write rows (with ``to_dict``) as JSONL or CSV with ``columns``, whole (see harmony.fileio).
+
+    Rows lacking a column get an empty value. ``fmt`` defaults to the suffix (.csv or JSONL).
+    """
+    path = Path(path)
+    fmt = fmt or ("csv" if path.suffix.lower() == ".csv" else "jsonl")
+    if fmt not in ("jsonl", "csv"):
+        raise HarmonyError(f"{path}: blended and look-alike rows are written as JSONL or CSV, not {fmt}")
+    records = [{c: r.to_dict().get(c) for c in columns} for r in rows]
+    if fmt == "jsonl":
+        text = "".join(json.dumps(rec, ensure_ascii=False) + "\n" for rec in records)
+    else:
+        buf = io.StringIO()
+        writer = csv.DictWriter(buf, fieldnames=columns, lineterminator="\n")
+        writer.writeheader()
+        writer.writerows(records)
+        text = buf.getvalue()
+    return write_text_whole(path, text, what)
+
+
+def parse_weights(text):
+    """``"0,0.25,1"`` -> ``(0.0, 0.25, 1.0)``; HarmonyError naming a bad or out-of-range value."""
+    out = []
+    for part in str(text).split(","):
+        part = part.strip()
+        if not part:
+            continue
+        try:
+            w = float(part)
+        except ValueError:
+            raise HarmonyError(f"--blend-weights: not a number: {part!r}") from None
+        if not 0.0 <= w <= 1.0:
+            raise HarmonyError(f"--blend-weights: {part} is outside [0, 1]")
+        if w not in out:
+            out.append(w)
+    if not out:
+        raise HarmonyError("--blend-weights: no weights given")
+    return tuple(out)
+
+
+def blend_methods_factory(path, weights_text):
+    """For ``run_evaluation(extra_methods=...)``: one :class:`BlendMethod` per weight, blending the
+    first rules method with the candidate list at ``path``."""
+    candidates = {(c.product, c.partner): c.score for c in read_candidates(path)}
+    weights = parse_weights(weights_text)
+
+    def make(methods, palettes, products):
+        rules_method = next(m for m in methods if getattr(m, "kind", "") == "rules")
+        return [BlendMethod(rules_method, candidates, w, name=f"blend W={w:g} ({rules_method.name})") for w in weights]
+
+    return make

@@ -1,0 +1,103 @@
+"""``harmony clicks``, ``harmony feed --blend/--similar`` through click's test runner."""
+
+import json
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+from test_feed import make_store, random_palettes
+
+from harmony.cli import main
+
+
+def run(*args):
+    return CliRunner().invoke(main, [str(a) for a in args])
+
+
+@pytest.fixture()
+def db(tmp_path):
+    rng = np.random.default_rng(31)
+    pals = random_palettes(12, rng)
+    items = [(f"S{i}", "sofa", None, pals[i]) for i in range(4)]
+    items += [(f"R{i}", "rug", 0 if i == 1 else 2, pals[4 + i]) for i in range(5)]
+    items += [(f"L{i}", "floor lamp", None, pals[9 + i]) for i in range(3)]
+    return make_store(tmp_path, items)
+
+
+def test_feed_blend_and_similar_rows(db, tmp_path):
+    cands = tmp_path / "cands.csv"
+    cands.write_text("product,partner,partner_category,score\nS0,R3,rug,5\nS0,R2,rug,1\nS0,R9,rug,9\nS0,R1,rug,8\n")
+    out = tmp_path / "feed.csv"
+    res = run("feed", "--db", db, "--top", 3, "--blend", cands, "--blend-weight", 1, "--similar", "--out", out)
+    assert res.exit_code == 0, res.output
+    import csv
+
+    rows = list(csv.DictReader(out.open()))
+    s0_rugs = [r for r in rows if r["product"] == "S0" and r["partner_category"] == "rug" and r["relation"] == "partner"]
+    # W = 1: the candidate list's order; R9 is not in the store and keeps its own score; R1 is out of stock.
+    # (R2, proposed last, ties at 0 with the partners only harmony proposed; ties go by id.)
+    assert [r["partner"] for r in s0_rugs][:2] == ["R9", "R3"]
+    assert s0_rugs[0]["source"] == "not in store"
+    similar = [r for r in rows if r["relation"] == "similar"]
+    assert similar and all(r["category"] == r["partner_category"] for r in similar)
+    assert "R1" not in {r["partner"] for r in similar}
+
+
+def test_clicks_command_prints_the_curve_and_writes_the_page(tmp_path):
+    rng = np.random.default_rng(4)
+    theta, alpha = [1.0, 0.5, 0.33], rng.uniform(0.1, 0.5, 6)
+    lines = ["request,product,partner,position,clicked"]
+    for r in range(600):
+        for k, q in enumerate(rng.choice(6, 3, replace=False)):
+            lines.append(f"r{r},P,X{q},{k + 1},{int(rng.random() < theta[k] * alpha[q])}")
+    log = tmp_path / "log.csv"
+    log.write_text("\n".join(lines) + "\n")
+    feed = tmp_path / "other.jsonl"
+    feed.write_text("".join(json.dumps({"product": "P", "partner": f"X{q}", "rank": q + 1}) + "\n" for q in range(6)))
+    page = tmp_path / "clicks.html"
+    res = run("clicks", "--impressions", log, "--compare-feed", feed, "--resamples", 20, "--out", page)
+    assert res.exit_code == 0, res.output
+    assert "slot 1 fixed at 1" in res.output and "other.jsonl:" in res.output
+    assert "<svg" in page.read_text()
+    res = run("clicks", "--impressions", log, "--resamples", 5, "--json")
+    data = json.loads(res.output)
+    assert data["examination"][0]["examination"] == 1.0 and len(data["suggestions"]) == 6
+
+
+def test_clicks_bad_row_is_one_line(tmp_path):
+    log = tmp_path / "log.csv"
+    log.write_text("request,product,partner,position,clicked\nr1,P,X,0,1\n")
+    res = run("clicks", "--impressions", log)
+    assert res.exit_code == 2 and "log.csv:2: position" in res.output and "Traceback" not in res.output
+
+
+from test_cli_evaluate import shop  # noqa: E402,F401  (the invented sofas and cushions, and their log)
+
+
+def test_evaluate_compares_blend_weights(shop, tmp_path):
+    db, log = shop
+    # An oracle candidate list: each sofa's cushions scored by closeness to the opposite hue, which is
+    # how the log was simulated; W = 1 must rank real partners at least as well as W = 0.
+    from harmony.shop.store import Store
+    from harmony.colour import hue_deg
+
+    with Store(db) as store:
+        pals = store.palettes()
+    sofas = sorted(p for p in pals if p.startswith("S"))
+    cushions = sorted(p for p in pals if p.startswith("C"))
+    lines = ["product,partner,score"]
+    for s in sofas:
+        target = (hue_deg(pals[s].jab[0]) + 180.0) % 360.0
+        for c in cushions:
+            gap = abs((hue_deg(pals[c].jab[0]) - target + 180.0) % 360.0 - 180.0)
+            lines += [f"{s},{c},{-gap:.3f}", f"{c},{s},{-gap:.3f}"]  # both directions: cushions are anchors too
+    cands = tmp_path / "oracle.csv"
+    cands.write_text("\n".join(lines) + "\n")
+    res = run("evaluate", "--db", db, "--events", log, "--blend", cands, "--blend-weights", "0,1",
+              "--resamples", 20, "--json")
+    assert res.exit_code == 0, res.output
+    by = {r["name"]: r for r in json.loads(res.output)["results"]}
+    assert by["blend W=0 (default)"]["auc"] == pytest.approx(by["default"]["auc"])
+    assert by["blend W=1 (default)"]["auc"] >= by["blend W=0 (default)"]["auc"]
+    res = run("evaluate", "--db", db, "--events", log, "--blend", cands, "--blend-weights", "0,x")
+    assert res.exit_code == 2 and "not a number: 'x'" in res.output
