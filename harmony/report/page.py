@@ -533,7 +533,7 @@ def gather_report(
     illuminance_lux=None,
     curation=None,
     feed_meta=None,
-    feed_given=None,
+    feed_given=False,
 ):
     """Gather the report's content into a :class:`ReportData`.
 
@@ -566,7 +566,7 @@ def gather_report(
         The feed's sidecar (:func:`harmony.suggest.provenance.read_provenance`): which rules and
         curation made it. With ``feed_given`` true and no sidecar, the report warns.
     feed_given : bool, optional
-        Whether a feed file was given (default: whether ``feed_rows`` has rows).
+        Whether the rows come from a feed file, whose sidecar ``feed_meta`` is then expected.
 
     Raises
     ------
@@ -639,7 +639,7 @@ def gather_report(
         except OSError:
             rules_text = ""
     cautions, rugs = _cautions(suggestions, bundles)
-    made, made_warnings = made_by(rules_path or None, curation, feed_meta, bool(rows) if feed_given is None else feed_given)
+    made, made_warnings = made_by(rules_path or None, curation, feed_meta, bool(feed_given))
     return ReportData(
         title=str(title),
         products=tuple(views.values()),
