@@ -729,8 +729,7 @@ def search_bundles(store, room, rules, budget=None, anchor=None, exclude=(), top
     pool_limit : int
         Largest candidate pool per slot (see :func:`build_problem`).
     curation : harmony.suggest.curation.Curation, optional
-        Sets holding two products a block keeps apart are left out; the search asks for more
-        sets than ``top`` so that the best allowed ones remain.
+        Sets with two products a block keeps apart are left out (more are searched for).
 
     Returns
     -------
@@ -741,17 +740,14 @@ def search_bundles(store, room, rules, budget=None, anchor=None, exclude=(), top
 
     problem, eligible, palettes = build_problem(store, room, rules, budget, anchor, exclude, pool_limit)
     from harmony.suggest.curation import set_allowed
-
     want = top if curation is None else 5 * top + 10  # curation: room for sets a block removes
     result = search(problem, top=want, min_difference=min_difference, max_nodes=max_nodes,
                     time_limit=time_limit)
     bundles = []
     for b in result.bundles:
-        if len(bundles) == top:
-            break
-        if not set_allowed(curation, [(problem.pools[s][i].id, room.slots[s].category)  # curation: blocks
-                                      for s, i in enumerate(b.choice) if i is not None]):
-            continue
+        if len(bundles) == top or not set_allowed(curation, [(problem.pools[s][i].id, room.slots[s].category)
+                                                             for s, i in enumerate(b.choice) if i is not None]):
+            continue  # curation: blocks
         items, pals, visible = [], [], []
         for s, i in enumerate(b.choice):
             if i is None:
