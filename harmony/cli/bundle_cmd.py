@@ -9,7 +9,7 @@ from harmony.errors import RoomError
 from harmony.resources import DEFAULT_RULES, DEMO_DIR
 
 from . import main
-from .feed_cmd import warn_unmatched_pairs
+from .feed_cmd import CURATION_HELP, load_curation_for, warn_unmatched_pairs
 
 
 def _room_path(value):
@@ -39,7 +39,10 @@ def _ids(value):
 @click.option("--rules", "rules_file", default=str(DEFAULT_RULES), show_default="rules/default.toml",
               type=click.Path(dir_okay=False), help="Rules file (TOML).")
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON object.")
-def bundle(db_path, room_file, budget, anchor, exclude, top, min_difference, pool_limit, rules_file, as_json):
+@click.option("--curation", "curation_path", type=click.Path(dir_okay=False), default=None, metavar="FILE",
+              help=CURATION_HELP + " Sets never hold two products a block keeps apart.")
+def bundle(db_path, room_file, budget, anchor, exclude, top, min_difference, pool_limit, rules_file, as_json,
+           curation_path):
     """Assemble the best-coordinated room sets within a budget."""
     from harmony.rules import load_rules
     from harmony.shop.store import Store
@@ -48,8 +51,9 @@ def bundle(db_path, room_file, budget, anchor, exclude, top, min_difference, poo
     room = load_room(_room_path(room_file))
     rules = load_rules(rules_file)
     with Store(db_path) as store:
+        curation = load_curation_for(curation_path, store)
         result = search_bundles(store, room, rules, budget=budget, anchor=anchor, exclude=_ids(exclude),
-                                top=top, min_difference=min_difference, pool_limit=pool_limit)
+                                top=top, min_difference=min_difference, pool_limit=pool_limit, curation=curation)
         warn_unmatched_pairs(rules, store.categories())
         titles = {pid: store.product(pid).title for b in result.bundles for _, pid, _, _ in b.items}
     if as_json:

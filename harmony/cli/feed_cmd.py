@@ -11,7 +11,23 @@ from harmony.resources import DEFAULT_RULES
 
 from . import main
 
-__all__ = ["feed", "suggest_cmd", "colour_blocks", "warn_unmatched_pairs", "STRIP_CELLS"]
+__all__ = ["feed", "suggest_cmd", "colour_blocks", "warn_unmatched_pairs", "load_curation_for", "STRIP_CELLS",
+           "CURATION_HELP"]
+
+#: Help of the ``--curation`` option of feed, suggest, bundle and report.
+CURATION_HELP = "Curation file (TOML): pinned partners, blocked pairs and categories, score floors."
+
+
+def load_curation_for(path, store):
+    """The curation file at ``path`` (None for no file), its unknown product ids warned of."""
+    if path is None:
+        return None
+    from harmony.suggest.curation import load_curation, unknown_product_warnings
+
+    curation = load_curation(path)
+    for message in unknown_product_warnings(curation, [p.id for p in store.products()], store.categories()):
+        _warn(message)
+    return curation
 
 
 #: Terminal cells of one palette strip in ``harmony suggest``.
@@ -61,11 +77,15 @@ def warn_unmatched_pairs(rule_sets, categories):
               help="Weight of the candidate list's rank-normalised score (0 = harmony alone).")
 @click.option("--similar", is_flag=True, help="Also write same-category look-alike rows (relation 'similar').")
 # --- end issue 18 ---
-def feed(db, rules_path, top, targets, diversity, fmt, out, progress, blend, blend_weight, similar):
+@click.option("--curation", "curation_path", type=click.Path(dir_okay=False), default=None, metavar="FILE",
+              help=CURATION_HELP)
+def feed(db, rules_path, top, targets, diversity, fmt, out, progress, blend, blend_weight, similar,
+         curation_path):
     """Write the cross-sell feed: each product's best partners in the other categories.
 
     Out-of-stock partners are left out. Each row holds product, category, partner,
-    partner_category, rank, score and a one-sentence reason.
+    partner_category, rank, score, a one-sentence reason and whether a curation file pinned it.
+    The rules and curation files that made the feed are recorded beside it in FEED.about.json.
     """
     from harmony.rules import load_rules
     from harmony.shop.store import Store
@@ -79,8 +99,9 @@ def feed(db, rules_path, top, targets, diversity, fmt, out, progress, blend, ble
     with Store(db) as store:
         if progress is None:
             progress = sys.stderr.isatty()
+        curation = load_curation_for(curation_path, store)
         rows = build_feed(store, rules, top=top, targets=target_list, diversity=diversity, warn=_warn,
-                          progress=progress)
+                          progress=progress, curation=curation)
         warn_unmatched_pairs(rules, store.categories())
         # --- issue 18: blend and look-alike hook ---
         extended = blend is not None or similar
@@ -103,6 +124,10 @@ def feed(db, rules_path, top, targets, diversity, fmt, out, progress, blend, ble
         path = write_records(rows, out, BLEND_COLUMNS, fmt)
     else:
         path = write_feed(rows, out, fmt)
+    from harmony.suggest.provenance import write_provenance
+
+    if not is_stdout(out):  # a feed on standard output has no file to sit beside
+        write_provenance(path, rules_path, curation_path)
     products = len({r.product for r in rows})
     click.echo(f"wrote {len(rows)} rows for {products} products to {path}", err=is_stdout(out))
 
@@ -115,7 +140,9 @@ def feed(db, rules_path, top, targets, diversity, fmt, out, progress, blend, ble
 @click.option("--json", "as_json", is_flag=True, help="Print JSON instead of a table.")
 @click.option("--rules", "rules_path", type=click.Path(dir_okay=False), default=str(DEFAULT_RULES),
               show_default="rules/default.toml", help="Harmony rules file.")
-def suggest_cmd(product_id, db, category, top, as_json, rules_path):
+@click.option("--curation", "curation_path", type=click.Path(dir_okay=False), default=None, metavar="FILE",
+              help=CURATION_HELP)
+def suggest_cmd(product_id, db, category, top, as_json, rules_path, curation_path):
     """The best in-stock partners of PRODUCT_ID, with scores, reasons and their colours."""
     from harmony.photo.swatch import terminal_has_colour
     from harmony.rules import load_rules
@@ -123,7 +150,8 @@ def suggest_cmd(product_id, db, category, top, as_json, rules_path):
     from harmony.suggest.feed import suggest
     rules = load_rules(rules_path)
     with Store(db) as store:
-        found = suggest(store, rules, product_id, category=category, n=top)
+        curation = load_curation_for(curation_path, store)
+        found = suggest(store, rules, product_id, category=category, n=top, curation=curation)
         warn_unmatched_pairs(rules, store.categories())
         own = store.palette(found[0].row.product)
     if as_json:
@@ -144,5 +172,6 @@ def suggest_cmd(product_id, db, category, top, as_json, rules_path):
     click.echo(f"{first.product} ({first.category})  {colour_blocks(own, colour)}")
     for s, name in zip(found, names):
         r = s.row
-        click.echo(f"{r.rank:>3}. {name:<{width}}  score {r.score:.2f}  {colour_blocks(s.palette, colour)}")
+        pin = "  (pinned)" if r.pinned else ""
+        click.echo(f"{r.rank:>3}. {name:<{width}}  score {r.score:.2f}  {colour_blocks(s.palette, colour)}{pin}")
         click.echo(f"     {r.reason}")

@@ -13,7 +13,11 @@ __all__ = ["report"]
 
 @main.command("report")
 @click.option("--db", "db_path", required=True, metavar="PATH", help="The palette store (made by 'harmony extract').")
-@click.option("--feed", "feed_path", metavar="FILE", help="A feed in JSONL (from 'harmony feed --format jsonl').")
+@click.option("--feed", "feed_path", metavar="FILE", help="A feed from 'harmony feed' (JSONL, CSV or Parquet).")
+@click.option("--evaluation", "evaluation_path", metavar="FILE",
+              help="The JSON of 'harmony evaluate --json', shown as the evaluation table.")
+@click.option("--curation", "curation_path", metavar="FILE",
+              help="The curation file the feed was made with; the report lists what it changed.")
 @click.option("--bundles", "bundle_paths", multiple=True, metavar="FILE",
               help="A bundle result in JSON (from 'harmony bundle --json'); repeat for several rooms.")
 @click.option("--rules", "rules_path", metavar="FILE", help="Rules file the scores used (default: the bundled rules).")
@@ -23,7 +27,8 @@ __all__ = ["report"]
 @click.option("--lux", "illuminance_lux", type=float, default=None, metavar="LUX",
               help="Illuminance on the floor; above 200 lux a rug and the floor need 20 LRV points, not 30.")
 @click.option("--out", "out_path", required=True, metavar="FILE.html", help="Where to write the report.")
-def report(db_path, feed_path, bundle_paths, rules_path, title, floor_lrv, illuminance_lux, out_path):
+def report(db_path, feed_path, evaluation_path, curation_path, bundle_paths, rules_path, title, floor_lrv,
+           illuminance_lux, out_path):
     """Write a static HTML report: product photos with palettes, pairs, room sets, flags, cautions."""
     from harmony.errors import StoreError
     from harmony.report.page import (
@@ -39,14 +44,25 @@ def report(db_path, feed_path, bundle_paths, rules_path, title, floor_lrv, illum
     if not Path(db_path).is_file():
         raise StoreError(f"{db_path}: no such store (run 'harmony extract' first)")
     rules = load_rules(rules_path or DEFAULT_RULES)
+    from harmony.report.inputs import read_evaluation
+    from harmony.suggest.provenance import read_provenance
+
+    from .feed_cmd import _warn, load_curation_for
+
     feed_rows = read_feed(feed_path) if feed_path else []
+    feed_meta = read_provenance(feed_path) if feed_path else None
+    evaluation = read_evaluation(evaluation_path) if evaluation_path else ()
     bundles = [read_bundles(p) for p in bundle_paths]
     with Store(db_path) as store:
+        curation = load_curation_for(curation_path, store)
         if title is None:
             where = store.catalogue_path
             title = f"harmony report: {Path(where).parent.name}" if where else "harmony report"
         data = gather_from_store(store, feed_rows, bundles, rules, title=title, floor_lrv=floor_lrv,
-                                 illuminance_lux=illuminance_lux)
+                                 illuminance_lux=illuminance_lux, evaluation=evaluation, curation=curation,
+                                 feed_meta=feed_meta, feed_given=bool(feed_path))
+    for message in data.made_warnings:
+        _warn(message)
     out = write_report(data, out_path)
     click.echo(err=is_stdout(out_path), message=
         f"wrote {out} ({len(data.products)} products, {len(data.suggestions)} pairs, "

@@ -56,12 +56,12 @@ def demo_catalogue(out_dir, progress=False):
     return write_shop(Path(out_dir) / "shop", progress=progress).catalogue
 
 
-def _bundle_json(store, rules, room_path):
+def _bundle_json(store, rules, room_path, curation=None):
     """The ``harmony bundle --json`` object of one room template over the store."""
     from harmony.suggest.bundle import result_to_dict, search_bundles
     from harmony.suggest.room import load_room
 
-    result = search_bundles(store, load_room(room_path), rules, top=BUNDLES_PER_ROOM)
+    result = search_bundles(store, load_room(room_path), rules, top=BUNDLES_PER_ROOM, curation=curation)
     return result_to_dict(result)
 
 
@@ -129,19 +129,29 @@ def run_demo(out_dir=DEFAULT_OUT, workers=None, progress=None, log=None, catalog
                        f"{summary.cached} cached, {summary.failed} failed) into {db_path}")
 
     rules = load_rules(DEFAULT_RULES)
+    # The shop's curation file (invented for the demo), beside its catalogue, when it has one.
+    curation_path = catalogue.parent / "curation.toml"
+    curation = None
+    if curation_path.is_file():
+        from harmony.suggest.curation import load_curation
+
+        curation = load_curation(curation_path)
     with Store(db_path) as store:
         t0 = time.perf_counter()
         from harmony.suggest.feed import build_feed, write_feed
 
-        feed_rows = build_feed(store, rules, top=FEED_TOP, diversity=FEED_DIVERSITY, warn=say)
+        feed_rows = build_feed(store, rules, top=FEED_TOP, diversity=FEED_DIVERSITY, warn=say, curation=curation)
         feed_path = out_dir / "feed.jsonl"
         write_feed(feed_rows, feed_path, fmt="jsonl")
+        from harmony.suggest.provenance import read_provenance, write_provenance
+
+        write_provenance(feed_path, DEFAULT_RULES, curation_path if curation else None)
         lap("feed", t0, f"{len(feed_rows)} rows in {feed_path}")
 
         t0 = time.perf_counter()
         bundle_paths = []
         for room_path in rooms:
-            data = _bundle_json(store, rules, room_path)
+            data = _bundle_json(store, rules, room_path, curation)
             path = out_dir / "bundles" / f"{room_path.stem}.json"
             path.write_text(json.dumps(data, indent=2, ensure_ascii=False) + "\n", encoding="utf-8")
             bundle_paths.append(path)
@@ -160,7 +170,8 @@ def run_demo(out_dir=DEFAULT_OUT, workers=None, progress=None, log=None, catalog
     with Store(db_path) as store:
         data = gather_from_store(
             store, read_feed(feed_path), [read_bundles(p) for p in bundle_paths], rules,
-            title=f"{SHOP_NAME}: demo report", evaluation=evaluation,
+            title=f"{SHOP_NAME}: demo report", evaluation=evaluation, curation=curation,
+            feed_meta=read_provenance(feed_path), feed_given=True,
             notes=(f"{SHOP_NAME} is an invented shop: its products, prices and photos were generated "
                    "for this demo.",),
         )

@@ -5,7 +5,7 @@
 :mod:`harmony.report.svg` builds with every label escaped). :func:`render_report` fills the jinja2
 template ``templates/report.html.j2`` with autoescaping on, so every string that came from a
 catalogue, a feed or a bundle file is escaped. Thumbnails are embedded as base64 data URIs and the
-CSS is inline: the file needs no network and no scripts.
+CSS and the one script (the product finder) are inline: the file needs no network.
 """
 
 import base64
@@ -31,6 +31,8 @@ from harmony.report.safety import (
     stands_on_floor,
     surface_lrv,
 )
+from harmony.report.explore import curation_changes, explorer_json, group_flags, made_by, plural
+from harmony.report.inputs import FEED_KEYS, read_feed
 from harmony.report.svg import WheelLink, hue_wheel_svg, palette_strip_svg
 
 __all__ = [
@@ -56,8 +58,6 @@ __all__ = [
 #: Palettes below this confidence are listed among the flagged products.
 LOW_CONFIDENCE = 0.5
 
-#: Keys every feed JSONL row must carry (the feed format of ``harmony feed``).
-FEED_KEYS = ("product", "category", "partner", "partner_category", "rank", "score", "reason")
 
 _TEMPLATE_DIR = Path(__file__).resolve().parent / "templates"
 _THUMB_PX = 180
@@ -180,47 +180,13 @@ class ReportData:
     categories: tuple = ()  # (category, count)
     evaluation: tuple = ()  # (heading, ((column, ...), (row, ...), ...))
     notes: tuple = field(default=())
+    explorer: str = "[]"  # the product finder's data (harmony.report.explore.explorer_json)
+    curation_changes: tuple = ()  # one sentence per curation rule
+    made_by: tuple = ()  # which rules / curation files made the report and its feed
+    made_warnings: tuple = ()
 
 
 # ---------------------------------------------------------------------------------------- inputs
-
-
-def read_feed(path):
-    """Rows of a feed JSONL file as dicts with :data:`FEED_KEYS`.
-
-    Raises
-    ------
-    HarmonyError
-        ``FILE:LINE: reason`` for a line that is not a JSON object with the feed keys.
-    """
-    path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except OSError as exc:
-        raise HarmonyError(f"{path}: cannot read feed: {exc.strerror or exc}") from None
-    rows = []
-    for n, line in enumerate(text.splitlines(), start=1):
-        if not line.strip():
-            continue
-        try:
-            row = json.loads(line)
-        except json.JSONDecodeError as exc:
-            raise HarmonyError(f"{path}:{n}: not JSON: {exc.msg}") from None
-        if not isinstance(row, dict):
-            raise HarmonyError(f"{path}:{n}: a feed row must be a JSON object")
-        missing = [k for k in FEED_KEYS if k not in row]
-        if missing:
-            raise HarmonyError(f"{path}:{n}: feed row lacks key {missing[0]!r}")
-        try:
-            score = float(row["score"])
-            rank = int(row["rank"])
-        except (TypeError, ValueError):
-            raise HarmonyError(f"{path}:{n}: score and rank must be numbers") from None
-        if not math.isfinite(score):
-            raise HarmonyError(f"{path}:{n}: score must be finite")
-        rows.append({**row, "product": str(row["product"]), "partner": str(row["partner"]),
-                     "score": score, "rank": rank, "reason": str(row["reason"])})
-    return rows
 
 
 def read_bundles(path):
@@ -271,7 +237,7 @@ def thumbnail_data_uri(path, size=_THUMB_PX):
     if path is None:
         return ""
     try:
-        with Image.open(path) as im:
+        with Image.open(io.BytesIO(path) if isinstance(path, bytes) else path) as im:
             im.draft("RGB", (size * 2, size * 2))
             im = ImageOps.exif_transpose(im).convert("RGB")
             im.thumbnail((size, size))
@@ -565,6 +531,9 @@ def gather_report(
     notes=(),
     floor_lrv=None,
     illuminance_lux=None,
+    curation=None,
+    feed_meta=None,
+    feed_given=False,
 ):
     """Gather the report's content into a :class:`ReportData`.
 
@@ -591,6 +560,13 @@ def gather_report(
         and sets is checked against it. Without it the report lists the floor LRVs to avoid.
     illuminance_lux : float, optional
         Illuminance on the floor; above 200 lux the rug-and-floor check asks for 20 points.
+    curation : harmony.suggest.curation.Curation, optional
+        The curation file the feed was made with; the report lists what it changed.
+    feed_meta : dict, optional
+        The feed's sidecar (:func:`harmony.suggest.provenance.read_provenance`): which rules and
+        curation made it. With ``feed_given`` true and no sidecar, the report warns.
+    feed_given : bool, optional
+        Whether the rows come from a feed file, whose sidecar ``feed_meta`` is then expected.
 
     Raises
     ------
@@ -650,6 +626,7 @@ def gather_report(
     flagged = [f for f in flagged if not (f.kind == "no palette" and f.product_id in failed_ids)]
     order = {"extraction failed": 0, "no palette": 1, "room scene": 2, "low confidence": 3}
     flagged.sort(key=lambda f: (order[f.kind], f.product_id))
+    flagged = group_flags(flagged)  # each product once, with all its reasons
 
     counts = {}
     for v in views.values():
@@ -662,6 +639,7 @@ def gather_report(
         except OSError:
             rules_text = ""
     cautions, rugs = _cautions(suggestions, bundles)
+    made, made_warnings = made_by(rules_path or None, curation, feed_meta, bool(feed_given))
     return ReportData(
         title=str(title),
         products=tuple(views.values()),
@@ -677,14 +655,23 @@ def gather_report(
         categories=tuple(sorted(counts.items(), key=lambda kv: kv[0].casefold())),
         evaluation=tuple(evaluation),
         notes=tuple(str(n) for n in notes),
+        explorer=explorer_json(views, rows, flagged),
+        curation_changes=curation_changes(curation, rows, palettes, products, rules),
+        made_by=made,
+        made_warnings=made_warnings,
     )
 
 
 def gather_from_store(store, feed_rows=(), bundle_results=(), rules=None, **kwargs):
     """:func:`gather_report` over everything in a :class:`harmony.shop.store.Store`."""
+    from harmony.shop.fetch import is_url
+
     products = store.products()
     palettes = store.palettes()
-    images = {p.id: store.image_path(p.id) for p in products if p.id in palettes}
+    chosen = store.chosen_images()
+    # A downloaded photo is embedded from the store's copy, so the report opens offline.
+    images = {p.id: store.remote_bytes(chosen[p.id]) if is_url(chosen[p.id]) else store.image_path(p.id)
+              for p in products if p.id in palettes}
     return gather_report(products, palettes, images, store.failures(), feed_rows, bundle_results, rules, **kwargs)
 
 
@@ -708,6 +695,7 @@ def _environment():
     )
     env.filters["money"] = _money
     env.filters["pct"] = lambda x: f"{float(x) * 100:.0f} %"
+    env.filters["plural"] = plural
     return env
 
 

@@ -2,7 +2,8 @@
 
 Required fields are ``id``, ``category``, ``price`` and ``image``; ``title``, ``stock`` and
 ``currency`` are optional; every other field is kept as a string attribute. Image paths are
-relative to the catalogue file. In CSV several images are separated by ``|``; in JSON Lines
+relative to the catalogue file, or ``http://`` / ``https://`` URLs (downloaded by
+:mod:`harmony.shop.fetch`; a catalogue may mix both). In CSV several images are separated by ``|``; in JSON Lines
 ``image`` is a list (a single string is accepted too).
 
 Validation never stops at the first problem: every bad row is reported as
@@ -20,6 +21,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from harmony.errors import CatalogueError
+from harmony.shop.fetch import is_url
 
 __all__ = [
     "Product",
@@ -142,7 +144,12 @@ class Catalogue:
         return Path(self.image_file(image))
 
     def image_file(self, image):
-        """:meth:`image_path` as a string (the form the store keys images by; cheaper in loops)."""
+        """:meth:`image_path` as a string (the form the store keys images by; cheaper in loops).
+
+        A URL is returned as written: it is its own key.
+        """
+        if is_url(image):
+            return image
         return _join(os.path.dirname(self.path), image)
 
 
@@ -321,6 +328,8 @@ def _validate(record, root):
         problems.append(("image", "missing required field"))
     images = tuple(images or ())
     for image in images:
+        if is_url(image):  # checked when downloaded (harmony.shop.fetch)
+            continue
         if not os.path.isfile(_join(root, image)):
             problems.append(("image", f"file not found: {image}"))
 

@@ -15,6 +15,12 @@ One store has one writer at a time: a run holds an exclusive ``flock`` on a lock
 store (``harmony.db.lock``) and a second run on the same store stops at once with an error. The
 kernel drops the lock when the process ends, however it ends, so a killed run never leaves a
 stale lock. Readers (feeds, reports, exports) take no lock and read the last committed state.
+
+Images named by URL are downloaded first (:mod:`harmony.shop.fetch`), with conditional GETs for
+URLs the store already holds; their bytes are kept in the store and handed to the workers
+directly, so Dask workers need no shared storage for them. A URL the server reports unchanged
+keeps its hash and so its palette: it is neither downloaded nor extracted again. A failed
+download is recorded like an unreadable file (the product is listed among the failures).
 """
 
 import contextlib
@@ -33,6 +39,7 @@ from tqdm import tqdm
 
 from harmony.errors import CatalogueError, HarmonyError, ImageError, StoreError
 from harmony.shop.catalogue import Catalogue, read_catalogue
+from harmony.shop.fetch import Known, fetch_images, is_url
 from harmony.shop.store import FileHash, Store
 
 __all__ = [
@@ -45,6 +52,7 @@ __all__ = [
     "writer_lock",
     "run_extraction",
     "hash_images",
+    "download_images",
     "plan_chunks",
     "extract_chunk",
 ]
@@ -78,6 +86,8 @@ class ExtractionSummary:
         Images that failed in this run (unreadable, undecodable, nothing left after masking...).
     scene_only : int
         Products whose chosen palette comes from a room-scene photo (low confidence).
+    downloaded, unchanged, download_failed : int
+        Image URLs downloaded in this run, answered "not modified", and failed (also in ``failed``).
     no_palette : int
         Products left with no palette at all.
     skipped_rows : int
@@ -102,13 +112,20 @@ class ExtractionSummary:
     engine: str
     workers: int
     db_path: Path
+    downloaded: int = 0
+    unchanged: int = 0
+    download_failed: int = 0
 
     def line(self):
         """The summary as one line for people."""
+        urls = ""
+        if self.downloaded or self.unchanged or self.download_failed:
+            urls = (f"; URLs: {self.downloaded} downloaded, {self.unchanged} unchanged, "
+                    f"{self.download_failed} failed")
         return (
             f"{self.products} products, {self.images} images: {self.new} new, {self.cached} cached, "
             f"{self.failed} failed, {self.scene_only} scene-only, {self.no_palette} without palette, "
-            f"{self.removed} removed, {self.skipped_rows} rows skipped; {self.seconds:.1f} s "
+            f"{self.removed} removed, {self.skipped_rows} rows skipped{urls}; {self.seconds:.1f} s "
             f"({self.engine}, {self.workers} worker{'' if self.workers == 1 else 's'})"
         )
 
@@ -168,11 +185,14 @@ def hash_images(catalogue, known=None):
     -------
     dict of str to FileHash
         By absolute path. A file that cannot be read has ``sha256=None`` and an ``error``.
+        URLs are left out (see :func:`download_images`).
     """
     known = known or {}
     out = {}
     for product in catalogue.products:
         for image in product.images:
+            if is_url(image):
+                continue
             path = catalogue.image_file(image)
             if path in out:
                 continue
@@ -188,6 +208,37 @@ def hash_images(catalogue, known=None):
             except OSError as exc:
                 out[path] = FileHash(path, None, error=f"{image}: cannot read: {exc.strerror or exc}")
     return out
+
+
+def download_images(catalogue, store, settings=None, progress=False):
+    """Download (or confirm unchanged) every image URL of ``catalogue``; record them in ``store``.
+
+    Returns
+    -------
+    hashes : dict of str to FileHash
+        By URL, as :func:`hash_images` gives for files (``error`` names the URL on a failure).
+    results : dict of str to harmony.shop.fetch.FetchResult
+    """
+    urls = [image for product in catalogue.products for image in product.images if is_url(image)]
+    if not urls:
+        return {}, {}
+    stored = store.remote_known()
+    known = {url: Known(sha, etag, modified) for url, (sha, etag, modified, _at, _size) in stored.items()}
+    bar = tqdm(total=len(set(urls)), unit="url", desc="download", disable=not progress, file=sys.stderr,
+               dynamic_ncols=True)
+    try:
+        results = fetch_images(urls, known, settings, progress=lambda _result: bar.update(1))
+    finally:
+        bar.close()
+    store.record_downloads(results.values(), keep=results.keys())
+    hashes = {}
+    for url, r in results.items():
+        if r.status == "failed":
+            hashes[url] = FileHash(url, None, error=f"{url}: download failed: {r.error}")
+        else:
+            size = len(r.data) if r.data is not None else stored[url][4]
+            hashes[url] = FileHash(url, r.sha256, size)
+    return hashes, results
 
 
 def plan_chunks(items, workers, chunk_size=None):
@@ -232,16 +283,19 @@ def extract_chunk(items, settings, extractor=None):
     extractor = extractor or _default_extractor()
     results = []
     for sha, path in items:
+        name = path
+        if isinstance(path, tuple):  # a downloaded image: its URL names it in messages
+            name, path = path
         try:
             palette = extractor(path, settings)
         except ImageError as exc:
-            results.append((sha, None, str(exc)))
+            results.append((sha, None, str(exc).replace("<bytes>", str(name), 1)))
             continue
         except Exception as exc:  # noqa: BLE001 - one bad image must not stop the run
-            results.append((sha, None, f"{path}: {type(exc).__name__}: {exc}"))
+            results.append((sha, None, f"{name}: {type(exc).__name__}: {exc}"))
             continue
         if palette.sha256 and palette.sha256 != sha:
-            results.append((sha, None, f"{path}: file changed during the run; run again"))
+            results.append((sha, None, f"{name}: file changed during the run; run again"))
             continue
         if not palette.sha256:
             palette = dataclasses.replace(palette, sha256=sha)
@@ -265,6 +319,7 @@ def run_extraction(
     progress=None,
     chunk_size=None,
     extractor=None,
+    fetch_settings=None,
 ):
     """Bring the store up to date with a catalogue: products, hashes, palettes.
 
@@ -289,6 +344,8 @@ def run_extraction(
         Images per task; see :func:`plan_chunks`.
     extractor : callable (path, settings) -> Palette, optional
         Default :func:`harmony.photo.palette.extract_palette`; must be picklable.
+    fetch_settings : harmony.shop.fetch.FetchSettings, optional
+        How image URLs are downloaded.
 
     Returns
     -------
@@ -326,6 +383,8 @@ def run_extraction(
 
     with writer_lock(db_path), Store(db_path, create=True) as store:
         hashes = hash_images(cat, store.file_hashes())
+        url_hashes, fetched = download_images(cat, store, fetch_settings, _show_progress(progress))
+        hashes.update(url_hashes)
         removed = store.sync_catalogue(cat, hashes, key)
         done = store.done(key)
         todo, cached = {}, set()
@@ -334,10 +393,13 @@ def run_extraction(
                 continue
             if info.sha256 in done:
                 cached.add(info.sha256)
+            elif info.abs_path in fetched:  # downloaded now, or unchanged with stored bytes
+                data = fetched[info.abs_path].data or store.remote_bytes(info.abs_path)
+                todo.setdefault(info.sha256, (info.abs_path, data))
             else:
                 todo.setdefault(info.sha256, info.abs_path)
         unreadable = sum(1 for info in hashes.values() if info.sha256 is None)
-        chunks = plan_chunks(sorted(todo.items()), workers, chunk_size)
+        chunks = plan_chunks(sorted(todo.items(), key=lambda item: item[0]), workers, chunk_size)
         bar = tqdm(
             total=len(todo), unit="img", desc="extract", disable=not _show_progress(progress),
             file=sys.stderr, dynamic_ncols=True,
@@ -369,6 +431,9 @@ def run_extraction(
         engine=engine,
         workers=workers,
         db_path=db_path,
+        downloaded=sum(1 for r in fetched.values() if r.status == "downloaded"),
+        unchanged=sum(1 for r in fetched.values() if r.status == "unchanged"),
+        download_failed=sum(1 for r in fetched.values() if r.status == "failed"),
     )
 
 

@@ -87,6 +87,21 @@ CREATE TABLE failures (
 );
 """
 
+#: Downloaded images (catalogue ``image`` URLs): the server's validators, the content hash, the
+#: time of the last answer and the bytes themselves (the report embeds them; a settings change
+#: re-extracts from them). Made on the first write of a store, so a store of schema 1 made
+#: before downloads existed still opens; readers treat a missing table as empty.
+_REMOTE_SCHEMA = """
+CREATE TABLE IF NOT EXISTS remote_images (
+    url TEXT PRIMARY KEY,
+    sha256 TEXT NOT NULL,
+    etag TEXT,
+    last_modified TEXT,
+    fetched_at REAL NOT NULL,
+    content BLOB NOT NULL
+)
+"""
+
 
 @dataclasses.dataclass(frozen=True)
 class FileHash:
@@ -215,6 +230,8 @@ class Store:
         if self.read_only:
             return
         db.execute("PRAGMA journal_mode = WAL")
+        if self._may_create:  # a writer: downloads need their table (see _REMOTE_SCHEMA)
+            db.execute(_REMOTE_SCHEMA)
         # NORMAL is safe in WAL mode against a killed process (only power loss may drop the
         # last commits), and much faster than FULL (SQLite documentation, "PRAGMA synchronous").
         db.execute("PRAGMA synchronous = NORMAL")
@@ -550,6 +567,52 @@ class Store:
                         float(palette.confidence),
                     ),
                 )
+
+    # -- downloaded images (harmony.shop.fetch) -----------------------------------------------------
+
+    def _has_remote(self):
+        return "remote_images" in self._tables()
+
+    def remote_known(self):
+        """{url: (sha256, etag, last_modified, fetched_at, size in bytes)} of every downloaded image kept."""
+        if not self._has_remote():
+            return {}
+        rows = self._db.execute(
+            "SELECT url, sha256, etag, last_modified, fetched_at, length(content) FROM remote_images"
+        )
+        return {r[0]: tuple(r[1:]) for r in rows}
+
+    def remote_bytes(self, url):
+        """The stored bytes of a downloaded image, or None."""
+        if not self._has_remote():
+            return None
+        row = self._db.execute("SELECT content FROM remote_images WHERE url = ?", (str(url),)).fetchone()
+        return None if row is None else bytes(row[0])
+
+    def record_downloads(self, results, keep):
+        """Store what one run learnt of its URLs, in one transaction.
+
+        Parameters
+        ----------
+        results : iterable of harmony.shop.fetch.FetchResult
+            Downloaded bodies replace the stored ones; unchanged answers refresh the validators
+            and the fetch time; failures change nothing.
+        keep : iterable of str
+            The URLs of the catalogue; stored images of any other URL go.
+        """
+        keep = set(keep)
+        with self._transaction() as db:
+            db.execute(_REMOTE_SCHEMA)
+            for r in results:
+                if r.status == "downloaded":
+                    db.execute("INSERT OR REPLACE INTO remote_images VALUES (?, ?, ?, ?, ?, ?)",
+                               (r.url, r.sha256, r.etag, r.last_modified, float(r.fetched_at), r.data))
+                elif r.status == "unchanged":
+                    db.execute("UPDATE remote_images SET etag = ?, last_modified = ?, fetched_at = ? WHERE url = ?",
+                               (r.etag, r.last_modified, float(r.fetched_at), r.url))
+            for (url,) in db.execute("SELECT url FROM remote_images").fetchall():
+                if url not in keep:
+                    db.execute("DELETE FROM remote_images WHERE url = ?", (url,))
 
     def integrity(self):
         """SQLite's ``PRAGMA integrity_check`` result ('ok' for a sound file)."""

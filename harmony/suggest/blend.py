@@ -56,7 +56,7 @@ __all__ = [
 #: Required columns of a candidate list; ``partner_category`` is optional.
 CANDIDATE_COLUMNS = ("product", "partner", "score")
 #: Columns of a blended feed: the feed's, then both input scores and where the row came from.
-BLEND_COLUMNS = ("product", "category", "partner", "partner_category", "rank", "score", "reason",
+BLEND_COLUMNS = ("product", "category", "partner", "partner_category", "rank", "score", "reason", "pinned",
                  "harmony_score", "candidate_score", "source", "relation")
 _SHOWN = 5
 

@@ -710,7 +710,7 @@ def build_problem(store, room, rules, budget=None, anchor=None, exclude=(), pool
 
 
 def search_bundles(store, room, rules, budget=None, anchor=None, exclude=(), top=3, min_difference=1,
-                   pool_limit=60, max_nodes=None, time_limit=None):
+                   pool_limit=60, max_nodes=None, time_limit=None, curation=None):
     """The top bundles of a room from a store's products, scored under ``rules``.
 
     Parameters
@@ -728,6 +728,8 @@ def search_bundles(store, room, rules, budget=None, anchor=None, exclude=(), top
         As in :func:`search` (the time limit covers the search, not building the pools).
     pool_limit : int
         Largest candidate pool per slot (see :func:`build_problem`).
+    curation : harmony.suggest.curation.Curation, optional
+        Sets with two products a block keeps apart are left out (more are searched for).
 
     Returns
     -------
@@ -737,10 +739,15 @@ def search_bundles(store, room, rules, budget=None, anchor=None, exclude=(), top
     from harmony.suggest.roomview import room_view
 
     problem, eligible, palettes = build_problem(store, room, rules, budget, anchor, exclude, pool_limit)
-    result = search(problem, top=top, min_difference=min_difference, max_nodes=max_nodes,
+    from harmony.suggest.curation import set_allowed
+    want = top if curation is None else 5 * top + 10  # curation: room for sets a block removes
+    result = search(problem, top=want, min_difference=min_difference, max_nodes=max_nodes,
                     time_limit=time_limit)
     bundles = []
     for b in result.bundles:
+        if len(bundles) == top or not set_allowed(curation, [(problem.pools[s][i].id, room.slots[s].category)
+                                                             for s, i in enumerate(b.choice) if i is not None]):
+            continue  # curation: blocks
         items, pals, visible = [], [], []
         for s, i in enumerate(b.choice):
             if i is None:

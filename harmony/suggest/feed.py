@@ -16,8 +16,10 @@ A. Gretton, K. M. Borgwardt, M. J. Rasch, B. Schoelkopf, A. Smola (2012). A kern
 import csv
 import difflib
 import io
+import itertools
 import json
 import warnings
+import dataclasses
 from dataclasses import asdict, dataclass
 from pathlib import Path
 
@@ -36,6 +38,7 @@ from harmony.rules.score import (
 )
 from harmony.rules.screen import BinGrid, PaletteStack, exact_raw, screen_top_k
 from harmony.shop.catalogue import normalise_category
+from harmony.suggest.curation import category_pair_allowed, curate, curate_rows, limit_partner_categories
 
 __all__ = [
     "FeedRow",
@@ -53,7 +56,7 @@ __all__ = [
 ]
 
 #: Feed columns, in file order (the JSONL keys, CSV header and Parquet schema).
-FEED_COLUMNS = ("product", "category", "partner", "partner_category", "rank", "score", "reason")
+FEED_COLUMNS = ("product", "category", "partner", "partner_category", "rank", "score", "reason", "pinned")
 
 #: Output formats of :func:`write_feed`, by file suffix.
 FEED_FORMATS = {".jsonl": "jsonl", ".ndjson": "jsonl", ".csv": "csv", ".parquet": "parquet"}
@@ -76,7 +79,8 @@ class FeedRow:
     """One line of the feed: ``partner`` is the ``rank``-th best partner of ``product``.
 
     Categories are normalised (:func:`harmony.shop.catalogue.normalise_category`); ``rank`` starts
-    at 1; ``score`` is the exact pair score in [0, 1]; ``reason`` is its explanation sentence.
+    at 1; ``score`` is the exact pair score in [0, 1]; ``reason`` is its explanation sentence;
+    ``pinned`` is true when a curation file placed this partner (see :mod:`harmony.suggest.curation`).
     """
 
     product: str
@@ -86,6 +90,7 @@ class FeedRow:
     rank: int
     score: float
     reason: str
+    pinned: bool = False
 
     def to_dict(self):
         return asdict(self)
@@ -201,7 +206,8 @@ def _sides(store):
     return by_cat, palettes
 
 
-def build_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, warn=None, progress=False):
+def build_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, warn=None, progress=False,
+               curation=None):
     """The feed: for each product, its top partners in each category the rules pair it with.
 
     Parameters
@@ -220,6 +226,8 @@ def build_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, 
         Called with a one-line message for each warning (default: :func:`warnings.warn`).
     progress : bool
         Show a progress bar over the category pairs on stderr.
+    curation : harmony.suggest.curation.Curation, optional
+        Pins, blocks, category pairs, score floors and the partner-category limit to apply.
 
     Returns
     -------
@@ -245,6 +253,8 @@ def build_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, 
         if not target_keys:
             raise HarmonyError("no target categories given")
     pool_size = top if diversity == 0 else max(top, 3 * top if pool is None else int(pool))
+    if curation is not None:  # curation: candidates for the rows that blocks and floors remove
+        pool_size += len(curation.blocks)
 
     partners = {}
     for cat in target_keys:
@@ -264,7 +274,9 @@ def build_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, 
             labels[key] = colour_labels(palettes[pid].jab, threshold)
         return labels[key]
 
-    work = [(a, b) for a in known for b in target_keys if b != a and rules.pairs_with(a, b)]
+    work = [(a, b) for a in known for b in target_keys if b != a and rules.pairs_with(a, b)
+            and category_pair_allowed(curation, a, b)]  # curation: category pairs
+    extra = 0 if curation is None else len(curation.blocks)  # curation: room for blocked partners
     if targets is not None:
         for cat in sorted(set(target_keys) - {b for _, b in work}):
             _warn(warn, f"{rules.path}: the rules pair target category '{cat}' with no other category; it gets no rows")
@@ -285,22 +297,39 @@ def build_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, 
             cand = res.indices[i]
             if diversity > 0 and len(cand) > 1:
                 sim = similarity_matrix([pals_b[j] for j in cand])
-                chosen = [int(cand[c]) for c in mmr_select(to_unit(res.raw[i], pr), sim, top, diversity)]
+                chosen = [int(cand[c]) for c in mmr_select(to_unit(res.raw[i], pr), sim, top + extra, diversity)]
             else:
-                chosen = [int(j) for j in cand[:top]]
+                chosen = [int(j) for j in cand[:top + extra]]
             emitted.extend((i, j, rank) for rank, j in enumerate(chosen, start=1))
         scored = pair_scores(
             [pals_a[i] for i, _, _ in emitted], [pals_b[j] for _, j, _ in emitted], pr,
             labels_a=[labels_of(ids_a[i], t) for i, _, _ in emitted],
             labels_b=[labels_of(ids_b[j], t) for _, j, _ in emitted],
         )
-        for (i, j, rank), ps in zip(emitted, scored):
-            rows.append(FeedRow(ids_a[i], cat_a, ids_b[j], cat_b, rank, float(ps.score), ps.reason))
+        new = [FeedRow(ids_a[i], cat_a, ids_b[j], cat_b, rank, float(ps.score), ps.reason)
+               for (i, j, rank), ps in zip(emitted, scored)]
+        if curation is not None:  # curation: blocks, floors, pins
+            new = curate_rows(curation, new, cat_b, _pin_scorer(palettes, set(ids_b), cat_a, cat_b, pr), top)
+        rows.extend(new)
     rows.sort(key=lambda r: (r.product, r.partner_category, r.rank))
+    if curation is not None:  # curation: partner categories per product
+        rows = [r for _pid, run in itertools.groupby(rows, key=lambda r: r.product)
+                for r in limit_partner_categories(curation, run)]
     return rows
 
 
-def suggest(store, rules, product_id, category=None, n=5):
+def _pin_scorer(palettes, available, cat_a, cat_b, pair_rules):
+    """``score_of(product, partner)`` for curation pins: the scored row, or None when unavailable."""
+    def score_of(pid, partner):
+        if partner not in available:
+            return None
+        ps = pair_score(palettes[pid], palettes[partner], pair_rules)
+        return FeedRow(pid, cat_a, partner, cat_b, 0, float(ps.score), ps.reason)
+
+    return score_of
+
+
+def suggest(store, rules, product_id, category=None, n=5, curation=None):
     """The best in-stock partners of one product, with their explanations.
 
     Parameters
@@ -311,6 +340,8 @@ def suggest(store, rules, product_id, category=None, n=5):
     category : str, optional
         Only partners of this category (default: every category the rules pair it with).
     n : int
+    curation : harmony.suggest.curation.Curation, optional
+        Applied over the merged list (pins of every category, or of ``category``, at their rank).
 
     Returns
     -------
@@ -340,29 +371,46 @@ def suggest(store, rules, product_id, category=None, n=5):
             raise StoreError(f"{rules.path}: the rules do not score '{own}' with '{cat}'")
         cats = [cat]
     else:
-        cats = [c for c in known if c != own and rules.pairs_with(own, c)]
+        cats = [c for c in known if c != own and rules.pairs_with(own, c)
+                and category_pair_allowed(curation, own, c)]  # curation: category pairs
         if not cats:
             raise StoreError(f"{rules.path}: the rules pair '{own}' with no other category of the store")
     found = []
+    extra = 0 if curation is None else len(curation.blocks)  # curation: room for blocked partners
+    scored = {}
     for cat in cats:
         ids = [p.id for p in by_cat[cat] if p.in_stock() and p.id in palettes]
         if not ids:
             continue
         pr = rules.for_pair(own, cat)
         raw = exact_raw(pal, [palettes[i] for i in ids], pr.kernel)
-        order = np.lexsort((np.arange(len(ids)), -raw))[:n]
+        order = np.lexsort((np.arange(len(ids)), -raw))[:n + extra]
         for j in order:
             ps = pair_score(pal, palettes[ids[j]], pr)
             found.append((-ps.score, cat, ids[j], ps))
+        scored[cat] = (set(ids), pr)
     if not found:
         where = f"category '{cats[0]}'" if category is not None else "the paired categories"
         raise StoreError(f"{store.path}: no in-stock partner with a palette in {where}")
     found.sort(key=lambda t: t[:3])
-    out = []
-    for rank, (_, cat, pid, ps) in enumerate(found[:n], start=1):
-        row = FeedRow(product.id, own, pid, cat, rank, float(ps.score), ps.reason)
-        out.append(Suggestion(row=row, pair=ps, palette=palettes[pid]))
-    return out
+    pairs = {pid: ps for _, _, pid, ps in found}
+    rows = [FeedRow(product.id, own, pid, cat, rank, float(ps.score), ps.reason)
+            for rank, (_, cat, pid, ps) in enumerate(found, start=1)]
+    if curation is not None:  # curation: blocks, floors, pins, partner categories
+
+        def score_of(partner):
+            for cat, (ids, pr) in scored.items():
+                if partner in ids:
+                    pairs[partner] = pair_score(pal, palettes[partner], pr)
+                    return FeedRow(product.id, own, partner, cat, 0, float(pairs[partner].score), pairs[partner].reason)
+            return None
+
+        rows = limit_partner_categories(curation, curate(curation, product.id, cats[0] if category else None,
+                                                         rows, score_of, n))
+    rows = [dataclasses.replace(r, rank=rank) for rank, r in enumerate(rows[:n], start=1)]
+    if not rows:
+        raise StoreError(f"{store.path}: every partner of '{product.id}' was removed by the curation file")
+    return [Suggestion(row=r, pair=pairs[r.partner], palette=palettes[r.partner]) for r in rows]
 
 
 def _format_of(path, fmt):
@@ -390,6 +438,7 @@ def _parquet_table(records):
             ("rank", pa.int32()),
             ("score", pa.float64()),
             ("reason", pa.string()),
+            ("pinned", pa.bool_()),
         ]
     )
     return pa.table({c: [rec[c] for rec in records] for c in FEED_COLUMNS}, schema=schema)

@@ -30,7 +30,7 @@ def test_feed_writes_jsonl_csv_and_parquet(db, tmp_path):
     assert res.exit_code == 0, res.output
     assert "rows for" in res.output
     rows = [json.loads(line) for line in out.read_text().splitlines()]
-    assert rows and set(rows[0]) == {"product", "category", "partner", "partner_category", "rank", "score", "reason"}
+    assert rows and set(rows[0]) == {"product", "category", "partner", "partner_category", "rank", "score", "reason", "pinned"}
     assert "R1" not in {r["partner"] for r in rows}
     res = run("feed", "--db", db, "--diversity", 0.5, "--format", "csv", "--out", tmp_path / "feed.txt")
     assert res.exit_code == 0, res.output

@@ -181,12 +181,16 @@ def test_wheel_rejects_a_link_outside_the_palettes():
 
 def test_gather_flags_scene_low_confidence_and_failures(report):
     data, _ = report
-    flags = {(f.product_id, f.kind) for f in data.flagged}
+    flags = {(f.product_id, kind) for f in data.flagged for kind, _detail in f.reasons}
     assert ("a1", "room scene") in flags
     assert ("a1", "low confidence") in flags and 0.3 < LOW_CONFIDENCE
     assert ("x9", "extraction failed") in flags
     assert ("x9", "no palette") not in flags  # the failure explains it
-    assert [f.kind for f in data.flagged][0] == "extraction failed"
+    assert data.flagged[0].reasons[0][0] == "extraction failed"
+    # Each product once, with all its reasons.
+    assert len({f.product_id for f in data.flagged}) == len(data.flagged)
+    assert [kind for kind, _ in next(f for f in data.flagged if f.product_id == "a1").reasons] == [
+        "room scene", "low confidence"]
 
 
 def test_gather_picks_one_suggestion_per_pair(report):
@@ -248,12 +252,16 @@ def test_render_escapes_every_user_string(report):
     assert "living &lt;room&gt;" in html
     assert "Test shop &lt;i&gt;" in html
     assert "Cushion &amp; co" in html
-    assert "<script" not in html.lower()
+    # The only script elements are the page's own finder (its data, then its code); no "<" of a
+    # catalogue string reaches the finder's JSON unescaped.
+    assert html.lower().count("<script") == 2
+    data_text = re.search(r'<script type="application/json" id="finder-data">(.*?)</script>', html, re.S).group(1)
+    assert "<" not in data_text and "\\u003cb>Nord" in data_text
 
 
 def test_render_is_self_contained(report):
     _, html = report
-    # No external resources: every src is a data URI, no stylesheet links, no scripts.
+    # No external resources: every src is a data URI, no stylesheet links, no outside scripts.
     srcs = re.findall(r'src="([^"]*)"', html)
     assert srcs and all(s.startswith("data:image/jpeg;base64,") for s in srcs)
     assert "<link" not in html and "http://" not in html.replace('xmlns="http://www.w3.org/2000/svg"', "")
@@ -371,7 +379,7 @@ def test_cli_report_writes_the_file(store_path, tmp_path):
     assert result.exit_code == 0, result.output
     assert "wrote" in result.output and "2 sets" in result.output
     html = out.read_text(encoding="utf-8")
-    assert "&lt;script&gt;alert(1)&lt;/script&gt; sofa" in html and "<script" not in html
+    assert "&lt;script&gt;alert(1)&lt;/script&gt; sofa" in html and html.count("<script") == 2  # the finder only
     assert "extraction failed" in html and "broken.jpg" in html
     assert html.count('class="card product"') == 4
 
@@ -546,9 +554,14 @@ def test_every_user_string_is_escaped(tmp_path):
     html = render_report(data)
     parser = _Tags()
     parser.feed(html)
-    assert "script" not in parser.tags and "img" not in parser.tags  # no thumbnails were given
+    assert "img" not in parser.tags  # no thumbnails were given
     assert not any(a.startswith("on") for a in parser.attrs)
-    assert "alert(2)" not in "".join(re.findall(r"<script[^>]*>(.*?)</script>", html, re.S))
+    # Two script elements, both the page's own: the finder's data holds the hostile strings as
+    # JSON with every "<" escaped (inert), and the finder's code holds none of them.
+    scripts = re.findall(r"<script([^>]*)>(.*?)</script>", html, re.S)
+    assert [attrs for attrs, _ in scripts] == [' type="application/json" id="finder-data"', ""]
+    assert "<" not in scripts[0][1] and "alert(2)" not in scripts[1][1]
+    assert json.loads(scripts[0][1])[0]["title"] in (f"Sofa {EVIL}", f"Rug {EVIL}")
     text = "".join(parser.text)
     for needle in (f"Sofa {EVIL}", f"Room {EVIL}", f"seat {EVIL}", f"Because {EVIL}", f"close{EVIL}",
                    f"value {EVIL}", f"reason {EVIL}"):
