@@ -114,7 +114,7 @@ def test_changed_image_changed_settings_removed_product(tmp_path):
     assert (back.new, back.cached) == (0, 4)
     lines = csv.read_text().splitlines()
     csv.write_text("\n".join(lines[:3]) + "\n")  # keep P000 and P001
-    smaller = _run(csv, tmp_path / "s.db")
+    smaller = _run(csv, tmp_path / "s.db", max_removal=1.0)  # half the products go, on purpose
     assert (smaller.products, smaller.new) == (2, 0)
     with Store(tmp_path / "s.db") as store:
         assert [p.id for p in store.products()] == ["P000", "P001"]
@@ -569,7 +569,8 @@ def test_strict_exits_1_when_a_product_has_no_palette_after_storing_everything(t
     lenient = runner.invoke(main, ["extract", str(csv), "--workers", "1", "--db", str(db)])
     assert lenient.exit_code == 0, lenient.output
     csv.write_text("\n".join(csv.read_text().splitlines()[:-1]) + "\n")  # drop the broken product
-    clean = runner.invoke(main, ["extract", str(csv), "--workers", "1", "--db", str(db), "--strict"])
+    clean = runner.invoke(main, ["extract", str(csv), "--workers", "1", "--db", str(db), "--strict",
+                                 "--max-removal", "100"])
     assert clean.exit_code == 0, clean.output
     assert "0 without palette, 1 removed" in clean.stdout
 
@@ -579,7 +580,12 @@ def test_a_truncated_catalogue_reports_the_removed_products(tmp_path):
     first = _run(csv, tmp_path / "s.db")
     assert first.removed == 0 and ", 0 removed, " in first.line()
     csv.write_text("\n".join(csv.read_text().splitlines()[:3]) + "\n")  # header and two rows
-    cut = _run(csv, tmp_path / "s.db")
+    with pytest.raises(StoreError, match=r"s\.db: the catalogue shop\.csv would remove 4 of the store's 6 "
+                                         r"products \(67 %, over the limit of 20 %\); store left unchanged"):
+        _run(csv, tmp_path / "s.db")
+    with Store(tmp_path / "s.db") as store:
+        assert len(store) == 6
+    cut = _run(csv, tmp_path / "s.db", max_removal=0.7)
     assert (cut.products, cut.removed, cut.new, cut.cached) == (2, 4, 0, 2)
     assert cut.line().startswith("2 products, 2 images: ") and ", 4 removed, " in cut.line()
     assert cut.to_dict()["removed"] == 4
