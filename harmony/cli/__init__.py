@@ -98,6 +98,8 @@ class _Group(click.Group):
         SIGTERM, warnings and a closed or full standard output are handled as the module says."""
         if not standalone_mode:
             return super().main(args, prog_name, complete_var, standalone_mode, **extra)
+        if sys.stdout is None:  # started with standard output closed (>&-)
+            fail("standard output is closed; give the command somewhere to write (e.g. >/dev/null)")
         old_term = None
         if threading.current_thread() is threading.main_thread():
             old_term = signal.signal(signal.SIGTERM, _on_sigterm)
@@ -134,7 +136,7 @@ class _Group(click.Group):
         except Terminated:
             message = "stopped by SIGTERM; finished work is kept and no output file is half-written"
             code = EXIT_TERMINATED
-        except OSError as exc:  # a write to standard output (see invoke)
+        except OSError as exc:  # a write to standard output outside the command (see invoke)
             _stdout_failed(exc)
         _say(f"error: {message}")
         return code
@@ -147,10 +149,10 @@ class _Group(click.Group):
         except KeyboardInterrupt:
             fail("interrupted", code=130)
         except OSError as exc:
-            if _is_stdout_error(exc):
-                raise
-            where = f"{exc.filename}: " if exc.filename else ""
-            fail(f"{where}{exc.strerror or exc}")
+            # A stream write (standard output) names no file; a file the command opened does.
+            if exc.filename is None or _is_stdout_error(exc):
+                _stdout_failed(exc)
+            fail(f"{exc.filename}: {exc.strerror or exc}")
 
 
 @click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
