@@ -118,11 +118,13 @@ def _unblob(data, shape):
 def _explain(path, exc, doing="read"):
     """One line for an SQLite failure on the store at ``path``."""
     text = str(exc)
-    if isinstance(exc, sqlite3.DatabaseError) and ("malformed" in text or "disk I/O error" in text):
+    if "malformed" in text:
         return (f"{path}: the store is damaged ({text}); extract again into a new --db file "
                 f"(the palettes of unchanged images are quick to redo)")
     if "database or disk is full" in text:
         return f"{path}: cannot {doing}: the disk is full; nothing of this step was stored"
+    if "disk I/O error" in text:
+        return f"{path}: cannot {doing}: disk I/O error (a full disk or a failing device?); nothing of this step was stored"
     return f"{path}: cannot {doing}: {text}"
 
 
