@@ -451,7 +451,7 @@ def test_csv_cells_that_a_spreadsheet_would_run_get_an_apostrophe(tmp_path):
 
 def test_python_warnings_become_one_warning_line(built, monkeypatch, tmp_path):
     folder, csv_path, db = built
-    import harmony.cli.palette_cmd as palette_module
+    import harmony.photo.palette as palette_module  # the command imports it when it runs
 
     real = palette_module.extract_palette
 
