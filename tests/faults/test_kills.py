@@ -21,7 +21,6 @@ from test_engine import (
 )
 
 from harmony.shop.engine import run_extraction
-from harmony.shop.store import Store
 
 #: Trials of the random-kill test: (signal, whole group?) each this many times; 4 x 5 = 20.
 TRIALS_EACH = 5
