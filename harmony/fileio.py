@@ -1,13 +1,44 @@
-"""Writing output files whole: a reader never sees half a file, a failure leaves the old one."""
+"""Writing output files whole: a reader never sees half a file, a failure leaves the old one.
 
+An output path that is a symbolic link is written through: the new content goes to a temporary
+file beside the link's final target and is renamed over that target, so the link stays a link
+and the file it points to is replaced whole. A path naming anything but a regular file (a
+folder, a character or block device, a FIFO, a socket) is refused with one line; standard
+output is asked for with ``-`` by the commands that support it, never through a device path.
+
+Temporary files are named ``.<name>.<pid>~<host>.<random>.part``. A run killed before its
+rename leaves one behind; the next write of the same output removes those whose process (on
+this host) no longer exists.
+
+CSV written for people may be opened in a spreadsheet, which runs a cell beginning with ``=``,
+``+``, ``-`` or ``@`` (or a tab or carriage return) as a formula; :func:`spreadsheet_safe`
+neutralises such text cells with a leading apostrophe (common spreadsheet-safety practice, as
+the OWASP "CSV Injection" page recommends).
+"""
+
+import errno
 import os
+import re
+import socket
+import stat
 import sys
 import tempfile
 from pathlib import Path
 
 from harmony.errors import HarmonyError
 
-__all__ = ["STDOUT", "is_stdout", "write_whole", "write_text_whole", "write_bytes_whole"]
+__all__ = [
+    "STDOUT",
+    "is_stdout",
+    "write_whole",
+    "write_text_whole",
+    "write_bytes_whole",
+    "output_target",
+    "sweep_stale_parts",
+    "spreadsheet_safe",
+    "spreadsheet_safe_row",
+    "FORMULA_PREFIXES",
+]
 
 #: The file name that means standard output, in every command that writes one file.
 STDOUT = "-"
@@ -32,38 +63,118 @@ def _write_stdout(write):
     sys.stdout.flush()
 
 
-def write_whole(path, write, what="file"):
-    """Let ``write(tmp_path)`` fill a temporary file in ``path``'s folder, then rename it to ``path``.
+#: First characters that make a spreadsheet read a cell as a formula (OWASP, "CSV Injection").
+FORMULA_PREFIXES = ("=", "+", "-", "@", "\t", "\r")
 
-    Creates missing parent folders. A new file gets the permissions the umask gives; a replaced
-    file keeps its own. Any failure (full disk, an encoding error, an interrupt)
-    removes the temporary file and leaves an older ``path`` as it was; an ``OSError`` becomes a
-    :class:`HarmonyError` ``"<path>: cannot write the <what>: <reason>"``. Returns the path.
-    ``path`` ``-`` writes to standard output instead (and returns ``"-"``).
+_SPECIAL_KINDS = (
+    (stat.S_ISCHR, "a character device"),
+    (stat.S_ISBLK, "a block device"),
+    (stat.S_ISFIFO, "a FIFO (named pipe)"),
+    (stat.S_ISSOCK, "a socket"),
+)
+
+
+def _host_tag():
+    return re.sub(r"[^A-Za-z0-9-]", "_", socket.gethostname())[:40] or "host"
+
+
+def output_target(path, what="file"):
+    """The regular file a write to ``path`` must replace: ``path`` itself, or a link's target.
+
+    Raises
+    ------
+    HarmonyError
+        ``path`` (or its target) is a folder, a device, a FIFO or a socket.
+    """
+    path = Path(path)
+    real = Path(os.path.realpath(path)) if path.is_symlink() else path
+    try:
+        mode = os.stat(real).st_mode
+    except FileNotFoundError:
+        return real
+    except OSError as exc:
+        raise HarmonyError(f"{path}: cannot write the {what}: {exc.strerror or exc}") from None
+    if stat.S_ISDIR(mode):
+        raise HarmonyError(f"{path}: cannot write the {what}: Is a directory")
+    for test, kind in _SPECIAL_KINDS:
+        if test(mode):
+            raise HarmonyError(f"{path}: cannot write the {what}: it is {kind}, not a regular file")
+    return real
+
+
+def _pid_alive(pid):
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except OSError:  # EPERM: it exists, run by someone else
+        return True
+    return True
+
+
+def sweep_stale_parts(target):
+    """Remove temporary files of ``target`` left by killed writers on this host; returns how many."""
+    target = Path(target)
+    folder = target.parent if str(target.parent) else Path(".")
+    pattern = re.compile(re.escape(f".{target.name}.") + r"(\d+)~" + re.escape(_host_tag()) + r"\.[^.]+\.part")
+    removed = 0
+    try:
+        names = os.listdir(folder)
+    except OSError:
+        return 0
+    for name in names:
+        found = pattern.fullmatch(name)
+        if found is None:
+            continue
+        pid = int(found.group(1))
+        if pid == os.getpid() or _pid_alive(pid):
+            continue
+        try:
+            (folder / name).unlink()
+            removed += 1
+        except OSError:
+            pass
+    return removed
+
+
+def write_whole(path, write, what="file"):
+    """Let ``write(tmp_path)`` fill a temporary file beside ``path``, then rename it to ``path``.
+
+    Creates missing parent folders. A symbolic link is written through to its target (see the
+    module notes); a folder, device, FIFO or socket is refused. A new file gets the permissions
+    the umask gives; a replaced file keeps its own. Any failure (full disk, an encoding error,
+    an interrupt) removes the temporary file and leaves an older file as it was; an ``OSError``
+    becomes a :class:`HarmonyError` ``"<path>: cannot write the <what>: <reason>"``. Returns
+    the path as given. ``path`` ``-`` writes to standard output instead (and returns ``"-"``).
     """
     if is_stdout(path):
         _write_stdout(write)
         return STDOUT
-    path = Path(path)
-    folder = path.parent if str(path.parent) else Path(".")
+    given = Path(path)
+    target = output_target(given, what)
+    folder = target.parent if str(target.parent) else Path(".")
     try:
         folder.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=folder)
+        sweep_stale_parts(target)
+        fd, tmp = tempfile.mkstemp(
+            prefix=f".{target.name}.{os.getpid()}~{_host_tag()}.", suffix=".part", dir=folder
+        )
         os.close(fd)
     except OSError as exc:
-        raise HarmonyError(f"{path}: cannot write the {what}: {exc.strerror or exc}") from None
+        raise HarmonyError(f"{given}: cannot write the {what}: {exc.strerror or exc}") from None
     try:
         write(tmp)
         # mkstemp makes the file private (0600); give it the mode a plain open() would have had,
         # or the mode of the file it replaces, so a web server that read the old feed still can.
-        os.chmod(tmp, _target_mode(path))
-        os.replace(tmp, path)
+        os.chmod(tmp, _target_mode(target))
+        os.replace(tmp, target)
     except BaseException as exc:
         Path(tmp).unlink(missing_ok=True)
         if isinstance(exc, OSError):
-            raise HarmonyError(f"{path}: cannot write the {what}: {exc.strerror or exc}") from None
+            reason = exc.strerror or str(exc) or errno.errorcode.get(exc.errno, "error")
+            raise HarmonyError(f"{given}: cannot write the {what}: {reason}") from None
         raise
-    return path
+    return given
 
 
 def _target_mode(path):
@@ -88,3 +199,23 @@ def write_text_whole(path, text, what="file"):
 def write_bytes_whole(path, data, what="file"):
     """Write ``data`` to ``path`` whole; see :func:`write_whole`."""
     return write_whole(path, lambda tmp: Path(tmp).write_bytes(data), what)
+
+
+def spreadsheet_safe(value):
+    """``value`` with a leading apostrophe when it is text a spreadsheet would run as a formula.
+
+    Only strings change; numbers stay numbers, so score and rank columns keep their type.
+
+    >>> spreadsheet_safe("=HYPERLINK(1)"), spreadsheet_safe("sofa"), spreadsheet_safe(-0.5)
+    ("'=HYPERLINK(1)", 'sofa', -0.5)
+    """
+    if isinstance(value, str) and value.startswith(FORMULA_PREFIXES):
+        return "'" + value
+    return value
+
+
+def spreadsheet_safe_row(row):
+    """:func:`spreadsheet_safe` over a CSV row: a dict (by value) or a sequence."""
+    if isinstance(row, dict):
+        return {key: spreadsheet_safe(value) for key, value in row.items()}
+    return [spreadsheet_safe(value) for value in row]

@@ -8,8 +8,8 @@ from pathlib import Path
 import click
 
 from harmony.errors import HarmonyError
-from harmony.fileio import is_stdout
-from harmony.shop import DEFAULT_DB_NAME, ENGINES
+from harmony.fileio import is_stdout, spreadsheet_safe_row
+from harmony.shop import DEFAULT_DB_NAME, ENGINES, MAX_REMOVAL
 
 from . import fail, main
 
@@ -38,7 +38,11 @@ PALETTE_CSV_COLUMNS = (
 @click.option("--strict", is_flag=True,
               help="Any catalogue problem is an error and nothing is written; any product left without "
                    "a palette exits with status 1 after the run is stored.")
-def extract(catalogue, db_path, workers, engine, scheduler, strict):
+@click.option("--max-removal", "max_removal", type=click.FloatRange(0.0, 100.0), default=100.0 * MAX_REMOVAL,
+              show_default=True, metavar="PERCENT",
+              help="Refuse a catalogue that would remove more than this percentage of the store's products "
+                   "(a cut-short export is likelier than a real clear-out); 100 allows any removal.")
+def extract(catalogue, db_path, workers, engine, scheduler, strict, max_removal):
     """Read CATALOGUE (CSV or JSONL), extract the palettes of new or changed images into the store.
 
     Exit status: 0 done; 2 an error, nothing changed (with --strict: any catalogue problem);
@@ -55,7 +59,8 @@ def extract(catalogue, db_path, workers, engine, scheduler, strict):
         click.echo(f"{level}: {problem}", err=True)
     if strict and cat.problems:
         fail(f"{cat.path}: {len(cat.problems)} problem(s) in {cat.skipped_rows} row(s); nothing written (--strict)")
-    summary = run_extraction(cat, db_path, workers=workers, engine=engine, scheduler=scheduler)
+    summary = run_extraction(cat, db_path, workers=workers, engine=engine, scheduler=scheduler,
+                             max_removal=max_removal / 100.0)
     with Store(summary.db_path) as store:
         failures = store.failures()
     for product_id, _image, reason in failures[:SHOWN_FAILURES]:
@@ -93,10 +98,10 @@ def _csv(rows, out):
     for product, image, palette in rows:
         data = palette.to_dict(image=image)
         for rank, c in enumerate(data["colours"], start=1):
-            writer.writerow([
+            writer.writerow(spreadsheet_safe_row([
                 product.id, product.category, image, data["sha256"], int(data["scene"]), data["confidence"],
                 rank, c["hex"], c["share"], c["J"], c["a"], c["b"], c["M"], c["hue"], c["lrv"], int(c["neutral"]),
-            ])
+            ]))
 
 
 @main.command("palettes")
@@ -106,7 +111,11 @@ def _csv(rows, out):
 @click.option("--out", "out_path", type=click.Path(dir_okay=False), default=None,
               help="Output file (written whole or not at all); default, or -, standard output.")
 def palettes(db_path, fmt, out_path):
-    """Export every product's chosen palette: JSONL (one product a line) or CSV (one colour a row)."""
+    """Export every product's chosen palette: JSONL (one product a line) or CSV (one colour a row).
+
+    In CSV, text cells beginning with = + - @ (or a tab or carriage return) get a leading
+    apostrophe, so a spreadsheet shows them instead of running them as formulas.
+    """
     from harmony.fileio import write_text_whole
     from harmony.shop.store import Store
     if fmt is None:

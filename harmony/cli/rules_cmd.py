@@ -7,6 +7,10 @@ from harmony.fileio import is_stdout
 
 from . import main
 
+#: Most wheels ``rules show`` draws in one picture (about 240 x 8,000 pixels; this project's
+#: choice, to bound the time and memory of a picture a person can still read).
+MAX_WHEELS = 120
+
 
 @main.group("rules")
 def rules_group():
@@ -43,8 +47,9 @@ def show(file, out, reference_hue):
     from harmony.rules.wheel import draw_hue_rules
 
     rule_set = load_rules(file)
-    try:
-        panels = draw_hue_rules(rule_set, out, reference_hue=reference_hue)
-    except OSError as exc:
-        raise RulesError(f"{out}: cannot write the picture: {exc.strerror or exc}") from None
+    wheels = sum(1 for r in rule_set.rules.values() if r.kind == "hue") + 1 + len(rule_set.pairs)
+    if wheels > MAX_WHEELS:
+        raise RulesError(f"{file}: up to {wheels} wheels to draw, more than the {MAX_WHEELS} one picture holds; "
+                         f"draw a smaller file (fewer rules or pair sections)")
+    panels = draw_hue_rules(rule_set, out, reference_hue=reference_hue)  # written whole
     click.echo(f"{out}: {len(panels)} wheels", err=is_stdout(out))

@@ -1,6 +1,7 @@
 """``harmony score A B``: the exact harmony score of two products, with its reason."""
 
 import json
+import math
 from pathlib import Path
 
 import click
@@ -54,6 +55,8 @@ def score(a, b, rules_file, categories, as_json):
     pal_a = read_palette(a)
     pal_b = read_palette(b)
     result = pair_score(pal_a, pal_b, pair_rules)
+    if not math.isfinite(result.score) or not math.isfinite(result.raw):
+        raise HarmonyError(f"{a}, {b}: the score is not a finite number; check the palettes' values")
     if not pair_rules.scored:
         a_name, b_name = pair_rules.categories
         click.echo(f"note: {rules_file} never scores {a_name} with {b_name} (scored = false); "

@@ -17,6 +17,7 @@ __all__ = [
     "Palette",
     "PaletteSettings",
     "JND_DELTA_E",
+    "JSON_JAB_LIMIT",
     "extract_palette",
     "palette_from_decoded",
     "weighted_kmeans",
@@ -28,6 +29,24 @@ __all__ = [
 #: Version of the palette JSON (``harmony palette --json``, ``harmony palettes``): 2 names a
 #: colour's proportion ``share`` (format 1 called it ``weight``; both are read).
 PALETTE_JSON_FORMAT = 2
+
+#: Largest magnitude of a J', a' or b' value read from palette JSON. Colours of the sRGB gamut
+#: stay within about J' 0-100 and |a'|, |b'| < 50 in CAM02-UCS (Luo, Cui & Li 2006); 1000 leaves
+#: room for any real colour while keeping products of them far from float overflow.
+JSON_JAB_LIMIT = 1000.0
+
+
+def _json_number(value, key, high, low=None):
+    """``value`` as a float, or a HarmonyError naming ``key`` (NaN, infinity, out of range)."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise HarmonyError(f"{key}: not a number: {value!r}")
+    number = float(value)
+    if not np.isfinite(number):
+        raise HarmonyError(f"{key}: not a finite number ({value!r})")
+    lo = -high if low is None else low
+    if not lo <= number <= high:
+        raise HarmonyError(f"{key}: {number:g} is outside [{lo:g}, {high:g}]")
+    return number
 
 
 def _frozen(arr, shape_tail, name):
@@ -149,31 +168,44 @@ class Palette:
 
     @classmethod
     def from_dict(cls, data, where="palette"):
-        """Rebuild a palette from :meth:`to_dict` output; ``where`` names the source in errors."""
+        """Rebuild a palette from :meth:`to_dict` output; ``where`` names the source in errors.
+
+        Every number must be finite and in its range (:data:`JSON_JAB_LIMIT` for J'a'b'), so a
+        NaN, an infinity or a 1e308 is an error naming the key, never a score of "nan".
+        """
         try:
             colours = data["colours"]
-            jab = [[c["J"], c["a"], c["b"]] for c in colours]
-            # "weight" is the name format 1 (before harmony 0.2) gave the share.
-            weights = [c["share"] if "share" in c else c["weight"] for c in colours]
+            if not isinstance(colours, list) or not colours:
+                raise HarmonyError(f"{where}: colours: must be a non-empty list of colours")
+            jab, weights = [], []
+            for i, c in enumerate(colours):
+                if not isinstance(c, dict):
+                    raise HarmonyError(f"{where}: colours[{i}]: must be an object")
+                jab.append([_json_number(c[key], f"{where}: colours[{i}].{key}", JSON_JAB_LIMIT) for key in "Jab"])
+                # "weight" is the name format 1 (before harmony 0.2) gave the share.
+                name = "share" if "share" in c else "weight"
+                weights.append(_json_number(c[name], f"{where}: colours[{i}].{name}", 1.0, low=0.0))
             bg = data.get("background")
             # The background is stored as a hex code: it round-trips to 8 bits per channel.
             bg_jab = None if bg is None else colour.srgb1_to_jab(colour.hex_to_srgb1(bg["hex"]))
-            share = bg["share"] if bg else 0.0
+            share = _json_number(bg["share"], f"{where}: background.share", 1.0, low=0.0) if bg else 0.0
             return cls(
                 jab=jab,
                 weights=weights,
                 sha256=str(data.get("sha256", "")),
-                width=int(data.get("width", 0)),
-                height=int(data.get("height", 0)),
+                width=int(_json_number(data.get("width", 0), f"{where}: width", 2**31, low=0.0)),
+                height=int(_json_number(data.get("height", 0), f"{where}: height", 2**31, low=0.0)),
                 background_jab=bg_jab,
-                background_share=float(share),
+                background_share=share,
                 scene=bool(data.get("scene", False)),
-                confidence=float(data.get("confidence", 1.0)),
+                confidence=_json_number(data.get("confidence", 1.0), f"{where}: confidence", 1.0, low=0.0),
                 source=str(data.get("image", "")),
             )
         except KeyError as exc:
             raise HarmonyError(f"{where}: palette JSON lacks key {exc.args[0]!r}") from None
         except (TypeError, ValueError) as exc:
+            if isinstance(exc, HarmonyError):
+                raise
             raise HarmonyError(f"{where}: not a palette: {exc}") from None
 
     @classmethod

@@ -6,6 +6,7 @@ by hue difference; bars point outwards (green) where the rule rewards a second c
 and inwards (red) where it penalises it.
 """
 
+import io
 import math
 from pathlib import Path
 
@@ -158,6 +159,9 @@ def draw_hue_rules(rule_set, path, *, panel=240, reference_hue=40.0, columns=4):
         x0 = (k % columns) * panel
         y0 = HEADER_HEIGHT + (k // columns) * cell_h
         _draw_panel(img, x0, y0, panel, values, scale, title[:38], subtitle[:38], reference_hue)
-    path = Path(path)
-    img.save(path, format="PNG")
+    from harmony.fileio import write_bytes_whole
+
+    buf = io.BytesIO()
+    img.save(buf, format="PNG")
+    write_bytes_whole(Path(path), buf.getvalue(), what="picture")
     return [title for title, _, _ in items]

@@ -8,7 +8,9 @@ relative to the catalogue file, or ``http://`` / ``https://`` URLs (downloaded b
 
 Validation never stops at the first problem: every bad row is reported as
 ``FILE:ROW: field: reason`` (ROW is the line number in the file, the CSV header being line 1),
-skipped and counted. A file that cannot be read at all raises :class:`CatalogueError`.
+skipped and counted. A CSV row the parser cannot read (a stray quote, a field longer than
+``csv.field_size_limit()``) is reported the same way and reading goes on at the next line, so a
+bad row never silently ends the catalogue. A file that cannot be read at all raises :class:`CatalogueError`.
 """
 
 import csv
@@ -29,6 +31,7 @@ __all__ = [
     "Catalogue",
     "REQUIRED_FIELDS",
     "IMAGE_SEPARATOR",
+    "MAX_STOCK",
     "normalise_category",
     "read_catalogue",
 ]
@@ -37,6 +40,9 @@ __all__ = [
 REQUIRED_FIELDS = ("id", "category", "price", "image")
 #: Optional fields with a meaning of their own; every other field becomes an attribute.
 _KNOWN_FIELDS = REQUIRED_FIELDS + ("title", "stock", "currency")
+#: Largest stock the store can keep: SQLite's INTEGER is a signed 64-bit number (SQLite
+#: documentation, "Datatypes In SQLite", 2.0).
+MAX_STOCK = 2**63 - 1
 #: Separator of several image paths in one CSV cell.
 IMAGE_SEPARATOR = "|"
 
@@ -232,15 +238,23 @@ def _csv_rows(path, text):
     dupes = sorted({h for h in header if header.count(h) > 1})
     if dupes:
         raise CatalogueError(f"{path}:1: header: column {dupes[0]!r} appears twice")
+    # Rows are read from a list of physical lines, so that after a row the csv module cannot
+    # parse (a stray quote, a field over csv.field_size_limit(), a NUL byte) reading goes on
+    # at the next line instead of ending early: the bad row is reported, never the rest lost.
+    lines = list(io.StringIO(text, newline=""))
+    offset = reader.line_num
+    reader = csv.reader(iter(lines[offset:]), strict=True)
     while True:
-        start = reader.line_num + 1
+        start = offset + reader.line_num + 1
         try:
             cells = next(reader)
         except StopIteration:
             return
         except csv.Error as exc:
-            yield start, None, [("row", f"not valid CSV: {exc}")]
-            return
+            yield start, None, [("row", f"not valid CSV: {exc}; skipped, reading goes on at line {start + 1}")]
+            offset = start
+            reader = csv.reader(iter(lines[offset:]), strict=True)
+            continue
         if not any(c.strip() for c in cells):
             continue  # blank line
         early = []
@@ -355,11 +369,17 @@ def _whole(raw):
         return None, f"not a whole number: {_text(raw)!r}"
     text = _text(raw)
     try:
-        value = float(text)
+        value = int(text)  # exact, however long
     except ValueError:
-        return None, f"not a whole number: {text!r}"
-    if not math.isfinite(value) or value != int(value):
-        return None, f"not a whole number: {text!r}"
+        try:
+            number = float(text)
+        except ValueError:
+            return None, f"not a whole number: {text!r}"
+        if not math.isfinite(number) or number != int(number):
+            return None, f"not a whole number: {text!r}"
+        value = int(number)
     if value < 0:
-        return None, f"negative stock {int(value)}"
-    return int(value), None
+        return None, f"negative stock {value}"
+    if value > MAX_STOCK:
+        return None, f"stock {text} is larger than {MAX_STOCK} (the store keeps 64-bit whole numbers)"
+    return value, None

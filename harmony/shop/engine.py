@@ -12,9 +12,18 @@ Both engines run the same chunk function: ``"local"`` on a
 given). Dask workers read the images by path, so they must see the same files (shared storage).
 
 One store has one writer at a time: a run holds an exclusive ``flock`` on a lock file beside the
-store (``harmony.db.lock``) and a second run on the same store stops at once with an error. The
-kernel drops the lock when the process ends, however it ends, so a killed run never leaves a
-stale lock. Readers (feeds, reports, exports) take no lock and read the last committed state.
+store's real file (``harmony.db.lock``; a store reached through a symbolic link locks its target)
+and a second run on the same store stops at once with an error. The kernel drops the lock when
+the process ends, however it ends, so a killed run never leaves a stale lock. Readers (feeds,
+reports, exports) take no lock and read the last committed state.
+
+Worker processes of the local engine never outlive the run: each asks the kernel to kill it when
+its parent dies (``PR_SET_PDEATHSIG`` on Linux; elsewhere a thread that watches the parent), does
+not keep the parent's lock file open, and ignores SIGINT and SIGTERM, which the parent handles:
+an interrupted run kills its workers, keeps every chunk it has stored, and re-raises.
+
+A run refuses to remove more than ``max_removal`` (default :data:`MAX_REMOVAL`) of the store's
+products: a cut-short catalogue export is far likelier than a real clear-out.
 
 Images named by URL are downloaded first (:mod:`harmony.shop.fetch`), with conditional GETs for
 URLs the store already holds; their bytes are kept in the store and handed to the workers
@@ -29,7 +38,9 @@ import fcntl
 import hashlib
 import math
 import os
+import signal
 import sys
+import threading
 import time
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from concurrent.futures.process import BrokenProcessPool
@@ -49,6 +60,7 @@ __all__ = [
     "SCHEDULER_TIMEOUT",
     "DEFAULT_DB_NAME",
     "LOCK_SUFFIX",
+    "MAX_REMOVAL",
     "writer_lock",
     "run_extraction",
     "hash_images",
@@ -57,13 +69,16 @@ __all__ = [
     "extract_chunk",
 ]
 
-from harmony.shop import DEFAULT_DB_NAME, ENGINES  # noqa: E402  (light constants for the command line)
+from harmony.shop import DEFAULT_DB_NAME, ENGINES, MAX_REMOVAL  # noqa: E402  (light constants for the command line)
 #: Added to the store's file name to name the lock file of its writer (``harmony.db.lock``).
 LOCK_SUFFIX = ".lock"
 #: Upper bound of images per chunk: at most this much work is lost when a run is killed.
 MAX_CHUNK = 32
 #: Seconds to wait for a Dask scheduler given by address.
 SCHEDULER_TIMEOUT = 30
+
+#: File descriptors of the writer locks this process holds; worker processes close them.
+_HELD_LOCK_FDS = set()
 
 
 @dataclasses.dataclass(frozen=True)
@@ -152,12 +167,15 @@ def writer_lock(db_path):
 
     Notes
     -----
-    A non-blocking exclusive ``flock`` (POSIX ``flock(2)``): the kernel releases it when the
-    holder closes the file or dies, even by SIGKILL. The empty lock file is left in place, since
+    The lock file sits beside the store's real path (symbolic links resolved), so two runs that
+    reach one store through different links still exclude each other. A non-blocking exclusive
+    ``flock`` (``flock(2)``): the kernel releases it when every process holding the file
+    open has closed it or died, even by SIGKILL. The empty lock file is left in place, since
     removing it could let two runs lock two different files of the same name.
     """
     db_path = Path(db_path)
-    lock_path = db_path.with_name(db_path.name + LOCK_SUFFIX)
+    real = Path(os.path.realpath(db_path))  # the file, however it is reached
+    lock_path = real.with_name(real.name + LOCK_SUFFIX)
     try:
         handle = open(lock_path, "a+b")
     except OSError as exc:
@@ -169,7 +187,11 @@ def writer_lock(db_path):
             raise StoreError(f"{db_path}: another extract is writing this store; try again when it ends") from None
         except OSError as exc:
             raise StoreError(f"{lock_path}: cannot lock: {exc.strerror or exc}") from None
-        yield lock_path
+        _HELD_LOCK_FDS.add(handle.fileno())
+        try:
+            yield lock_path
+        finally:
+            _HELD_LOCK_FDS.discard(handle.fileno())
 
 
 def hash_images(catalogue, known=None):
@@ -320,6 +342,7 @@ def run_extraction(
     chunk_size=None,
     extractor=None,
     fetch_settings=None,
+    max_removal=MAX_REMOVAL,
 ):
     """Bring the store up to date with a catalogue: products, hashes, palettes.
 
@@ -346,6 +369,9 @@ def run_extraction(
         Default :func:`harmony.photo.palette.extract_palette`; must be picklable.
     fetch_settings : harmony.shop.fetch.FetchSettings, optional
         How image URLs are downloaded.
+    max_removal : float
+        Largest share (0..1) of the store's products this run may remove; more is refused and
+        the store left unchanged. 1 allows any removal.
 
     Returns
     -------
@@ -357,8 +383,9 @@ def run_extraction(
         The catalogue cannot be read, or it has no valid product row (the store is then left as
         it was: an empty export never empties the store).
     StoreError
-        The store is of another schema version or not a store, or another run is writing it
-        (see :func:`writer_lock`).
+        The store is of another schema version or not a store, another run is writing it
+        (see :func:`writer_lock`), or the catalogue would remove more than ``max_removal`` of
+        its products.
     HarmonyError
         Bad ``engine`` / ``workers``, Dask missing or its scheduler unreachable.
     """
@@ -369,6 +396,8 @@ def run_extraction(
         workers = os.cpu_count() or 1
     if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
         raise HarmonyError(f"workers must be a whole number of at least 1, got {workers!r}")
+    if not 0.0 <= float(max_removal) <= 1.0:
+        raise HarmonyError(f"max_removal must be a share between 0 and 1, got {max_removal!r}")
     if settings is None:
         from harmony.photo.palette import PaletteSettings
 
@@ -385,7 +414,7 @@ def run_extraction(
         hashes = hash_images(cat, store.file_hashes())
         url_hashes, fetched = download_images(cat, store, fetch_settings, _show_progress(progress))
         hashes.update(url_hashes)
-        removed = store.sync_catalogue(cat, hashes, key)
+        removed = store.sync_catalogue(cat, hashes, key, max_removal=max_removal)
         done = store.done(key)
         todo, cached = {}, set()
         for info in hashes.values():
@@ -406,12 +435,14 @@ def run_extraction(
         )
         new = failed = 0
         try:
-            for results in _run(chunks, key, settings, extractor, engine, workers, scheduler):
-                store.record(results, key)
-                ok = sum(1 for _sha, palette, _reason in results if palette is not None)
-                new += ok
-                failed += len(results) - ok
-                bar.update(len(results))
+            # closing(): an exception here stops the engine (and its workers) at once.
+            with contextlib.closing(_run(chunks, key, settings, extractor, engine, workers, scheduler)) as done_chunks:
+                for results in done_chunks:
+                    store.record(results, key)
+                    ok = sum(1 for _sha, palette, _reason in results if palette is not None)
+                    new += ok
+                    failed += len(results) - ok
+                    bar.update(len(results))
         finally:
             bar.close()
         with_palette, scene_only = store.coverage()
@@ -448,7 +479,11 @@ def _run(chunks, key, settings, extractor, engine, workers, scheduler):
 
 
 def _run_local(chunks, settings, extractor, workers):
-    pool = ProcessPoolExecutor(max_workers=min(workers, len(chunks)))
+    pool = ProcessPoolExecutor(
+        max_workers=min(workers, len(chunks)),
+        initializer=_worker_start,
+        initargs=(os.getpid(), tuple(sorted(_HELD_LOCK_FDS))),
+    )
     try:
         futures = [pool.submit(extract_chunk, chunk, settings, extractor) for chunk in chunks]
         try:
@@ -458,9 +493,60 @@ def _run_local(chunks, settings, extractor, workers):
             raise HarmonyError(
                 "a worker process died (out of memory?); finished chunks are stored, run again to continue"
             ) from None
+    except BaseException:
+        # Interrupted (SIGTERM, Ctrl-C, an error, the caller stopped): the finished chunks are
+        # stored; the ones running are dropped now rather than waited for.
+        _kill_workers(pool)
+        raise
     finally:
-        # On an interrupt, drop the chunks not started; finished ones are already stored.
         pool.shutdown(wait=True, cancel_futures=True)
+
+
+def _kill_workers(pool):
+    # ProcessPoolExecutor has no public way to stop running tasks; its worker table is
+    # ``_processes`` (CPython 3.8+). Without it the workers still die with this process.
+    for process in list((getattr(pool, "_processes", None) or {}).values()):
+        with contextlib.suppress(Exception):
+            process.kill()
+
+
+#: prctl(2) option that asks the kernel for a signal when the parent dies (linux/prctl.h).
+_PR_SET_PDEATHSIG = 1
+#: Seconds between two looks at the parent where the kernel cannot watch it for us.
+_PARENT_POLL = 0.5
+
+
+def _worker_start(parent_pid, lock_fds):
+    """Initialiser of each local worker process: never outlive the run, never hold its lock."""
+    for fd in lock_fds:  # inherited through fork; the lock must die with the parent alone
+        with contextlib.suppress(OSError):
+            os.close(fd)
+    # The parent handles SIGINT / SIGTERM sent to the whole process group and then kills us.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    signal.signal(signal.SIGTERM, signal.SIG_IGN)
+    if not _ask_kernel_for_parent_death():
+        threading.Thread(target=_watch_parent, args=(parent_pid,), daemon=True).start()
+    if os.getppid() != parent_pid:  # the parent died before the watch began
+        os._exit(1)
+
+
+def _ask_kernel_for_parent_death():
+    """PR_SET_PDEATHSIG = SIGKILL on Linux (prctl(2)); False where it is not available."""
+    if not sys.platform.startswith("linux"):
+        return False
+    try:
+        import ctypes
+
+        libc = ctypes.CDLL(None, use_errno=True)
+        return libc.prctl(_PR_SET_PDEATHSIG, int(signal.SIGKILL), 0, 0, 0) == 0
+    except (OSError, AttributeError):
+        return False
+
+
+def _watch_parent(parent_pid):
+    while os.getppid() == parent_pid:
+        time.sleep(_PARENT_POLL)
+    os._exit(1)
 
 
 def _run_dask(chunks, settings, extractor, workers, scheduler):

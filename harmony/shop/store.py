@@ -8,6 +8,10 @@ Every write is one transaction. The file runs in SQLite's write-ahead-log mode, 
 (feeds, reports) can open it while an extraction writes, and a process killed at any moment
 leaves the last committed state: the next run continues from there.
 
+Every SQLite failure, at any call, becomes one :class:`StoreError` naming the file: a damaged
+file ("the store is damaged"), a full disk, a read-only folder (SQLite must make the ``-wal``
+and ``-shm`` files beside the store even to read it).
+
 A product's *chosen* palette is that of its first studio (non-scene) image that has one; a
 room-scene image is used only when the product has no studio palette at all, and its confidence
 is then capped at :data:`SCENE_CONFIDENCE`.
@@ -16,6 +20,7 @@ is then capped at :data:`SCENE_CONFIDENCE`.
 import dataclasses
 import difflib
 import json
+import os
 import sqlite3
 from pathlib import Path
 
@@ -125,6 +130,82 @@ def _unblob(data, shape):
     return np.frombuffer(data, dtype="<f8").reshape(shape)
 
 
+def _explain(path, exc, doing="read"):
+    """One line for an SQLite failure on the store at ``path``."""
+    text = str(exc)
+    if "malformed" in text:
+        return (f"{path}: the store is damaged ({text}); extract again into a new --db file "
+                f"(the palettes of unchanged images are quick to redo)")
+    if "database or disk is full" in text:
+        return f"{path}: cannot {doing}: the disk is full; nothing of this step was stored"
+    if "disk I/O error" in text:
+        return f"{path}: cannot {doing}: disk I/O error (a full disk or a failing device?); nothing of this step was stored"
+    return f"{path}: cannot {doing}: {text}"
+
+
+class _Cursor:
+    """Iterates an SQLite cursor, turning its failures into StoreError."""
+
+    def __init__(self, cursor, path):
+        self._cursor, self._path = cursor, path
+
+    def fetchone(self):
+        try:
+            return self._cursor.fetchone()
+        except sqlite3.Error as exc:
+            raise StoreError(_explain(self._path, exc)) from None
+
+    def fetchall(self):
+        try:
+            return self._cursor.fetchall()
+        except sqlite3.Error as exc:
+            raise StoreError(_explain(self._path, exc)) from None
+
+    def __iter__(self):
+        while True:
+            try:
+                row = self._cursor.fetchone()
+            except sqlite3.Error as exc:
+                raise StoreError(_explain(self._path, exc)) from None
+            if row is None:
+                return
+            yield row
+
+
+class _Connection:
+    """The SQLite connection of a Store: every call's failure is a StoreError naming the file."""
+
+    def __init__(self, db, path):
+        self._conn, self._path = db, path
+
+    def execute(self, sql, args=()):
+        try:
+            return _Cursor(self._conn.execute(sql, args), self._path)
+        except sqlite3.Error as exc:
+            doing = "read" if sql.lstrip().upper().startswith(("SELECT", "PRAGMA")) else "write"
+            raise StoreError(_explain(self._path, exc, doing)) from None
+        except OverflowError as exc:  # a Python int past SQLite's 64-bit INTEGER
+            raise StoreError(f"{self._path}: cannot write: {exc}") from None
+
+    def executemany(self, sql, rows):
+        try:
+            return _Cursor(self._conn.executemany(sql, rows), self._path)
+        except sqlite3.Error as exc:
+            raise StoreError(_explain(self._path, exc, "write")) from None
+        except OverflowError as exc:
+            raise StoreError(f"{self._path}: cannot write: {exc}") from None
+
+    @property
+    def in_transaction(self):
+        return self._conn.in_transaction
+
+    def close(self):
+        try:
+            self._conn.close()
+        except sqlite3.Error:  # the last checkpoint failed (full disk): the WAL keeps the data
+            pass
+
+
 #: The first bytes of every SQLite 3 database file (SQLite file format documentation, section 1.3).
 _SQLITE_HEADER = b"SQLite format 3\x00"
 
@@ -175,19 +256,27 @@ class Store:
         try:
             if self.read_only:
                 uri = self.path.resolve().as_uri() + "?mode=ro"
-                self._db = sqlite3.connect(uri, uri=True, timeout=60.0, isolation_level=None,
-                                           check_same_thread=False)
+                raw = sqlite3.connect(uri, uri=True, timeout=60.0, isolation_level=None, check_same_thread=False)
             else:
-                self._db = sqlite3.connect(self.path, timeout=60.0, isolation_level=None)
+                raw = sqlite3.connect(self.path, timeout=60.0, isolation_level=None)
+            self._db = _Connection(raw, self.path)
         except sqlite3.Error as exc:
             raise StoreError(f"{self.path}: cannot open: {exc}") from None
         try:
             self._open()
-        except sqlite3.DatabaseError as exc:
+        except StoreError as exc:
             self._db.close()
-            raise StoreError(f"{self.path}: not a palette store ({exc})") from None
-        except StoreError:
-            self._db.close()
+            cause = str(exc)
+            if exists and ("unable to open" in cause or "readonly" in cause or "read-only" in cause):
+                folder = self.path.parent if str(self.path.parent) else "."
+                if not os.access(folder, os.W_OK) or not os.access(self.path, os.W_OK):
+                    raise StoreError(
+                        f"{self.path}: cannot open the store: its folder or file is read-only, and SQLite "
+                        f"must write {self.path.name}-wal and {self.path.name}-shm beside it even to read; "
+                        f"copy it to a writable folder"
+                    ) from None
+            if "file is not a database" in cause:
+                raise StoreError(f"{self.path}: not a palette store (file is not a database)") from None
             raise
 
     @classmethod
@@ -245,10 +334,7 @@ class Store:
             self.db, self.path = db, path
 
         def __enter__(self):
-            try:
-                self.db.execute("BEGIN IMMEDIATE")
-            except sqlite3.Error as exc:
-                raise StoreError(f"{self.path}: cannot write: {exc}") from None
+            self.db.execute("BEGIN IMMEDIATE")
             return self.db
 
         def __exit__(self, kind, value, tb):
@@ -256,18 +342,24 @@ class Store:
                 try:
                     self.db.execute("COMMIT")
                     return False
-                except sqlite3.Error as exc:
+                except StoreError as exc:
                     value = exc
-            self.db.execute("ROLLBACK")
-            if isinstance(value, sqlite3.Error):
-                raise StoreError(f"{self.path}: cannot write: {value}") from None
+            # SQLite may have rolled back by itself (a full disk does): then there is no
+            # transaction left to roll back, and asking would only raise a second error.
+            if self.db.in_transaction:
+                try:
+                    self.db.execute("ROLLBACK")
+                except StoreError:
+                    pass
+            if isinstance(value, StoreError) and kind is None:
+                raise value
             return False
 
     def _transaction(self):
         return Store._Tx(self._db, self.path)
 
     def close(self):
-        """Close the database connection."""
+        """Close the database connection (never raises)."""
         self._db.close()
 
     def __enter__(self):
@@ -479,7 +571,7 @@ class Store:
         have |= {r[0] for r in q("SELECT sha256 FROM failures WHERE settings_key = ?", (settings_key,))}
         return have
 
-    def sync_catalogue(self, catalogue, hashes, settings_key):
+    def sync_catalogue(self, catalogue, hashes, settings_key, max_removal=1.0):
         """Replace the products by ``catalogue``'s, in one transaction.
 
         Parameters
@@ -489,11 +581,18 @@ class Store:
             By absolute image path (``catalogue.image_file(image)``), for every image.
         settings_key : str
             The extraction settings of this run; reading methods use its palettes from now on.
+        max_removal : float
+            Largest share (0..1) of the stored products this catalogue may remove.
 
         Returns
         -------
         int
             Products that were in the store and are not in ``catalogue`` (now removed).
+
+        Raises
+        ------
+        StoreError
+            More than ``max_removal`` of the stored products would go; nothing is changed.
 
         Notes
         -----
@@ -523,6 +622,13 @@ class Store:
         with self._transaction() as db:
             before = {r[0] for r in db.execute("SELECT id FROM products")}
             removed = len(before - {p[0] for p in products})
+            if before and removed > max_removal * len(before):
+                raise StoreError(
+                    f"{self.path}: the catalogue {catalogue.path.name} would remove {removed} of the store's "
+                    f"{len(before)} products ({100.0 * removed / len(before):.0f} %, over the limit of "
+                    f"{100.0 * max_removal:g} %); store left unchanged (a cut-short export? if the removal is "
+                    f"meant, raise the limit with --max-removal PERCENT)"
+                )
             db.execute("DELETE FROM product_images")
             db.execute("DELETE FROM products")
             db.executemany("INSERT INTO products VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)", products)

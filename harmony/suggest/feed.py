@@ -27,7 +27,7 @@ import numpy as np
 from tqdm import tqdm
 
 from harmony.errors import HarmonyError, StoreError
-from harmony.fileio import write_text_whole, write_whole
+from harmony.fileio import spreadsheet_safe_row, write_text_whole, write_whole
 from harmony.photo.palette import Palette
 from harmony.rules.score import (
     PairScore,
@@ -473,7 +473,7 @@ def write_feed(rows, path, fmt=None):
         buf = io.StringIO()
         writer = csv.DictWriter(buf, fieldnames=FEED_COLUMNS)
         writer.writeheader()
-        writer.writerows(records)
+        writer.writerows(spreadsheet_safe_row(rec) for rec in records)
         write_text_whole(path, buf.getvalue(), "feed")
     else:
         _write_parquet_whole(_parquet_table(records), path)

@@ -90,7 +90,9 @@ def test_show_bad_rules_file(runner, tmp_path):
 
 
 def test_show_unwritable_output(runner, tmp_path):
-    out = tmp_path / "missing-dir" / "x.png"
+    # Written like every output (harmony.fileio): a missing folder is made, a file in the way is not.
+    (tmp_path / "a-file").write_text("")
+    out = tmp_path / "a-file" / "x.png"
     result = runner.invoke(main, ["rules", "show", str(DEFAULT_RULES), "--out", str(out)])
     assert result.exit_code == 2 and "cannot write the picture" in result.stderr
 

@@ -114,7 +114,7 @@ def test_changed_image_changed_settings_removed_product(tmp_path):
     assert (back.new, back.cached) == (0, 4)
     lines = csv.read_text().splitlines()
     csv.write_text("\n".join(lines[:3]) + "\n")  # keep P000 and P001
-    smaller = _run(csv, tmp_path / "s.db")
+    smaller = _run(csv, tmp_path / "s.db", max_removal=1.0)  # half the products go, on purpose
     assert (smaller.products, smaller.new) == (2, 0)
     with Store(tmp_path / "s.db") as store:
         assert [p.id for p in store.products()] == ["P000", "P001"]
@@ -224,49 +224,108 @@ def test_unreachable_scheduler(tmp_path, monkeypatch):
         _run(csv, tmp_path / "s.db", engine="dask", scheduler="tcp://127.0.0.1:9")
 
 
+@dataclasses.dataclass(frozen=True)
+class GateSettings:
+    """Settings of :func:`gated_extract`: the first ``free`` images pass, then the worker stops
+    at a gate (it writes its pid to ``<gate>/blocked`` and waits for ``<gate>/open``). Same key
+    as QuadSettings, so a later run with quad_extract reuses what was stored."""
+
+    key: str = "quad-1"
+    free: int = 4
+    gate: str = ""
+
+
+_passed = 0
+
+
+def gated_extract(path, settings):
+    """quad_extract behind a gate: an explicit point where a test knows the run is, with no timing."""
+    global _passed
+    if _passed >= settings.free:
+        gate = Path(settings.gate)
+        (gate / "blocked.tmp").write_text(str(os.getpid()))
+        os.replace(gate / "blocked.tmp", gate / "blocked")
+        while not (gate / "open").exists():
+            time.sleep(0.01)
+    _passed += 1
+    return quad_extract(path, QuadSettings())
+
+
 _CHILD = """
 import sys
 sys.path.insert(0, {tests!r})
-from test_engine import QuadSettings, quad_extract
+from test_engine import GateSettings, gated_extract
 from harmony.shop.engine import run_extraction
-run_extraction({csv!r}, {db!r}, workers=1, chunk_size=2, progress=False,
-               settings=QuadSettings(delay=0.15), extractor=quad_extract)
+run_extraction({csv!r}, {db!r}, workers=1, chunk_size=1, progress=False,
+               settings=GateSettings(free={free}, gate={gate!r}), extractor=gated_extract)
 """
 
 
+def start_gated_run(csv, db, gate, free=4, session=True):
+    """Start an extraction in a child process that stores ``free`` palettes and then waits at the
+    gate; return (process, worker pid) once both have happened. Waits for states, not for time:
+    the run cannot finish before the test kills it or opens the gate."""
+    gate = Path(gate)
+    gate.mkdir(exist_ok=True)
+    code = _CHILD.format(tests=str(TESTS), csv=str(csv), db=str(db), free=free, gate=str(gate))
+    child = subprocess.Popen([sys.executable, "-c", code], start_new_session=session)
+    wait_for(lambda: (gate / "blocked").exists() and stored_palettes(db) == free, child)
+    return child, int((gate / "blocked").read_text())
+
+
+def stored_palettes(db):
+    """Palettes committed in ``db`` as a reader sees them (0 before the schema exists)."""
+    if not Path(db).exists():
+        return 0
+    try:
+        with sqlite3.connect(f"file:{db}?mode=ro", uri=True) as ro:
+            return ro.execute("SELECT COUNT(*) FROM palettes").fetchone()[0]
+    except sqlite3.OperationalError:
+        return 0
+
+
+def wait_for(condition, child=None, limit=120.0):
+    """Poll ``condition`` until it holds; the limit only stops a broken run from hanging the suite."""
+    deadline = time.monotonic() + limit
+    while not condition():
+        if child is not None and child.poll() is not None:
+            raise AssertionError(f"the run ended (status {child.returncode}) before reaching the expected state")
+        if time.monotonic() > deadline:
+            raise AssertionError("the expected state was not reached")
+        time.sleep(0.02)
+
+
+def process_gone(pid):
+    """True once ``pid`` has exited (a zombie waiting to be reaped counts as gone)."""
+    try:
+        with open(f"/proc/{pid}/stat") as handle:
+            return handle.read().rsplit(")", 1)[1].split()[0] in ("Z", "X")
+    except FileNotFoundError:
+        return True
+    except OSError:
+        try:
+            os.kill(pid, 0)
+        except ProcessLookupError:
+            return True
+        return False
+
+
 def test_sigkill_mid_run_leaves_a_valid_store_and_the_next_run_finishes(tmp_path):
-    n = 20
+    n, free = 20, 4
     csv = _shop(tmp_path, n=n, rng=np.random.default_rng(3))
     db = tmp_path / "s.db"
-    code = _CHILD.format(tests=str(TESTS), csv=str(csv), db=str(db))
+    child, _worker = start_gated_run(csv, db, tmp_path / "gate", free=free)
     # A new session, so the kill reaches the run and its pool worker together.
-    child = subprocess.Popen([sys.executable, "-c", code], start_new_session=True)
-    seen = 0
-    try:
-        deadline = time.monotonic() + 30
-        while time.monotonic() < deadline and child.poll() is None:
-            if db.exists():
-                try:
-                    with sqlite3.connect(f"file:{db}?mode=ro", uri=True) as ro:
-                        seen = ro.execute("SELECT COUNT(*) FROM palettes").fetchone()[0]
-                except sqlite3.OperationalError:
-                    seen = 0  # schema not created yet
-                if seen >= 4:
-                    break
-            time.sleep(0.02)
-    finally:
-        if child.poll() is None:
-            os.killpg(child.pid, signal.SIGKILL)
-        child.wait(timeout=10)
-    assert child.returncode == -signal.SIGKILL, "the run ended before it could be killed"
-    assert 4 <= seen < n
+    os.killpg(child.pid, signal.SIGKILL)
+    child.wait(timeout=60)
+    assert child.returncode == -signal.SIGKILL
     with Store(db) as store:
         assert store.integrity() == "ok"
         before = store.counts()
-        assert before["products"] == n and 4 <= before["palettes"] < n
-    # The next run (same settings key, no delay) does exactly the rest.
+        assert before["products"] == n and before["palettes"] == free
+    # The next run (same settings key) does exactly the rest.
     rest = _run(csv, db)
-    assert rest.cached == before["palettes"] and rest.new == n - before["palettes"]
+    assert rest.cached == free and rest.new == n - free
     fresh = _run(csv, tmp_path / "fresh.db")
     with Store(db) as a, Store(tmp_path / "fresh.db") as b:
         assert a.counts() == b.counts() == {"products": n, "images": n, "palettes": n, "failures": 0}
@@ -453,41 +512,27 @@ def test_a_second_extract_is_refused_while_one_runs_and_readers_keep_working(tmp
 
     from harmony.cli import main
 
-    n = 40  # about 6 s of run: room for the checks below even on a loaded machine
+    n, free = 12, 3
     csv = _shop(tmp_path, n=n, rng=np.random.default_rng(4))
     db = tmp_path / "s.db"
     _run(csv, tmp_path / "other.db")  # a finished run on another store holds no lock on this one
-    child = subprocess.Popen(
-        [sys.executable, "-c", _CHILD.format(tests=str(TESTS), csv=str(csv), db=str(db))], start_new_session=True
-    )
+    child, _worker = start_gated_run(csv, db, tmp_path / "gate", free=free)
     runner = CliRunner()
     try:
-        deadline = time.monotonic() + 30
-        seen = 0
-        while time.monotonic() < deadline and child.poll() is None and seen < 2:
-            if db.exists():
-                try:
-                    with sqlite3.connect(f"file:{db}?mode=ro", uri=True) as ro:
-                        seen = ro.execute("SELECT COUNT(*) FROM palettes").fetchone()[0]
-                except sqlite3.OperationalError:
-                    seen = 0  # schema not created yet
-            time.sleep(0.02)
-        assert child.poll() is None and seen >= 2, "the run ended before the checks"
         second = runner.invoke(main, ["extract", str(csv), "--workers", "1", "--db", str(db)])
         assert second.exit_code == 2
         assert second.stderr == f"error: {db}: another extract is writing this store; try again when it ends\n"
         # WAL (SQLite documentation, "Write-Ahead Logging"): readers are not blocked by the writer.
         export = runner.invoke(main, ["palettes", "--db", str(db)])
         assert export.exit_code == 0, export.output
-        assert 2 <= len(export.stdout.splitlines()) < n
+        assert len(export.stdout.splitlines()) == free
     finally:
-        if child.poll() is None:
-            os.killpg(child.pid, signal.SIGKILL)
-        child.wait(timeout=10)
-    assert child.returncode == -signal.SIGKILL, "the run ended before it could be killed"
+        os.killpg(child.pid, signal.SIGKILL)
+        child.wait(timeout=60)
+    assert child.returncode == -signal.SIGKILL
     # The lock went with the killed process: the next run takes it and finishes the rest.
     rest = _run(csv, db)
-    assert rest.new + rest.cached == n and rest.new > 0
+    assert (rest.new, rest.cached) == (n - free, free)
 
 
 def test_extract_on_a_new_store_while_the_lock_is_held_writes_nothing(tmp_path):
@@ -569,7 +614,8 @@ def test_strict_exits_1_when_a_product_has_no_palette_after_storing_everything(t
     lenient = runner.invoke(main, ["extract", str(csv), "--workers", "1", "--db", str(db)])
     assert lenient.exit_code == 0, lenient.output
     csv.write_text("\n".join(csv.read_text().splitlines()[:-1]) + "\n")  # drop the broken product
-    clean = runner.invoke(main, ["extract", str(csv), "--workers", "1", "--db", str(db), "--strict"])
+    clean = runner.invoke(main, ["extract", str(csv), "--workers", "1", "--db", str(db), "--strict",
+                                 "--max-removal", "100"])
     assert clean.exit_code == 0, clean.output
     assert "0 without palette, 1 removed" in clean.stdout
 
@@ -579,7 +625,12 @@ def test_a_truncated_catalogue_reports_the_removed_products(tmp_path):
     first = _run(csv, tmp_path / "s.db")
     assert first.removed == 0 and ", 0 removed, " in first.line()
     csv.write_text("\n".join(csv.read_text().splitlines()[:3]) + "\n")  # header and two rows
-    cut = _run(csv, tmp_path / "s.db")
+    with pytest.raises(StoreError, match=r"s\.db: the catalogue shop\.csv would remove 4 of the store's 6 "
+                                         r"products \(67 %, over the limit of 20 %\); store left unchanged"):
+        _run(csv, tmp_path / "s.db")
+    with Store(tmp_path / "s.db") as store:
+        assert len(store) == 6
+    cut = _run(csv, tmp_path / "s.db", max_removal=0.7)
     assert (cut.products, cut.removed, cut.new, cut.cached) == (2, 4, 0, 2)
     assert cut.line().startswith("2 products, 2 images: ") and ", 4 removed, " in cut.line()
     assert cut.to_dict()["removed"] == 4
