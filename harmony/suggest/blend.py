@@ -34,7 +34,7 @@ from pathlib import Path
 import numpy as np
 
 from harmony.errors import HarmonyError
-from harmony.fileio import write_text_whole
+from harmony.fileio import spreadsheet_safe_row, write_text_whole
 from harmony.shop.catalogue import normalise_category
 
 __all__ = [
@@ -330,7 +330,7 @@ def write_records(rows, path, columns, fmt=None, what="feed"):
         buf = io.StringIO()
         writer = csv.DictWriter(buf, fieldnames=columns, lineterminator="\n")
         writer.writeheader()
-        writer.writerows(records)
+        writer.writerows(spreadsheet_safe_row(rec) for rec in records)  # formula cells neutralised
         text = buf.getvalue()
     return write_text_whole(path, text, what)
 
