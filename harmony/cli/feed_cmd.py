@@ -79,17 +79,28 @@ def warn_unmatched_pairs(rule_sets, categories):
 # --- end issue 18 ---
 @click.option("--curation", "curation_path", type=click.Path(dir_okay=False), default=None, metavar="FILE",
               help=CURATION_HELP)
+@click.option("--engine", type=click.Choice(["local", "dask"]), default="local", show_default=True,
+              help="Where the category pairs are scored: this process, or a Dask cluster.")
+@click.option("--scheduler", default=None, metavar="ADDR",
+              help="Dask scheduler address (tcp://host:8786); without it --engine dask starts a local cluster.")
+@click.option("--workers", type=click.IntRange(1, 1024), default=None,
+              help="Worker processes of the local Dask cluster (default 2).")
 def feed(db, rules_path, top, targets, diversity, fmt, out, progress, blend, blend_weight, similar,
-         curation_path):
+         curation_path, engine, scheduler, workers):
     """Write the cross-sell feed: each product's best partners in the other categories.
 
     Out-of-stock partners are left out. Each row holds product, category, partner,
     partner_category, rank, score, a one-sentence reason and whether a curation file pinned it.
     The rules and curation files that made the feed are recorded beside it in FEED.about.json.
+    Rows are written one category pair at a time, grouped by category pair, then by product
+    and rank (with --blend, --similar or a partner-category limit: by product).
     """
     from harmony.rules import load_rules
     from harmony.shop.store import Store
-    from harmony.suggest.feed import build_feed, write_feed
+    from harmony.suggest.feed import build_feed, write_feed, write_feed_stream
+
+    if scheduler is not None and engine != "dask":
+        raise HarmonyError("--scheduler needs --engine dask")
     rules = load_rules(rules_path)
     target_list = None
     if targets is not None:
@@ -100,12 +111,19 @@ def feed(db, rules_path, top, targets, diversity, fmt, out, progress, blend, ble
         if progress is None:
             progress = sys.stderr.isatty()
         curation = load_curation_for(curation_path, store)
-        rows = build_feed(store, rules, top=top, targets=target_list, diversity=diversity, warn=_warn,
-                          progress=progress, curation=curation)
-        warn_unmatched_pairs(rules, store.categories())
-        # --- issue 18: blend and look-alike hook ---
         extended = blend is not None or similar
-        if extended:
+        if not extended:
+            # The feed as it is made, one category pair at a time (memory: one pair).
+            path, count, products = write_feed_stream(
+                store, rules, out, fmt, top=top, targets=target_list, diversity=diversity, warn=_warn,
+                progress=progress, engine=engine, scheduler=scheduler, workers=workers, curation=curation,
+            )
+            warn_unmatched_pairs(rules, store.categories())
+        else:
+            rows = build_feed(store, rules, top=top, targets=target_list, diversity=diversity, warn=_warn,
+                              progress=progress, curation=curation)
+            warn_unmatched_pairs(rules, store.categories())
+            # --- issue 18: blend and look-alike hook ---
             from harmony.suggest.blend import BLEND_COLUMNS, blend_from_store, read_candidates
             from harmony.suggest.lookalike import similar_rows
 
@@ -113,23 +131,21 @@ def feed(db, rules_path, top, targets, diversity, fmt, out, progress, blend, ble
                 rows = blend_from_store(store, rules, rows, read_candidates(blend), blend_weight, top)
             if similar:
                 rows = list(rows) + similar_rows(store, top=top, progress=progress)[0]
-        # --- end issue 18 ---
-    if not rows:
-        raise HarmonyError(
-            f"{db}: no feed rows: the rules pair none of the store's categories with an in-stock target"
-        )
-    if extended:  # issue 18: rows with extra columns (relation, blend inputs)
-        from harmony.suggest.blend import write_records
+            # --- end issue 18 ---
+    if extended:
+        if not rows:
+            raise HarmonyError(
+                f"{db}: no feed rows: the rules pair none of the store's categories with an in-stock target"
+            )
+        from harmony.suggest.blend import write_records  # issue 18: rows with extra columns
 
         path = write_records(rows, out, BLEND_COLUMNS, fmt)
-    else:
-        path = write_feed(rows, out, fmt)
+        count, products = len(rows), len({r.product for r in rows})
     from harmony.suggest.provenance import write_provenance
 
     if not is_stdout(out):  # a feed on standard output has no file to sit beside
         write_provenance(path, rules_path, curation_path)
-    products = len({r.product for r in rows})
-    click.echo(f"wrote {len(rows)} rows for {products} products to {path}", err=is_stdout(out))
+    click.echo(f"wrote {count} rows for {products} products to {path}", err=is_stdout(out))
 
 
 @main.command("suggest")

@@ -1,8 +1,6 @@
 """The earth mover's distance between weighted palettes in CAM02-UCS (Rubner, Tomasi & Guibas 2000)."""
 
 import numpy as np
-from scipy import sparse
-from scipy.optimize import linprog
 
 __all__ = ["emd_one_to_many", "emd"]
 
@@ -22,7 +20,7 @@ def _signature(jab, weights, name):
     return jab, w / total
 
 
-def emd_one_to_many(jab_a, weights_a, others, chunk=64):
+def emd_one_to_many(jab_a, weights_a, others, chunk=None):
     """Earth mover's distance from one weighted palette to each of several (Rubner et al. 2000).
 
     Parameters
@@ -33,8 +31,8 @@ def emd_one_to_many(jab_a, weights_a, others, chunk=64):
         Their weights (normalised to sum 1 here).
     others : sequence of (jab (m, 3), weights (m,))
         The palettes to compare with.
-    chunk : int
-        Palettes solved together in one linear programme.
+    chunk : None
+        Kept for callers of the earlier linear-programming version; unused.
 
     Returns
     -------
@@ -46,42 +44,54 @@ def emd_one_to_many(jab_a, weights_a, others, chunk=64):
     -----
     Both signatures are normalised to total weight 1, so every unit of weight moves and the EMD
     is a metric (Rubner et al. 2000, section 4.1). Each transportation problem is solved exactly
-    by the HiGHS solver through ``scipy.optimize.linprog``; several problems share one call as
-    independent blocks of one programme, whose optimum is the sum of the blocks' optima, so each
-    block's cost is its own optimum.
+    by the network simplex of POT (``ot.emd2``, Flamary et al. 2021; the algorithm of Bonneel et
+    al. 2011), tens of microseconds for palettes of ten colours; the ground distances of all
+    palettes come from one broadcast.
+
+    References
+    ----------
+    R. Flamary et al. (2021). POT: Python Optimal Transport. JMLR 22(78):1-8.
+    N. Bonneel, M. van de Panne, S. Paris, W. Heidrich (2011). Displacement interpolation using
+        Lagrangian mass transport. ACM Trans. Graphics 30(6):158.
     """
+    solve = _solver()
     a, wa = _signature(jab_a, weights_a, "first palette")
     sigs = [_signature(j, w, f"palette {i}") for i, (j, w) in enumerate(others)]
     out = np.empty(len(sigs))
-    n = a.shape[0]
-    for lo in range(0, len(sigs), max(1, int(chunk))):
-        block = sigs[lo : lo + max(1, int(chunk))]
-        costs, rows, cols, rhs, owners = [], [], [], [], []
-        var = con = 0
-        for j, (b, wb) in enumerate(block):
-            m = b.shape[0]
-            cost = np.sqrt(((a[:, None, :] - b[None, :, :]) ** 2).sum(axis=-1)).ravel()
-            idx = var + np.arange(n * m)
-            # Row sums: flow leaving colour i of the first palette equals its weight.
-            rows.append(con + np.repeat(np.arange(n), m))
-            cols.append(idx)
-            # Column sums: flow arriving at colour l of the other palette equals its weight.
-            rows.append(con + n + np.tile(np.arange(m), n))
-            cols.append(idx)
-            rhs += [wa, wb]
-            costs.append(cost)
-            owners.append(np.full(n * m, j))
-            var += n * m
-            con += n + m
-        r = np.concatenate(rows)
-        c = np.concatenate(cols)
-        a_eq = sparse.csr_array((np.ones(r.size), (r, c)), shape=(con, var))
-        objective = np.concatenate(costs)
-        result = linprog(objective, A_eq=a_eq, b_eq=np.concatenate(rhs), bounds=(0, None), method="highs")
-        if result.status != 0:  # cannot happen for balanced transport problems; never return a guess
-            raise RuntimeError(f"transport problem not solved: {result.message}")
-        out[lo : lo + len(block)] = np.bincount(np.concatenate(owners), weights=objective * result.x, minlength=len(block))
+    if not sigs:
+        return out
+    sizes = np.array([b.shape[0] for b, _ in sigs])
+    every = np.concatenate([b for b, _ in sigs])
+    cost = np.sqrt(((a[:, None, :] - every[None, :, :]) ** 2).sum(axis=-1))
+    at = 0
+    for t, ((b, wb), m) in enumerate(zip(sigs, sizes.tolist())):
+        # Renormalised once more so both sums agree to the last bit, as the solver checks.
+        out[t] = solve(wa, wb / wb.sum() * wa.sum(), np.ascontiguousarray(cost[:, at : at + m]))
+        at += m
     return out
+
+
+#: Iteration cap of the network simplex (POT's default for ``ot.emd``).
+MAX_ITERATIONS = 100_000
+
+
+def _solver():
+    """POT's network simplex: its compiled core when present (``ot.emd2`` spends most of its
+    time for a 10 x 10 problem checking its arguments), else ``ot.emd2`` itself."""
+    try:
+        from ot.lp.emd_wrap import emd_c
+    except ImportError:  # a POT that moved its core: the public function gives the same optimum
+        import ot
+
+        return lambda wa, wb, cost: float(ot.emd2(wa, wb, cost, numItermax=MAX_ITERATIONS))
+
+    def solve(wa, wb, cost):
+        _, value, _, _, code = emd_c(wa, wb, cost, MAX_ITERATIONS, 1)
+        if code != 1:  # 1 is OPTIMAL; a balanced transport problem always has an optimum
+            raise RuntimeError(f"transport problem not solved (network simplex code {code})")
+        return float(value)
+
+    return solve
 
 
 def emd(jab_a, weights_a, jab_b, weights_b):

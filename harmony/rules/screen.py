@@ -39,6 +39,7 @@ from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
+from threadpoolctl import threadpool_limits
 
 from harmony.colour.neutral import NEUTRAL_COLOURFULNESS, NEUTRAL_FADE, neutrality
 from harmony.photo.palette import Palette
@@ -55,6 +56,7 @@ __all__ = [
     "FULL_SVD_SIZE",
     "screen_scores",
     "top_k_blocked",
+    "SAMPLE_COLUMNS",
     "exact_raw",
     "exact_raw_candidates",
     "pairwise_form",
@@ -450,7 +452,13 @@ def low_rank(k, rank_tol=1e-6, rng=None, sketch=128):
     k = np.asarray(k, dtype=float)
     n, m = k.shape
     small = min(n, m)
+    with threadpool_limits(limits=1):
+        return _low_rank(k, rank_tol, rng, sketch, n, m, small)
 
+
+def _low_rank(k, rank_tol, rng, sketch, n, m, small):
+    # Small factorisations run on one BLAS thread: on a busy machine a second thread makes them
+    # 2-10 times slower, and one thread gives the same numbers on every machine size.
     def keep(sv):
         return max(1, int(np.count_nonzero(sv > rank_tol * sv[0]))) if sv[0] > 0 else 1
 
@@ -481,7 +489,23 @@ def screen_scores(palettes_a, palettes_b, kernel, grid=BinGrid(), rank_tol=1e-6)
     return prep.q.astype(float) @ prep.hb.astype(float)
 
 
-def top_k_blocked(q, hb, k, block=2048):
+#: Columns sampled from each row to set the selection threshold of :func:`top_k_blocked`.
+SAMPLE_COLUMNS = 512
+
+
+def _row_threshold(q, hb, k, sample):
+    """A lower bound of each row's k-th largest score: the k-th largest over a column sample."""
+    n_b = hb.shape[1]
+    if n_b <= sample:
+        cols = slice(None)
+    else:
+        cols = np.linspace(0, n_b - 1, sample).astype(np.int64)
+    s = q @ hb[:, cols]
+    width = s.shape[1]
+    return np.partition(s, width - k, axis=1)[:, width - k]
+
+
+def top_k_blocked(q, hb, k, block=2048, sample=SAMPLE_COLUMNS):
     """Indices of the k largest entries of each row of ``q @ hb``, computed tile by tile.
 
     Parameters
@@ -491,13 +515,22 @@ def top_k_blocked(q, hb, k, block=2048):
     k : int
         Clipped to n_b.
     block : int
-        Tile side: at most ``block x block`` scores exist at any time, plus a running
-        ``block x 2k`` buffer of candidates.
+        Tile side: at most ``block x block`` scores exist at any time, plus the entries that
+        pass each row's threshold.
+    sample : int
+        Columns sampled per row to set its threshold (see Notes).
 
     Returns
     -------
     indices : ndarray of int64, shape (n_a, min(k, n_b))
-        Unordered within a row (ties at the k-th value are broken arbitrarily).
+        Best first; ties at equal scores to the lower column.
+
+    Notes
+    -----
+    Exact, without partitioning every row: the k-th largest score over any subset of a row's
+    columns is at most the k-th largest over the whole row, so every entry of the row's top-k is
+    at least that threshold. Each tile keeps only the entries at or above their row's threshold
+    (about ``k * n_b / sample`` per row), and those few are sorted.
     """
     block = int(block)
     if block < 1:
@@ -507,30 +540,37 @@ def top_k_blocked(q, hb, k, block=2048):
     out = np.empty((n_a, k), dtype=np.int64)
     if k == 0 or n_a == 0:
         return out
+    sample = max(int(sample), k)
     for r0 in range(0, n_a, block):
         qr = q[r0 : r0 + block]
-        best_val = best_idx = None
+        rows_here = qr.shape[0]
+        floor = _row_threshold(qr, hb, k, sample)[:, None]
+        hit_rows, hit_cols, hit_vals = [], [], []
         for c0 in range(0, n_b, block):
             s = qr @ hb[:, c0 : c0 + block]
-            width = s.shape[1]
-            if width > k:
-                part = np.argpartition(s, width - k, axis=1)[:, width - k :]
-                vals = np.take_along_axis(s, part, axis=1)
-            else:
-                part = np.broadcast_to(np.arange(width), s.shape)
-                vals = s
-            idx = part + c0
-            if best_val is None:
-                best_val, best_idx = vals, idx
-                continue
-            vals = np.concatenate([best_val, vals], axis=1)
-            idx = np.concatenate([best_idx, idx], axis=1)
-            if vals.shape[1] > k:
-                keep = np.argpartition(vals, vals.shape[1] - k, axis=1)[:, vals.shape[1] - k :]
-                vals = np.take_along_axis(vals, keep, axis=1)
-                idx = np.take_along_axis(idx, keep, axis=1)
-            best_val, best_idx = vals, idx
-        out[r0 : r0 + qr.shape[0]] = best_idx
+            flat = np.flatnonzero(s >= floor)  # much faster than a 2-D nonzero
+            r, c = np.divmod(flat, s.shape[1])
+            hit_rows.append(r)
+            hit_cols.append(c + c0)
+            hit_vals.append(s.ravel()[flat])
+        r = np.concatenate(hit_rows)
+        c = np.concatenate(hit_cols)
+        v = np.concatenate(hit_vals)
+        short = np.flatnonzero(np.bincount(r, minlength=rows_here) < k)
+        if short.size:
+            # The sample's product may round a score a hair above the tile's; such rows (rare)
+            # are selected from their whole row instead.
+            keep = ~np.isin(r, short)
+            s = qr[short] @ hb
+            rr = np.repeat(short, n_b)
+            r = np.concatenate([r[keep], rr])
+            c = np.concatenate([c[keep], np.tile(np.arange(n_b), short.size)])
+            v = np.concatenate([v[keep], s.ravel()])
+        order = np.lexsort((c, -v, r))
+        r, c = r[order], c[order]
+        start = np.searchsorted(r, np.arange(rows_here))
+        # Every row now has at least k hits, so its first k after sorting are its top-k.
+        out[r0 : r0 + rows_here] = c[start[:, None] + np.arange(k)]
     return out
 
 

@@ -13,30 +13,32 @@ A. Gretton, K. M. Borgwardt, M. J. Rasch, B. Schoelkopf, A. Smola (2012). A kern
     Journal of Machine Learning Research 13:723-773 (kernel mean embeddings of distributions).
 """
 
-import csv
-import difflib
-import io
-import itertools
-import json
-import warnings
 import dataclasses
-from dataclasses import asdict, dataclass
+import difflib
+import itertools
+import warnings
+from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
 import numpy as np
 from tqdm import tqdm
 
+from harmony import colour
 from harmony.errors import HarmonyError, StoreError
-from harmony.fileio import spreadsheet_safe_row, write_text_whole, write_whole
 from harmony.photo.palette import Palette
+from threadpoolctl import threadpool_limits
+
 from harmony.rules.score import (
+    ColourLabels,
     PairScore,
-    colour_labels,
+    colour_name,
     pair_score,
-    pair_scores,
+    scores_and_reasons,
     to_unit,
 )
 from harmony.rules.screen import BinGrid, PaletteStack, exact_raw, screen_top_k
+from harmony.rules.screen_pairs import screen_both_ways
+from harmony.suggest.feedwriter import FEED_COLUMNS, FEED_FORMATS, FeedChunk, feed_format, write_chunks
 from harmony.shop.catalogue import normalise_category
 from harmony.suggest.curation import category_pair_allowed, curate, curate_rows, limit_partner_categories
 
@@ -51,15 +53,16 @@ __all__ = [
     "similarity_matrix",
     "mmr_select",
     "build_feed",
+    "FeedPlan",
+    "plan_feed",
+    "category_entry",
+    "finalise_partners",
+    "task_chunks",
+    "feed_chunks",
+    "write_feed_stream",
     "suggest",
     "write_feed",
 ]
-
-#: Feed columns, in file order (the JSONL keys, CSV header and Parquet schema).
-FEED_COLUMNS = ("product", "category", "partner", "partner_category", "rank", "score", "reason", "pinned")
-
-#: Output formats of :func:`write_feed`, by file suffix.
-FEED_FORMATS = {".jsonl": "jsonl", ".ndjson": "jsonl", ".csv": "csv", ".parquet": "parquet"}
 
 #: Length scale (CAM02-UCS Delta E) of the Gaussian colour kernel behind palette similarity.
 #: Hand-set: about ten just-noticeable differences (a JND is about 1 Delta E in CAM02-UCS, Luo,
@@ -206,6 +209,237 @@ def _sides(store):
     return by_cat, palettes
 
 
+@dataclass(frozen=True, eq=False)
+class FeedPlan:
+    """What a feed run scores: checked options and, per category, its products and palettes.
+
+    Attributes
+    ----------
+    top, pool_size : int
+        Partners listed, and candidates MMR chooses from (``top`` without diversity).
+    diversity : float
+    categories : dict of str to (list of str, PaletteStack, ndarray of int, ndarray of int)
+        Per normalised category: the ids of its products with a palette (sorted by id), their
+        palettes, the positions of the in-stock ones (the partners it offers) and the number of
+        colours of each palette.
+    tasks : list of (str, str, bool, bool)
+        ``(a, b, a_to_b, b_to_a)`` per unordered category pair (a < b), in file order: which
+        directions are listed.
+    labels : dict
+        ColourLabels per category, made on first use.
+    curation : harmony.suggest.curation.Curation or None
+        Pins, blocks, floors and category pairs applied to each (product, partner category) list.
+    """
+
+    top: int
+    pool_size: int
+    diversity: float
+    categories: dict
+    tasks: list
+    labels: dict = field(default_factory=dict, repr=False)
+    curation: object = None
+
+
+def plan_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, warn=None, curation=None):
+    """Check the options and gather the palettes of a feed run (see :func:`feed_chunks`)."""
+    top = int(top)
+    if top < 1:
+        raise HarmonyError(f"top must be at least 1, got {top}")
+    if not 0.0 <= float(diversity) <= 1.0:
+        raise HarmonyError(f"diversity must lie in [0, 1], got {diversity!r}")
+    by_cat, palettes = _sides(store)
+    known = sorted(by_cat)
+    if targets is None:
+        target_keys = known
+    else:
+        target_keys = sorted({_resolve_category(t, known, str(store.path)) for t in targets})
+        if not target_keys:
+            raise HarmonyError("no target categories given")
+    pool_size = top if diversity == 0 else max(top, 3 * top if pool is None else int(pool))
+    if curation is not None:  # curation: candidates for the rows that blocks and floors remove
+        pool_size += len(curation.blocks)
+    categories = {}
+    for cat in known:
+        categories[cat] = category_entry(by_cat[cat], palettes)
+        instock = categories[cat][2]
+        if cat in target_keys and not instock.size:
+            _warn(warn, f"target category '{cat}' has no in-stock product with a palette; it gets no rows")
+    missing = sum(1 for p in store.products() if p.id not in palettes)
+    if missing:
+        _warn(warn, f"{missing} product(s) have no palette and are left out (see 'harmony extract' failures)")
+    work = {(a, b) for a in known for b in target_keys if b != a and rules.pairs_with(a, b)
+            and category_pair_allowed(curation, a, b)}  # curation: category pairs
+    if targets is not None:
+        for cat in sorted(set(target_keys) - {b for _, b in work}):
+            _warn(warn, f"{rules.path}: the rules pair target category '{cat}' with no other category; it gets no rows")
+    tasks = sorted({(min(a, b), max(a, b)) for a, b in work})
+    tasks = [(a, b, (a, b) in work, (b, a) in work) for a, b in tasks]
+    return FeedPlan(top, pool_size, float(diversity), categories, tasks, curation=curation)
+
+
+def category_entry(products, palettes):
+    """One entry of :attr:`FeedPlan.categories`: (ids, PaletteStack, in-stock positions, sizes)
+    of the ``products`` that have a palette in ``palettes`` (a dict by id)."""
+    prods = sorted((p for p in products if p.id in palettes), key=lambda p: p.id)
+    ids = [p.id for p in prods]
+    stack = PaletteStack.from_palettes([palettes[i] for i in ids])
+    instock = np.array([n for n, p in enumerate(prods) if p.in_stock()], dtype=np.int64)
+    sizes = np.array([len(palettes[i]) for i in ids], dtype=np.int64)
+    return ids, stack, instock, sizes
+
+
+def _transposes(rules, a, b):
+    """Whether the rules of (b, a) are those of (a, b) with the colours swapped."""
+    listed = ((a, b) in rules.pairs) + ((b, a) in rules.pairs)
+    return listed == 1 or (listed == 0 and rules.for_pair(a, b).symmetric)
+
+
+def finalise_partners(i, cand, raw, stack_b, pair_rules, top, diversity):
+    """The ranked partners of product ``i`` of side a in one partner category: the one place
+    where a (product, partner category) list is final.
+
+    Parameters
+    ----------
+    i : int
+    cand : ndarray of int
+        Best candidates by exact score, best first (indices into the partner stack).
+    raw : ndarray
+        Their exact raw scores.
+    stack_b : PaletteStack
+        The partners' palettes.
+    pair_rules : harmony.rules.PairRules
+    top : int
+    diversity : float
+
+    Returns
+    -------
+    list of int
+        Partner indices in rank order (at most ``top``). Later steps that reorder or filter a
+        product's partners in one category (curation, blending, look-alikes) belong here.
+    """
+    if diversity > 0 and len(cand) > 1:
+        sim = similarity_matrix(PaletteStack(stack_b.jab[cand], stack_b.weights[cand]))
+        return [int(cand[c]) for c in mmr_select(to_unit(raw, pair_rules), sim, top, diversity)]
+    return [int(j) for j in cand[:top]]
+
+
+def _labels(plan, cat, threshold):
+    """ColourLabels of every palette of a category, made once per run (one colour conversion)."""
+    key = (cat, float(threshold))
+    got = plan.labels.get(key)
+    if got is None:
+        _, stack, _, sizes = plan.categories[cat]
+        mask = np.arange(stack.jab.shape[1])[None, :] < sizes[:, None]
+        jab = stack.jab[mask]
+        codes = colour.jab_to_hex(jab) if len(jab) else []
+        names = [colour_name(c, threshold) for c in jab]
+        got, at = [], 0
+        for n in sizes.tolist():
+            got.append(ColourLabels(tuple(codes[at : at + n]), tuple(names[at : at + n]), float(threshold)))
+            at += n
+        plan.labels[key] = got
+    return got
+
+
+def _direction_chunk(plan, x, y, res, pair_rules):
+    """The FeedChunk of products of ``x`` with partners of ``y`` from their screen result."""
+    ids_x, stack_x, _, sizes_x = plan.categories[x]
+    ids_y, stack_y, in_y, sizes_y = plan.categories[y]
+    sub = PaletteStack(stack_y.jab[in_y], stack_y.weights[in_y])
+    prod_i, part_j, ranks = [], [], []
+    extra = 0 if plan.curation is None else len(plan.curation.blocks)  # curation: room for blocked partners
+    for i in range(len(ids_x)):
+        chosen = finalise_partners(i, res.indices[i], res.raw[i], sub, pair_rules, plan.top + extra, plan.diversity)
+        prod_i.extend([i] * len(chosen))
+        part_j.extend(int(in_y[j]) for j in chosen)
+        ranks.extend(range(1, len(chosen) + 1))
+    t = pair_rules.neutral_threshold
+    scores, reasons = scores_and_reasons(
+        stack_x, stack_y, np.array(prod_i, dtype=np.int64), np.array(part_j, dtype=np.int64), pair_rules,
+        labels_a=_labels(plan, x, t), labels_b=_labels(plan, y, t),
+    )
+    chunk = FeedChunk(x, y, [ids_x[i] for i in prod_i], [ids_y[j] for j in part_j], ranks,
+                      scores.tolist(), reasons, [False] * len(prod_i))
+    if plan.curation is not None:  # curation: blocks, floors, pins
+        rows = [FeedRow(**rec) for rec in chunk.records()]
+        rows = curate_rows(plan.curation, rows, y, _pin_scorer(plan, x, y, pair_rules), plan.top)
+        chunk = FeedChunk(x, y, [r.product for r in rows], [r.partner for r in rows], [r.rank for r in rows],
+                          [r.score for r in rows], [r.reason for r in rows], [r.pinned for r in rows])
+    return chunk
+
+
+class _Colours:
+    """A palette's colours and shares as :func:`pair_score` reads them."""
+
+    def __init__(self, jab, weights):
+        self.jab, self.weights = jab, weights
+
+
+def _pin_scorer(plan, x, y, pair_rules):
+    """``score_of(product, partner)`` for curation pins: the scored row, or None when unavailable."""
+    ids_x, stack_x, _, sizes_x = plan.categories[x]
+    ids_y, stack_y, in_y, sizes_y = plan.categories[y]
+    pos_x = {pid: n for n, pid in enumerate(ids_x)}
+    pos_y = {ids_y[j]: int(j) for j in in_y}
+
+    def colours(stack, sizes, n):
+        return _Colours(stack.jab[n, : sizes[n]], stack.weights[n, : sizes[n]])
+
+    def score_of(pid, partner):
+        j = pos_y.get(partner)
+        if j is None:
+            return None
+        i = pos_x[pid]
+        ps = pair_score(colours(stack_x, sizes_x, i), colours(stack_y, sizes_y, j), pair_rules)
+        return FeedRow(pid, x, partner, y, 0, float(ps.score), ps.reason)
+
+    return score_of
+
+
+def task_chunks(plan, rules, task):
+    """The FeedChunks of one unordered category pair ``task`` (a to b first, then b to a)."""
+    a, b, ab, ba = task
+    _, stack_a, in_a, _ = plan.categories[a]
+    _, stack_b, in_b, _ = plan.categories[b]
+    pr_ab, pr_ba = rules.for_pair(a, b), rules.for_pair(b, a)
+    grid = BinGrid(neutral_threshold=pr_ab.neutral_threshold, neutral_fade=pr_ab.neutral_fade)
+    if ab and ba and _transposes(rules, a, b):
+        res_ab, res_ba = screen_both_ways(stack_a, stack_b, pr_ab, pr_ba, k=plan.pool_size,
+                                          partners_a=in_a, partners_b=in_b, grid=grid,
+                                          exact_below=EXACT_PAIRS)
+        results = [(a, b, res_ab, pr_ab), (b, a, res_ba, pr_ba)]
+    else:
+        results = []
+        for on, x, y, pr in ((ab, a, b, pr_ab), (ba, b, a, pr_ba)):
+            _, stack_x, _, _ = plan.categories[x]
+            _, stack_y, in_y, _ = plan.categories[y]
+            if on and len(in_y) and len(stack_x):
+                sub = PaletteStack(stack_y.jab[in_y], stack_y.weights[in_y])
+                res = screen_top_k(stack_x, sub, pr, k=plan.pool_size, grid=grid, exact_below=EXACT_PAIRS)
+                results.append((x, y, res, pr))
+    out = []
+    for x, y, res, pr in results:
+        if len(plan.categories[x][0]) and len(plan.categories[y][2]):
+            out.append(_direction_chunk(plan, x, y, res, pr))
+    return out
+
+
+def feed_chunks(plan, rules, *, progress=False):
+    """The feed as FeedChunks, one ordered category pair at a time, in file order."""
+    for task in tqdm(plan.tasks, desc="feed", unit="category pair", disable=not progress, leave=False):
+        with threadpool_limits(limits=1):
+            yield from task_chunks(plan, rules, task)
+
+
+def _has_rows(plan):
+    cats = plan.categories
+    return any(
+        on and len(cats[x][0]) and len(cats[y][2])
+        for a, b, ab, ba in plan.tasks
+        for on, x, y in ((ab, a, b), (ba, b, a))
+    )
+
+
 def build_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, warn=None, progress=False,
                curation=None):
     """The feed: for each product, its top partners in each category the rules pair it with.
@@ -232,85 +466,16 @@ def build_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, 
     Returns
     -------
     list of FeedRow
-        Sorted by product id, partner category, rank.
+        Sorted by product id, partner category, rank. Holds the whole feed in memory: a file
+        is better written by :func:`write_feed_stream`, one category pair at a time.
 
     Raises
     ------
     StoreError
         Empty store, no palettes, or an unknown target category.
     """
-    top = int(top)
-    if top < 1:
-        raise HarmonyError(f"top must be at least 1, got {top}")
-    if not 0.0 <= float(diversity) <= 1.0:
-        raise HarmonyError(f"diversity must lie in [0, 1], got {diversity!r}")
-    by_cat, palettes = _sides(store)
-    known = sorted(by_cat)
-    if targets is None:
-        target_keys = known
-    else:
-        target_keys = sorted({_resolve_category(t, known, str(store.path)) for t in targets})
-        if not target_keys:
-            raise HarmonyError("no target categories given")
-    pool_size = top if diversity == 0 else max(top, 3 * top if pool is None else int(pool))
-    if curation is not None:  # curation: candidates for the rows that blocks and floors remove
-        pool_size += len(curation.blocks)
-
-    partners = {}
-    for cat in target_keys:
-        ids = [p.id for p in by_cat[cat] if p.in_stock() and p.id in palettes]
-        if not ids:
-            _warn(warn, f"target category '{cat}' has no in-stock product with a palette; it gets no rows")
-        partners[cat] = ids
-    missing = sum(1 for p in store.products() if p.id not in palettes)
-    if missing:
-        _warn(warn, f"{missing} product(s) have no palette and are left out (see 'harmony extract' failures)")
-
-    labels = {}
-
-    def labels_of(pid, threshold):
-        key = (pid, threshold)
-        if key not in labels:
-            labels[key] = colour_labels(palettes[pid].jab, threshold)
-        return labels[key]
-
-    work = [(a, b) for a in known for b in target_keys if b != a and rules.pairs_with(a, b)
-            and category_pair_allowed(curation, a, b)]  # curation: category pairs
-    extra = 0 if curation is None else len(curation.blocks)  # curation: room for blocked partners
-    if targets is not None:
-        for cat in sorted(set(target_keys) - {b for _, b in work}):
-            _warn(warn, f"{rules.path}: the rules pair target category '{cat}' with no other category; it gets no rows")
-    rows = []
-    for cat_a, cat_b in tqdm(work, desc="feed", unit="category pair", disable=not progress, leave=False):
-        ids_a = [p.id for p in by_cat[cat_a] if p.id in palettes]
-        ids_b = partners[cat_b]
-        if not ids_a or not ids_b:
-            continue
-        pr = rules.for_pair(cat_a, cat_b)
-        pals_a = [palettes[i] for i in ids_a]
-        pals_b = [palettes[i] for i in ids_b]
-        grid = BinGrid(neutral_threshold=pr.neutral_threshold, neutral_fade=pr.neutral_fade)
-        res = screen_top_k(pals_a, pals_b, pr, k=pool_size, grid=grid, exact_below=EXACT_PAIRS)
-        t = pr.neutral_threshold
-        emitted = []  # (i, j, rank): explained below, all rows of this pair in one batch
-        for i, pid in enumerate(ids_a):
-            cand = res.indices[i]
-            if diversity > 0 and len(cand) > 1:
-                sim = similarity_matrix([pals_b[j] for j in cand])
-                chosen = [int(cand[c]) for c in mmr_select(to_unit(res.raw[i], pr), sim, top + extra, diversity)]
-            else:
-                chosen = [int(j) for j in cand[:top + extra]]
-            emitted.extend((i, j, rank) for rank, j in enumerate(chosen, start=1))
-        scored = pair_scores(
-            [pals_a[i] for i, _, _ in emitted], [pals_b[j] for _, j, _ in emitted], pr,
-            labels_a=[labels_of(ids_a[i], t) for i, _, _ in emitted],
-            labels_b=[labels_of(ids_b[j], t) for _, j, _ in emitted],
-        )
-        new = [FeedRow(ids_a[i], cat_a, ids_b[j], cat_b, rank, float(ps.score), ps.reason)
-               for (i, j, rank), ps in zip(emitted, scored)]
-        if curation is not None:  # curation: blocks, floors, pins
-            new = curate_rows(curation, new, cat_b, _pin_scorer(palettes, set(ids_b), cat_a, cat_b, pr), top)
-        rows.extend(new)
+    plan = plan_feed(store, rules, top, targets, diversity, pool=pool, warn=warn, curation=curation)
+    rows = [FeedRow(**rec) for chunk in feed_chunks(plan, rules, progress=progress) for rec in chunk.records()]
     rows.sort(key=lambda r: (r.product, r.partner_category, r.rank))
     if curation is not None:  # curation: partner categories per product
         rows = [r for _pid, run in itertools.groupby(rows, key=lambda r: r.product)
@@ -318,15 +483,50 @@ def build_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, 
     return rows
 
 
-def _pin_scorer(palettes, available, cat_a, cat_b, pair_rules):
-    """``score_of(product, partner)`` for curation pins: the scored row, or None when unavailable."""
-    def score_of(pid, partner):
-        if partner not in available:
-            return None
-        ps = pair_score(palettes[pid], palettes[partner], pair_rules)
-        return FeedRow(pid, cat_a, partner, cat_b, 0, float(ps.score), ps.reason)
+def write_feed_stream(store, rules, path, fmt=None, *, top=10, targets=None, diversity=0.0, pool=None,
+                      warn=None, progress=False, engine="local", scheduler=None, workers=None, curation=None):
+    """Build the feed and write it as it is made (see :func:`harmony.suggest.feedwriter.write_chunks`).
 
-    return score_of
+    Rows come grouped by category pair (pairs in sorted order, a to b before b to a), within a
+    pair by product id and rank. Memory holds one category pair at a time. ``engine="dask"``
+    runs the category pairs on a Dask cluster (:mod:`harmony.suggest.feed_dask`) and writes the
+    same bytes. A curation file is applied to each product's list in each category as it is
+    made; its ``max_partner_categories`` needs all of a product's categories at once, so with it
+    the feed is built whole first (:func:`build_feed`) and written in product order.
+
+    Returns
+    -------
+    (pathlib.Path, int, int)
+        The path, the number of rows and the number of products that got rows.
+    """
+    feed_format(path, fmt)
+    if engine not in ("local", "dask"):
+        raise HarmonyError(f"unknown feed engine '{engine}' (use local or dask)")
+    plan = plan_feed(store, rules, top, targets, diversity, pool=pool, warn=warn, curation=curation)
+    if not _has_rows(plan):
+        # Said before the file is touched, so an older feed stays as it was.
+        raise HarmonyError(
+            f"{store.path}: no feed rows: the rules pair none of the store's categories with an in-stock target"
+        )
+    if curation is not None and curation.max_partner_categories is not None:
+        rows = build_feed(store, rules, top, targets, diversity, pool=pool, warn=lambda m: None,
+                          progress=progress, curation=curation)
+        return write_feed(rows, path, fmt), len(rows), len({r.product for r in rows})
+    if engine == "dask":
+        from harmony.suggest.feed_dask import dask_chunks
+
+        chunks = dask_chunks(store.path, rules.path, plan, scheduler=scheduler, workers=workers, progress=progress)
+    else:
+        chunks = feed_chunks(plan, rules, progress=progress)
+    products = set()
+
+    def counted():
+        for chunk in chunks:
+            products.update(chunk.product)
+            yield chunk
+
+    written, rows = write_chunks(counted(), path, fmt)
+    return written, rows, len(products)
 
 
 def suggest(store, rules, product_id, category=None, n=5, curation=None):
@@ -413,46 +613,8 @@ def suggest(store, rules, product_id, category=None, n=5, curation=None):
     return [Suggestion(row=r, pair=pairs[r.partner], palette=palettes[r.partner]) for r in rows]
 
 
-def _format_of(path, fmt):
-    if fmt is not None:
-        if fmt not in ("jsonl", "csv", "parquet"):
-            raise HarmonyError(f"unknown feed format '{fmt}' (use jsonl, csv or parquet)")
-        return fmt
-    suffix = Path(path).suffix.lower()
-    if suffix not in FEED_FORMATS:
-        raise HarmonyError(f"{path}: cannot tell the feed format from the suffix (use .jsonl, .csv or .parquet, or --format)")
-    return FEED_FORMATS[suffix]
-
-
-def _parquet_table(records):
-    try:
-        import pyarrow as pa
-    except ImportError:
-        raise HarmonyError("Parquet output needs pyarrow: pip install 'harmony[parquet]'") from None
-    schema = pa.schema(
-        [
-            ("product", pa.string()),
-            ("category", pa.string()),
-            ("partner", pa.string()),
-            ("partner_category", pa.string()),
-            ("rank", pa.int32()),
-            ("score", pa.float64()),
-            ("reason", pa.string()),
-            ("pinned", pa.bool_()),
-        ]
-    )
-    return pa.table({c: [rec[c] for rec in records] for c in FEED_COLUMNS}, schema=schema)
-
-
-def _write_parquet_whole(table, path):
-    """Write a pyarrow table to ``path`` whole (see :func:`harmony.fileio.write_whole`)."""
-    import pyarrow.parquet as pq
-
-    write_whole(path, lambda tmp: pq.write_table(table, tmp), what="feed")
-
-
 def write_feed(rows, path, fmt=None):
-    """Write feed rows as JSON lines, CSV or Parquet (format from ``fmt`` or the file suffix).
+    """Write feed rows (a list of :class:`FeedRow`) as JSON lines, CSV or Parquet, in their order.
 
     The file is written whole: through a temporary file in the same folder and a rename, so a
     reader never sees half a feed and a failed write leaves an older feed as it was. Missing
@@ -463,18 +625,17 @@ def write_feed(rows, path, fmt=None):
     HarmonyError
         Unknown format, pyarrow missing for Parquet, or a file or folder that cannot be written.
     """
-    path = Path(path)
-    fmt = _format_of(path, fmt)
-    records = [r.to_dict() for r in rows]
-    if fmt == "jsonl":
-        text = "".join(json.dumps(rec, ensure_ascii=False) + "\n" for rec in records)
-        write_text_whole(path, text, "feed")
-    elif fmt == "csv":
-        buf = io.StringIO()
-        writer = csv.DictWriter(buf, fieldnames=FEED_COLUMNS)
-        writer.writeheader()
-        writer.writerows(spreadsheet_safe_row(rec) for rec in records)
-        write_text_whole(path, buf.getvalue(), "feed")
-    else:
-        _write_parquet_whole(_parquet_table(records), path)
-    return path
+    rows = list(rows)
+
+    def chunks():
+        # Consecutive rows of one category pair go together (one Parquet row group each).
+        lo = 0
+        for hi in range(1, len(rows) + 1):
+            if hi == len(rows) or (rows[hi].category, rows[hi].partner_category) != (rows[lo].category, rows[lo].partner_category):
+                part = rows[lo:hi]
+                yield FeedChunk(part[0].category, part[0].partner_category, [r.product for r in part],
+                                [r.partner for r in part], [r.rank for r in part], [r.score for r in part],
+                                [r.reason for r in part], [bool(r.pinned) for r in part])
+                lo = hi
+
+    return write_chunks(chunks(), path, fmt)[0]

@@ -284,12 +284,11 @@ def test_a_failed_write_leaves_the_older_feed_whole(shop, rules, tmp_path, monke
     target = tmp_path / "old.parquet"
     target.write_bytes(b"the older feed")
 
-    def half_then_fail(table, where, **kwargs):
-        with open(where, "wb") as fh:
-            fh.write(b"PAR1 half")
+    def half_then_fail(self, table, *args, **kwargs):
+        # The writer has its temporary file open and half written when the disk fills.
         raise OSError(28, "No space left on device")
 
-    monkeypatch.setattr(pq, "write_table", half_then_fail)
+    monkeypatch.setattr(pq.ParquetWriter, "write_table", half_then_fail)
     with pytest.raises(HarmonyError, match="old.parquet: cannot write the feed: No space left"):
         write_feed(rows, target)
     assert target.read_bytes() == b"the older feed"
