@@ -189,7 +189,11 @@ def _full_disk(monkeypatch, command):
 
         monkeypatch.setattr(Path, "write_bytes", write_bytes)
     else:
+        import harmony.suggest.feedwriter as feedwriter
+
         monkeypatch.setattr(fileio, "open", lambda *a, **kw: _FillingFile(open(*a, **kw)), raising=False)
+        # The feed streams its rows through its own writer (one category pair at a time).
+        monkeypatch.setattr(feedwriter, "open", lambda *a, **kw: _FillingFile(open(*a, **kw)), raising=False)
 
 
 @pytest.mark.parametrize("command", ["palettes", "feed", "rules show"])
