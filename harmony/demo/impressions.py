@@ -17,9 +17,10 @@ get most requests; the last get too few impressions to rate).
 
 A shopper examines slot ``k`` with probability :data:`PLANTED_EXAMINATION` ``[k - 1]`` =
 ``(1 / k) ** ETA`` (the curve Joachims et al. 2017 simulate), and clicks an examined partner with
-its attractiveness, which grows with the colour appeal of the pair (the ``tone`` taste of
+its attractiveness, which grows with the colour appeal of the pair (the ``harmony`` taste, Ou & Luo 2006, of
 :func:`harmony.demo.shoppers.appeal`, computed on the extracted palettes):
-``alpha = 0.02 + 0.25 / (1 + exp(-(appeal - 0.3) / 0.06))``.
+``alpha = 0.02 + 0.25 / (1 + exp(-(appeal - 0.3) / 0.15))`` (0.3 is about the median appeal of demo
+pairs, 0.15 about half their interquartile range).
 
 Regenerate the committed files with ``python -m harmony.demo.impressions``: the same seed and
 shop give byte-identical ``impressions.csv`` and ``candidates.csv``.
@@ -65,7 +66,7 @@ DEFAULT_CANDIDATES_PATH = DEMO_DIR / "shop" / "candidates.csv"
 
 def attractiveness(appeal_value):
     """Click chance of an examined partner from its colour appeal (see the module notes)."""
-    return 0.02 + 0.25 / (1.0 + np.exp(-(np.asarray(appeal_value, dtype=float) - 0.3) / 0.06))
+    return 0.02 + 0.25 / (1.0 + np.exp(-(np.asarray(appeal_value, dtype=float) - 0.3) / 0.15))
 
 
 def simulate_impressions(candidates, palettes, rng, requests=REQUESTS, examination=PLANTED_EXAMINATION):
@@ -116,7 +117,7 @@ def simulate_impressions(candidates, palettes, rng, requests=REQUESTS, examinati
         for k, partner in enumerate(shown):
             key = (product, partner)
             if key not in known:
-                known[key] = float(attractiveness(appeal(palettes[product], palettes[partner], "tone")))
+                known[key] = float(attractiveness(appeal(palettes[product], palettes[partner], "harmony")))
             clicked = int(rng.random() < theta[k] * known[key])
             rows.append((rid, product, partner, k + 1, clicked))
     return rows
