@@ -8,6 +8,7 @@ from harmony.errors import HarmonyError, warn
 from harmony.resources import DEFAULT_RULES, ROOMS_DIR
 
 from . import main
+from .feed_cmd import CURATION_HELP, load_curation_for
 
 __all__ = ["serve", "DEFAULT_PORT", "KEEP_ALIVE_SECONDS"]
 
@@ -34,9 +35,12 @@ KEEP_ALIVE_SECONDS = 65
 @click.option("--room-time-limit", type=click.FloatRange(0.05, 60.0), default=2.0, show_default=True,
               help="Seconds one room-set search may take (the best found so far is returned, marked not exact).")
 @click.option("--access-log/--no-access-log", default=False, show_default=True, help="Log every request.")
-def serve(db, rules_path, rooms_dir, host, port, room_time_limit, access_log):
+@click.option("--curation", "curation_path", type=click.Path(dir_okay=False), default=None, metavar="FILE",
+              help=CURATION_HELP)
+def serve(db, rules_path, rooms_dir, host, port, room_time_limit, access_log, curation_path):
     """Answer partners, palettes, scores and room sets over HTTP, as JSON.
 
+    With --curation, partners are pinned, blocked and cut as 'harmony feed --curation' does.
     The store is opened read-only and watched: products a later 'harmony extract' adds are
     answered within about a second of its commit, without a restart. The API is described at
     /openapi.json. Stop with Ctrl-C (or SIGTERM).
@@ -60,8 +64,13 @@ def serve(db, rules_path, rooms_dir, host, port, room_time_limit, access_log):
     if len(live.snapshot) == 0:
         live.close()
         raise HarmonyError(f"{db}: the store holds no products (run 'harmony extract' first)")
+    try:
+        curation = load_curation_for(curation_path, live.snapshot)
+    except HarmonyError:
+        live.close()
+        raise
     logging.basicConfig(level=logging.INFO, format="%(levelname)s: %(name)s: %(message)s")
-    app = create_app(live, rules_path=rules_path, rooms_dir=rooms_dir, room_time_limit=room_time_limit)
+    app = create_app(live, rules_path=rules_path, curation=curation, rooms_dir=rooms_dir, room_time_limit=room_time_limit)
     click.echo(f"serving {len(live.snapshot)} products of {db} on http://{host}:{port} (API: /openapi.json)", err=True)
     uvicorn.run(app, host=host, port=port, access_log=access_log, log_level="info", server_header=False,
                 timeout_keep_alive=KEEP_ALIVE_SECONDS, limit_concurrency=512, h11_max_incomplete_event_size=16 * 1024)

@@ -25,6 +25,7 @@ from harmony.resources import ROOMS_DIR
 from harmony.serve import engine
 from harmony.serve.openapi import openapi_document
 from harmony.shop.catalogue import normalise_category
+from harmony.suggest.curation import category_pair_allowed
 
 __all__ = [
     "ApiError",
@@ -158,7 +159,7 @@ def _category(snap, name):
     raise ApiError(404, f"unknown category '{name[:60]}'{hint}.")
 
 
-def create_app(live, *, rules_path=None, curation_path=None, rooms_dir=ROOMS_DIR, room_time_limit=ROOM_TIME_LIMIT,
+def create_app(live, *, rules_path=None, curation=None, rooms_dir=ROOMS_DIR, room_time_limit=ROOM_TIME_LIMIT,
                watch=True):
     """The Starlette application answering from ``live`` (a :class:`harmony.serve.snapshot.LiveStore`).
 
@@ -167,8 +168,9 @@ def create_app(live, *, rules_path=None, curation_path=None, rooms_dir=ROOMS_DIR
     live : LiveStore
     rules_path : path, optional
         The rules file, for its hash in ``/v1/health``.
-    curation_path : path, optional
-        Reserved for the curation file (hash in ``/v1/health``).
+    curation : harmony.suggest.curation.Curation, optional
+        Pins, blocks, category pairs, score floors and the partner-category limit applied to
+        partners as ``harmony feed --curation`` applies them; its hash is in ``/v1/health``.
     rooms_dir : path
         Folder of the room templates ``/v1/rooms/{template}/sets`` may name.
     room_time_limit : float
@@ -178,7 +180,7 @@ def create_app(live, *, rules_path=None, curation_path=None, rooms_dir=ROOMS_DIR
     """
     rules = live.rules
     rules_hash = file_sha256(rules_path)
-    curation_hash = file_sha256(curation_path)
+    curation_hash = None if curation is None else curation.sha256
     rooms_dir = Path(rooms_dir)
     document = openapi_document(MAX_TOP, MAX_ROOM_SETS, float(room_time_limit))
 
@@ -225,21 +227,16 @@ def create_app(live, *, rules_path=None, curation_path=None, rooms_dir=ROOMS_DIR
             "has_palette": snap.palette(p.id) is not None,
         })
 
-    def compute_partners(snap, product, pal, cats, top, diversity, min_score):
-        own = product.category_key
-        rows = []
-        for cat in cats:
-            data = snap.category_data[cat]
-            pr = rules.for_pair(own, cat)
-            screen = snap.screen(own, cat, pr) if len(data.partner_ids) > engine.EXACT_ROW else None
-            found = engine.partners_of(pal, pr, data.partner_stack, data.partner_palettes, top, diversity, screen)
-            for partner in found:
-                score = float(partner.pair.score)
-                if score < min_score:
-                    continue
-                rows.append({"partner": data.partner_ids[partner.index], "category": cat, "rank": partner.rank,
-                             "score": score, "reason": partner.pair.reason, "pinned": False})
-        return {"product": product.id, "category": own, "partner_categories": list(cats), "partners": rows}
+    def compute_partners(snap, product, pal, cats, only, top, diversity, min_score):
+        found = engine.product_partners(product, pal, cats, rules, snap.category_data, top, diversity, snap.screen,
+                                        curation)
+        # A pin is kept whatever its score, as in the curated feed; min_score filters the rest.
+        rows = [{"partner": r.partner, "category": r.partner_category, "rank": r.rank, "score": r.score,
+                 "reason": r.reason, "pinned": r.pinned}
+                for r in found if (only is None or r.partner_category == only) and (r.pinned or r.score >= min_score)]
+        shown = list(cats) if only is None else [only]
+        return {"product": product.id, "category": product.category_key, "partner_categories": shown,
+                "partners": rows}
 
     async def partners(request):
         params = _params(request, ("category", "top", "diversity", "min_score"))
@@ -249,23 +246,50 @@ def create_app(live, *, rules_path=None, curation_path=None, rooms_dir=ROOMS_DIR
         diversity = _float(params, "diversity", 0.0, 0.0, 1.0)
         min_score = _float(params, "min_score", 0.0, 0.0, 1.0)
         own = product.category_key
-        category = params.get("category")
+        paired = [c for c in snap.categories() if c != own and rules.pairs_with(own, c)
+                  and category_pair_allowed(curation, own, c)]
+        category, only = params.get("category"), None
         if category is not None:
             cat = _category(snap, category)
             if cat == own:
                 raise ApiError(400, f"'{cat}' is the category of '{product.id}' itself; ask for another category.")
             if not rules.pairs_with(own, cat):
                 raise ApiError(400, f"the rules do not pair '{own}' with '{cat}'.")
-            cats = [cat]
-        else:
-            cats = [c for c in snap.categories() if c != own and rules.pairs_with(own, c)]
-        key = ("partners", product.id, tuple(cats), top, diversity, min_score)
+            if not category_pair_allowed(curation, own, cat):
+                raise ApiError(400, f"the curation file does not suggest '{cat}' with '{own}'.")
+            only = cat
+            # The curation's limit of partner categories is decided over all of them.
+            if curation is None or curation.max_partner_categories is None:
+                paired = [cat]
+        key = ("partners", product.id, only, top, diversity, min_score)
         cached = snap.cache.get(key)
         if cached is not None:
             return Response(cached, media_type="application/json")
         pal = _palette_or_409(snap, product)
-        payload = await run_in_threadpool(compute_partners, snap, product, pal, cats, top, diversity, min_score)
+        payload = await run_in_threadpool(compute_partners, snap, product, pal, paired, only, top, diversity,
+                                          min_score)
         response = _json(payload)
+        snap.cache.put(key, response.body)
+        return response
+
+    def compute_similar(snap, product, top):
+        from harmony.suggest.lookalike import similar_products
+
+        others = [pid for pid in snap.category_data[product.category_key].partner_ids if pid != product.id]
+        found = similar_products(snap, product.id, top=top) if others else []
+        return {"product": product.id, "category": product.category_key, "similar": found}
+
+    async def similar(request):
+        params = _params(request, ("top",))
+        snap = live.snapshot
+        product = _product(snap, request.path_params["product_id"])
+        top = _int(params, "top", 10, 1, MAX_TOP)
+        key = ("similar", product.id, top)
+        cached = snap.cache.get(key)
+        if cached is not None:
+            return Response(cached, media_type="application/json")
+        _palette_or_409(snap, product)
+        response = _json(await run_in_threadpool(compute_similar, snap, product, top))
         snap.cache.put(key, response.body)
         return response
 
@@ -312,7 +336,7 @@ def create_app(live, *, rules_path=None, curation_path=None, rooms_dir=ROOMS_DIR
             return Response(cached, media_type="application/json")
         try:
             result = await run_in_threadpool(engine.room_sets, snap, rooms_dir / f"{name}.toml", rules, budget,
-                                             anchor, top, limit)
+                                             anchor, top, limit, curation=curation)
         except StoreError as exc:
             raise ApiError(404, f"{exc}.") from None
         except HarmonyError as exc:
@@ -360,6 +384,7 @@ def create_app(live, *, rules_path=None, curation_path=None, rooms_dir=ROOMS_DIR
         Route("/v1/products/{product_id}", product_info, methods=["GET", "HEAD"]),
         Route("/v1/products/{product_id}/partners", partners, methods=["GET", "HEAD"]),
         Route("/v1/products/{product_id}/palette", palette, methods=["GET", "HEAD"]),
+        Route("/v1/products/{product_id}/similar", similar, methods=["GET", "HEAD"]),
         Route("/v1/score", score, methods=["GET", "HEAD"]),
         Route("/v1/rooms", rooms, methods=["GET", "HEAD"]),
         Route("/v1/rooms/{template}/sets", room_sets, methods=["GET", "HEAD"]),

@@ -32,7 +32,8 @@ from harmony.rules.screen import (
     histograms,
     low_rank,
 )
-from harmony.suggest.feed import EXACT_PAIRS, mmr_select, similarity_matrix
+from harmony.suggest.curation import category_pair_allowed, curate, limit_partner_categories
+from harmony.suggest.feed import EXACT_PAIRS, FeedRow, mmr_select, similarity_matrix
 
 __all__ = [
     "EXACT_ROW",
@@ -46,6 +47,7 @@ __all__ = [
     "category_histograms",
     "pair_screen",
     "partners_of",
+    "product_partners",
     "score_pair",
     "room_sets",
 ]
@@ -167,7 +169,7 @@ def _order(indices, raw, k):
     return indices[perm], raw[perm]
 
 
-def partners_of(palette, pair_rules, partner_stack, partner_palettes, top, diversity, screen=None):
+def partners_of(palette, pair_rules, partner_stack, partner_palettes, top, diversity, screen=None, pool=None):
     """The ``top`` partners of one product in one category, chosen as the feed chooses them.
 
     Parameters
@@ -184,6 +186,8 @@ def partners_of(palette, pair_rules, partner_stack, partner_palettes, top, diver
     screen : PairScreen, optional
         Needed when there are more than :data:`EXACT_ROW` partners; otherwise every partner is
         scored exactly.
+    pool : int, optional
+        How many best-scoring partners to choose from (default :func:`pool_size`).
 
     Returns
     -------
@@ -193,7 +197,7 @@ def partners_of(palette, pair_rules, partner_stack, partner_palettes, top, diver
     n_b = len(partner_stack)
     if n_b == 0:
         return []
-    pool = pool_size(top, diversity)
+    pool = pool_size(top, diversity) if pool is None else int(pool)
     mine = PaletteStack.from_palettes([palette])
     if n_b <= EXACT_ROW or screen is None:
         cand = np.arange(n_b)
@@ -213,13 +217,76 @@ def partners_of(palette, pair_rules, partner_stack, partner_palettes, top, diver
     return [Partner(j, rank, ps) for rank, (j, ps) in enumerate(zip(chosen, scored), start=1)]
 
 
+def product_partners(product, palette, cats, rules, category_data, top, diversity, screen_of, curation=None):
+    """One product's partner rows in ``cats``, chosen and curated exactly as the feed does.
+
+    Parameters
+    ----------
+    product : Product
+        The asking product (its ``id`` and ``category_key`` are used).
+    palette : Palette
+    cats : sequence of str
+        Partner categories (normalised, each paired with the product's by the rules), in order.
+    rules : harmony.rules.RuleSet
+    category_data : mapping of str to CategoryData-like
+        ``partner_ids``, ``partner_stack`` and ``partner_palettes`` of each category.
+    top : int
+    diversity : float
+    screen_of : callable (own, target, pair_rules) -> PairScreen
+        Called only for partner categories larger than :data:`EXACT_ROW`.
+    curation : harmony.suggest.curation.Curation, optional
+        As ``harmony feed --curation``: blocked category pairs are skipped, every block adds one
+        candidate to the pool (the feed's room for removed rows), then
+        :func:`harmony.suggest.curation.curate` and
+        :func:`harmony.suggest.curation.limit_partner_categories` apply.
+
+    Returns
+    -------
+    list of FeedRow
+        By partner category (in ``cats`` order), then rank.
+    """
+    own = product.category_key
+    extra = 0 if curation is None else len(curation.blocks)
+    rows = []
+    for cat in cats:
+        if not category_pair_allowed(curation, own, cat):
+            continue
+        data = category_data[cat]
+        pr = rules.for_pair(own, cat)
+        screen = screen_of(own, cat, pr) if len(data.partner_ids) > EXACT_ROW else None
+        found = partners_of(palette, pr, data.partner_stack, data.partner_palettes, top + extra, diversity, screen,
+                            pool=pool_size(top, diversity) + extra)
+        new = [FeedRow(product.id, own, data.partner_ids[p.index], cat, p.rank, float(p.pair.score), p.pair.reason)
+               for p in found]
+        if curation is not None:
+            new = curate(curation, product.id, cat, new, _pin_scorer(product, palette, data, cat, pr), top)
+        rows.extend(new)
+    return limit_partner_categories(curation, rows)
+
+
+def _pin_scorer(product, palette, data, cat, pair_rules):
+    """The scored row of a pinned partner of category ``cat``, or None when it is not a partner."""
+    index = {pid: j for j, pid in enumerate(data.partner_ids)}
+
+    def score_of(partner):
+        j = index.get(partner)
+        if j is None:
+            return None
+        ps = pair_score(palette, data.partner_palettes[j], pair_rules)
+        return FeedRow(product.id, product.category_key, partner, cat, 0, float(ps.score), ps.reason)
+
+    return score_of
+
+
 def score_pair(palette_a, palette_b, pair_rules):
     """The exact :class:`harmony.rules.score.PairScore` of two palettes, with its explanation."""
     return pair_score(palette_a, palette_b, pair_rules)
 
 
-def room_sets(store, template_path, rules, budget, anchor, top, time_limit, pool_limit=60):
+def room_sets(store, template_path, rules, budget, anchor, top, time_limit, pool_limit=60, curation=None):
     """Room sets of a template over a store-like reader, the search stopped after ``time_limit`` s.
+
+    ``curation`` blocks are honoured as ``harmony bundle --curation`` honours them.
 
     Returns the JSON object of ``harmony bundle --json``; ``exact`` is False when the time limit
     stopped the search (the sets are then the best found so far).
@@ -229,6 +296,6 @@ def room_sets(store, template_path, rules, budget, anchor, top, time_limit, pool
 
     room = load_room(template_path)
     result = search_bundles(store, room, rules, budget=budget, anchor=anchor, top=top, pool_limit=pool_limit,
-                            time_limit=time_limit)
+                            time_limit=time_limit, curation=curation)
     return result_to_dict(result)
 

@@ -4,6 +4,8 @@ The tests call every path listed here on a running server, so a path added to th
 without a line here (or the reverse) is caught.
 """
 
+from harmony.suggest.lookalike import SIMILAR_DELTA_E
+
 __all__ = ["openapi_document", "OPENAPI_VERSION"]
 
 #: The OpenAPI Specification version the document follows (https://spec.openapis.org/oas/v3.0.3).
@@ -42,6 +44,18 @@ def openapi_document(max_top, max_sets, time_limit):
             "pinned": {"type": "boolean", "description": "Placed by a curation file rather than by score."},
         },
     }
+    similar = {
+        "type": "object",
+        "required": ["partner", "category", "rank", "score", "distance", "reason"],
+        "properties": {
+            "partner": {"type": "string"},
+            "category": {"type": "string", "description": "The same category as the product."},
+            "rank": {"type": "integer", "minimum": 1},
+            "score": {"type": "number", "minimum": 0, "maximum": 1, "description": f"exp(-distance / {SIMILAR_DELTA_E:g})."},
+            "distance": {"type": "number", "minimum": 0, "description": "Earth mover's distance, CAM02-UCS ΔE."},
+            "reason": {"type": "string"},
+        },
+    }
     return {
         "openapi": OPENAPI_VERSION,
         "info": {
@@ -75,7 +89,7 @@ def openapi_document(max_top, max_sets, time_limit):
                     _param("diversity", "query", {"type": "number", "minimum": 0, "maximum": 1, "default": 0},
                            "0 = best scores; higher spreads near-identical partners apart."),
                     _param("min_score", "query", {"type": "number", "minimum": 0, "maximum": 1, "default": 0},
-                           "Leave out partners scoring below this."),
+                           "Leave out partners scoring below this (partners a curation file pins stay)."),
                 ],
                 "responses": {
                     "200": _ok("Partners.", {
@@ -85,6 +99,26 @@ def openapi_document(max_top, max_sets, time_limit):
                             "category": {"type": "string", "description": "The product's own category."},
                             "partner_categories": {"type": "array", "items": {"type": "string"}},
                             "partners": {"type": "array", "items": partner},
+                        },
+                    }),
+                    **_ERRORS,
+                },
+            }},
+            "/v1/products/{product_id}/similar": {"get": {
+                "summary": "In-stock products of the same category whose palettes look most alike "
+                           "(earth mover's distance in CAM02-UCS), closest first.",
+                "parameters": [
+                    _PRODUCT_ID,
+                    _param("top", "query", {"type": "integer", "minimum": 1, "maximum": max_top, "default": 10},
+                           "How many look-alikes."),
+                ],
+                "responses": {
+                    "200": _ok("Look-alikes (an empty list when the category has no other in-stock product).", {
+                        "type": "object",
+                        "properties": {
+                            "product": {"type": "string"},
+                            "category": {"type": "string"},
+                            "similar": {"type": "array", "items": similar},
                         },
                     }),
                     **_ERRORS,

@@ -5,6 +5,8 @@ on the same store (the feed, the exact pair score, ``harmony palette --json``): 
 give the same answers. Request counts are bounded and the server process is always stopped.
 """
 
+import hashlib
+import json
 import os
 import re
 import shutil
@@ -211,3 +213,132 @@ def test_new_products_are_answered_while_a_second_extract_is_refused(demo_db, tm
             first.wait()
         log = srv.stop()
     assert "Traceback" not in log
+
+
+# ------------------------------------------------------------------ curation and look-alikes
+
+DEMO_CURATION = SHOP_DIR / "curation.toml"
+
+
+@pytest.fixture(scope="module")
+def full_db(demo_db, tmp_path_factory):
+    """The demo store with the held-back products added (the demo curation pins one of them)."""
+    folder = tmp_path_factory.mktemp("full")
+    db = folder / "shop.db"
+    shutil.copy(demo_db, db)
+    catalogue = folder / "catalogue.csv"
+    write_catalogue(catalogue)
+    done = subprocess.run([*CLI, "extract", str(catalogue), "--db", str(db), "--workers", "1"],
+                          capture_output=True, text=True, timeout=600)
+    assert done.returncode == 0, done.stderr
+    return db
+
+
+@pytest.fixture(scope="module")
+def curated_server(full_db):
+    srv = Server(full_db, "--curation", str(DEMO_CURATION))
+    try:
+        yield srv
+    finally:
+        log = srv.stop()
+        assert "Traceback" not in log
+
+
+def _by_product(rows):
+    out = {}
+    for r in rows:
+        out.setdefault(r.product, []).append((r.partner, r.partner_category, r.rank, r.score, r.reason, r.pinned))
+    return out
+
+
+@pytest.mark.parametrize("diversity", [0.0, 0.3])
+def test_curated_partners_equal_the_curated_feed(curated_server, full_db, diversity):
+    from harmony.suggest.curation import load_curation
+
+    rules = load_rules(DEFAULT_RULES)
+    curation = load_curation(DEMO_CURATION)
+    with Store(full_db, read_only=True) as store:
+        curated = _by_product(build_feed(store, rules, top=5, diversity=diversity, curation=curation))
+        plain = _by_product(build_feed(store, rules, top=5, diversity=diversity))
+        ids = [p.id for p in store.products() if store.palette(p.id) is not None]
+    assert len(ids) == 194
+    for pid in ids:
+        got = curated_server.get(f"/v1/products/{pid}/partners", params={"top": 5, "diversity": diversity})
+        assert got.status_code == 200, got.text
+        rows = [(p["partner"], p["category"], p["rank"], p["score"], p["reason"], p["pinned"])
+                for p in got.json()["partners"]]
+        assert rows == curated.get(pid, []), pid
+    # The curation acted (so the equality above is not that of two plain feeds): the pin is first
+    # and marked, the blocked pair and categories are gone, at most five categories remain.
+    first_rug = [r for r in curated["SOF-001"] if r[1] == "rug"][0]
+    assert first_rug[:3] == ("RUG-003", "rug", 1) and first_rug[5] is True
+    assert [r for r in plain["SOF-001"] if r[1] == "rug"][0][0] != "RUG-003"
+    assert "RUG-008" in [r[0] for r in plain["SOF-002"]] and "RUG-008" not in [r[0] for r in curated["SOF-002"]]
+    assert {"bed", "cushion", "armchair"} & {r[1] for r in plain["DSK-001"]}
+    assert not {"bed", "cushion", "armchair"} & {r[1] for r in curated.get("DSK-001", [])}
+    assert max(len({r[1] for r in rows}) for rows in plain.values()) > 5
+    assert max(len({r[1] for r in rows}) for rows in curated.values()) == 5
+    # Sofa-rug rows under the pair's floor 0.55 go, unless pinned; other rows under 0.40 go.
+    for pid, rows in curated.items():
+        for partner, cat, _rank, score, _reason, pinned in rows:
+            assert pinned or score >= (0.55 if {pid[:3], cat} == {"SOF", "rug"} else 0.40)
+    assert min(r[3] for rows in plain.values() for r in rows) < 0.40  # the floor has something to remove
+
+
+def test_curated_server_reports_the_file_and_refuses_blocked_pairs(curated_server):
+    health = curated_server.get("/v1/health").json()
+    assert health["curation_sha256"] == hashlib.sha256(DEMO_CURATION.read_bytes()).hexdigest()
+    blocked = curated_server.get("/v1/products/DSK-001/partners", params={"category": "cushion"})
+    assert blocked.status_code == 400 and "curation" in _one_sentence(blocked)
+    one = curated_server.get("/v1/products/SOF-001/partners", params={"category": "rug", "top": 3}).json()
+    assert one["partners"][0]["partner"] == "RUG-003" and one["partners"][0]["pinned"] is True
+
+
+def test_uncurated_health_has_no_curation_hash(server):
+    assert server.get("/v1/health").json()["curation_sha256"] is None
+
+
+def _feed_similar(db, tmp_path, top):
+    """``harmony feed --similar`` rows of the look-alike relation, by product."""
+    out = tmp_path / "feed.jsonl"
+    done = subprocess.run([*CLI, "feed", "--db", str(db), "--top", str(top), "--similar", "--out", str(out)],
+                          capture_output=True, text=True, timeout=600)
+    assert done.returncode == 0, done.stderr
+    found = {}
+    for line in out.read_text(encoding="utf-8").splitlines():
+        row = json.loads(line)
+        if row["relation"] == "similar":
+            found.setdefault(row["product"], []).append(row)
+    return found
+
+
+def test_similar_equals_the_feeds_look_alikes(server, demo_db, tmp_path):
+    want = _feed_similar(demo_db, tmp_path, 4)
+    assert len(want) > 150
+    for pid in sorted(want)[::7]:
+        got = server.get(f"/v1/products/{pid}/similar", params={"top": 4})
+        assert got.status_code == 200, got.text
+        body = got.json()
+        assert body["product"] == pid and body["category"] == want[pid][0]["category"]
+        assert [(s["partner"], s["category"], s["rank"]) for s in body["similar"]] == \
+            [(r["partner"], r["partner_category"], r["rank"]) for r in want[pid]]
+        # The feed solves each pair once, in one direction; the EMD is symmetric up to rounding.
+        assert [s["score"] for s in body["similar"]] == pytest.approx([r["score"] for r in want[pid]],
+                                                                       rel=1e-9, abs=1e-12)
+        assert [s["reason"] for s in body["similar"]] == [r["reason"] for r in want[pid]]
+    default = server.get("/v1/products/SOF-001/similar").json()["similar"]
+    assert len(default) == 10 and [s["rank"] for s in default] == list(range(1, 11))
+
+
+@pytest.mark.parametrize("path, status", [
+    ("/v1/products/NO-SUCH/similar", 404),
+    ("/v1/products/SOF-001/similar?top=0", 400),
+    ("/v1/products/SOF-001/similar?top=101", 400),
+    ("/v1/products/SOF-001/similar?top=two", 400),
+    ("/v1/products/SOF-001/similar?top=2&top=3", 400),
+    ("/v1/products/SOF-001/similar?category=rug", 400),
+])
+def test_similar_bad_requests(server, path, status):
+    r = server.get(path)
+    assert r.status_code == status, r.text
+    _one_sentence(r)
