@@ -3,7 +3,10 @@
 Stages, each timed: the shop's photos are extracted into ``OUT/harmony.db``; a cross-sell feed
 is written to ``OUT/feed.jsonl``; the best sets of every room template ``demo_room_sets/*.toml``
 go to ``OUT/bundles/<room>.json``; when the shop has an interaction log, the rules are evaluated
-against it; and ``OUT/report.html`` shows it all. Nothing needs the network: when the committed
+against it (beside the blends of harmony with the shop's own candidate list, ``candidates.csv``,
+when there is one); when it has an impression log (``impressions.csv``), a position-based click
+model is fitted to it and ``OUT/clicks.html`` shows the result; and ``OUT/report.html`` shows it
+all, linking to the clicks page. Nothing needs the network: when the committed
 demo shop is missing, its generator draws it into ``OUT/shop`` first.
 """
 
@@ -30,6 +33,11 @@ FEED_DIVERSITY = 0.3
 BUNDLES_PER_ROOM = 3
 #: Bootstrap resamples of the demo evaluation (fewer than the command's default: the demo is a tour).
 EVAL_RESAMPLES = 200
+#: Weights of the shop's candidate list compared in the demo evaluation (``harmony evaluate --blend``).
+BLEND_WEIGHTS = "0,0.25,0.5,0.75,1"
+#: Bootstrap resamples of the demo's click model (``harmony clicks`` uses 200; 50 keeps the demo's
+#: run short, at the price of rougher interval ends).
+CLICK_RESAMPLES = 50
 
 
 @dataclass(frozen=True)
@@ -42,6 +50,7 @@ class DemoResult:
     bundle_paths: tuple
     report_path: Path
     evaluated: bool
+    clicks_path: Path | None
     seconds: float
     stages: tuple
 
@@ -65,16 +74,40 @@ def _bundle_json(store, rules, room_path, curation=None):
     return result_to_dict(result)
 
 
-def _evaluation_tables(db_path, events_path, rules_path, progress):
+def _evaluation_tables(db_path, events_path, rules_path, progress, candidates_path=None):
     from harmony.evaluation import result_table
     from harmony.evaluation.run import run_evaluation
 
+    extra = None
+    if candidates_path is not None:
+        from harmony.suggest.blend import blend_methods_factory
+
+        extra = blend_methods_factory(candidates_path, BLEND_WEIGHTS)
     result, _inputs = run_evaluation(db_path, events_path, [str(rules_path)], resamples=EVAL_RESAMPLES,
-                                     progress=progress)
+                                     progress=progress, extra_methods=extra)
     header, rows = result_table(result)
     heading = (f"Ranking real partners of the demo shoppers' log: {result.events} events, "
                f"{result.query_products} query products")
+    if candidates_path is not None:
+        heading += f"; blend W = weight of the shop's own candidate list ({candidates_path.name})"
     return ((heading, (tuple(header), tuple(tuple(r) for r in rows))),)
+
+
+def _clicks_page(impressions_path, db_path, out_path, progress):
+    """Fit the click model to the demo's impression log and write its page; returns the report."""
+    import numpy as np
+
+    from harmony.demo.impressions import PLANTED_EXAMINATION
+    from harmony.evaluation.clicks import analyse_clicks, read_impressions
+    from harmony.fileio import write_text_whole
+    from harmony.report.clicks import render_clicks_page
+
+    report = analyse_clicks(read_impressions(impressions_path), rng=np.random.default_rng(0),
+                            resamples=CLICK_RESAMPLES, progress=progress)
+    # The demo log is simulated: its planted examination curve is drawn beside the fitted one.
+    html = render_clicks_page(report, db=db_path, source=impressions_path.name, planted=PLANTED_EXAMINATION)
+    write_text_whole(out_path, html, "clicks page")
+    return report
 
 
 def run_demo(out_dir=DEFAULT_OUT, workers=None, progress=None, log=None, catalogue=None, rooms=None):
@@ -161,8 +194,20 @@ def run_demo(out_dir=DEFAULT_OUT, workers=None, progress=None, log=None, catalog
     events_path = catalogue.parent / "events.csv"
     if events_path.is_file():
         t0 = time.perf_counter()
-        evaluation = _evaluation_tables(db_path, events_path, DEFAULT_RULES, progress)
-        lap("evaluate", t0, f"rules and baselines against {events_path.name}")
+        candidates_path = catalogue.parent / "candidates.csv"
+        candidates_path = candidates_path if candidates_path.is_file() else None
+        evaluation = _evaluation_tables(db_path, events_path, DEFAULT_RULES, progress, candidates_path)
+        blends = f" and blends with {candidates_path.name}" if candidates_path else ""
+        lap("evaluate", t0, f"rules and baselines{blends} against {events_path.name}")
+
+    clicks_path, pages = None, ()
+    impressions_path = catalogue.parent / "impressions.csv"
+    if impressions_path.is_file():
+        t0 = time.perf_counter()
+        clicks_path = out_dir / "clicks.html"
+        fitted = _clicks_page(impressions_path, db_path, clicks_path, progress)
+        pages = (("Clicks by slot", clicks_path.name),)
+        lap("clicks", t0, f"click model of {fitted.impressions} impressions in {clicks_path}")
 
     t0 = time.perf_counter()
     from harmony.demo.shop import SHOP_NAME
@@ -171,7 +216,7 @@ def run_demo(out_dir=DEFAULT_OUT, workers=None, progress=None, log=None, catalog
         data = gather_from_store(
             store, read_feed(feed_path), [read_bundles(p) for p in bundle_paths], rules,
             title=f"{SHOP_NAME}: demo report", evaluation=evaluation, curation=curation,
-            feed_meta=read_provenance(feed_path), feed_given=True,
+            feed_meta=read_provenance(feed_path), feed_given=True, pages=pages,
             notes=(f"{SHOP_NAME} is an invented shop: its products, prices and photos were generated "
                    "for this demo.",),
         )
@@ -179,6 +224,6 @@ def run_demo(out_dir=DEFAULT_OUT, workers=None, progress=None, log=None, catalog
     lap("report", t0, f"{len(data.products)} products, {len(data.suggestions)} pairs, {len(data.bundles)} sets")
     return DemoResult(
         out_dir=out_dir, db_path=db_path, feed_path=feed_path, bundle_paths=tuple(bundle_paths),
-        report_path=report_path, evaluated=bool(evaluation), seconds=time.perf_counter() - start,
+        report_path=report_path, evaluated=bool(evaluation), clicks_path=clicks_path, seconds=time.perf_counter() - start,
         stages=tuple(stages),
     )

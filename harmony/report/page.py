@@ -184,6 +184,7 @@ class ReportData:
     curation_changes: tuple = ()  # one sentence per curation rule
     made_by: tuple = ()  # which rules / curation files made the report and its feed
     made_warnings: tuple = ()
+    pages: tuple = ()  # (label, relative address) of pages made beside the report
 
 
 # ---------------------------------------------------------------------------------------- inputs
@@ -533,6 +534,7 @@ def gather_report(
     illuminance_lux=None,
     curation=None,
     feed_meta=None,
+    pages=(),
     feed_given=False,
 ):
     """Gather the report's content into a :class:`ReportData`.
@@ -567,6 +569,8 @@ def gather_report(
         curation made it. With ``feed_given`` true and no sidecar, the report warns.
     feed_given : bool, optional
         Whether the rows come from a feed file, whose sidecar ``feed_meta`` is then expected.
+    pages : iterable of (label, address), optional
+        Pages made beside the report (e.g. the demo's clicks page), linked from its contents bar.
 
     Raises
     ------
@@ -659,6 +663,7 @@ def gather_report(
         curation_changes=curation_changes(curation, rows, palettes, products, rules),
         made_by=made,
         made_warnings=made_warnings,
+        pages=tuple((str(label), str(href)) for label, href in pages),
     )
 
 

@@ -220,3 +220,42 @@ def test_event_weight_names_any_kind(shop, tmp_path):
     res = run("evaluate", "--db", db, "--events", kinds, "--rules", RIGHT, "--resamples", 50,
               "--event-weight", "wishlist=0", "--event-weight", "click=0")
     assert res.exit_code == 0 and "without a weight" not in res.output, res.output
+
+
+def test_page_to_standard_output_and_the_table_to_stderr(shop):
+    db, log = shop
+    res = run("evaluate", "--db", db, "--events", log, "--rules", RIGHT, "--out", "-", "--resamples", 20)
+    assert res.exit_code == 0, res.output
+    assert res.stdout.lstrip().lower().startswith("<!doctype html>") and res.stdout.rstrip().endswith("</html>")
+    assert re.search(r"^complementary_only\s+0\.\d{3}\s+0\.\d{3}-", res.stderr, re.M)
+    assert not re.search(r"^complementary_only\s+0\.\d{3}", res.stdout, re.M)
+
+
+def test_report_to_standard_output(shop):
+    db, _log = shop
+    res = run("report", "--db", db, "--out", "-")
+    assert res.exit_code == 0, res.output
+    assert res.stdout.lstrip().lower().startswith("<!doctype html>") and res.stdout.rstrip().endswith("</html>")
+    assert "<!doctype" not in res.stderr.lower()
+
+
+def test_blend_rows_are_drawn_as_their_own_kind(shop, tmp_path):
+    db, log = shop
+    # Another system's list: every sofa with two cushions (any scores will do for the page).
+    rows = ["product,partner,score"] + [f"S{i:02d},C{(i + k) % 16:02d},{1.0 - k / 4}" for i in range(16) for k in (0, 1)]
+    candidates = tmp_path / "candidates.csv"
+    candidates.write_text("\n".join(rows) + "\n")
+    out = tmp_path / "page.html"
+    res = run("evaluate", "--db", db, "--events", log, "--rules", RIGHT, "--out", out, "--resamples", 20,
+              "--blend", candidates, "--blend-weights", "0,0.5,1")
+    assert res.exit_code == 0, res.output
+    html = out.read_text()
+    charts = html.count('<svg class="chart"')
+    assert charts >= 1
+    # Three blend bars per chart, styled as blends; the one rules file's bar stays "rules".
+    assert html.count('<rect class="blend"') == 3 * charts
+    assert html.count('<rect class="rules"') == charts
+    assert "blend with another list" in html
+    plain = tmp_path / "plain.html"
+    assert run("evaluate", "--db", db, "--events", log, "--rules", RIGHT, "--out", plain, "--resamples", 20).exit_code == 0
+    assert 'class="blend"' not in plain.read_text() and "blend with another list" not in plain.read_text()

@@ -181,3 +181,17 @@ def test_score_of_a_pair_the_rules_never_score(runner, palettes):
     assert "never scores dining table with bed (scored = false)" in result.stderr
     result = runner.invoke(main, ["score", str(rug), str(sofa), "--categories", "rug,sofa", "--json"])
     assert json.loads(result.stdout)["scored"] is True and result.stderr == ""
+
+
+def test_rules_show_to_standard_output_writes_the_png_only(tmp_path):
+    from harmony.resources import DEFAULT_RULES
+
+    res = CliRunner().invoke(main, ["rules", "show", str(DEFAULT_RULES), "--out", "-"])
+    assert res.exit_code == 0, res.output
+    # PNG signature: 137 80 78 71 13 10 26 10 (ISO/IEC 15948:2004, section 5.2).
+    assert res.stdout_bytes.startswith(b"\x89PNG\r\n\x1a\n")
+    picture = tmp_path / "wheels.png"
+    picture.write_bytes(res.stdout_bytes)
+    with Image.open(picture) as img:
+        assert img.format == "PNG" and img.size[0] > 100
+    assert res.stderr.strip().endswith("wheels") and "-: " in res.stderr
