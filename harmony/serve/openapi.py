@@ -44,18 +44,15 @@ def openapi_document(max_top, max_sets, time_limit):
             "pinned": {"type": "boolean", "description": "Placed by a curation file rather than by score."},
         },
     }
-    similar = {
-        "type": "object",
-        "required": ["partner", "category", "rank", "score", "distance", "reason"],
-        "properties": {
-            "partner": {"type": "string"},
-            "category": {"type": "string", "description": "The same category as the product."},
-            "rank": {"type": "integer", "minimum": 1},
-            "score": {"type": "number", "minimum": 0, "maximum": 1, "description": f"exp(-distance / {SIMILAR_DELTA_E:g})."},
-            "distance": {"type": "number", "minimum": 0, "description": "Earth mover's distance, CAM02-UCS ΔE."},
-            "reason": {"type": "string"},
-        },
-    }
+    # A look-alike row: a partner row's fields without "pinned", with the distance, in one category.
+    similar = {"type": "object", "required": ["partner", "category", "rank", "score", "distance", "reason"],
+               "properties": {k: v for k, v in partner["properties"].items() if k != "pinned"}}
+    similar["properties"].update({
+        "category": {"type": "string", "description": "The same category as the product."},
+        "score": {"type": "number", "minimum": 0, "maximum": 1,
+                  "description": f"exp(-distance / {SIMILAR_DELTA_E:g})."},
+        "distance": {"type": "number", "minimum": 0, "description": "Earth mover's distance, CAM02-UCS ΔE."},
+    })
     return {
         "openapi": OPENAPI_VERSION,
         "info": {
