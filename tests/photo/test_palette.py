@@ -247,7 +247,7 @@ def test_studio_master_over_the_decoded_cap_gives_a_palette():
 
 
 def test_method_version_in_key():
-    assert PaletteSettings().key.startswith("v3-")
+    assert PaletteSettings().key.startswith("v4-")
 
 
 def test_palette_json_format_2_says_share_and_still_reads_format_1():
