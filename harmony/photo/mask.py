@@ -83,6 +83,9 @@ __all__ = [
     "SHADOW_CURVATURE",
     "RINGING_EDGE_FACTOR",
     "SHADOW_GROW_STEP",
+    "SHADOW_REACH",
+    "SHADOW_RELATIVE_CURVATURE",
+    "ENCLOSED_CLEAR_PIXELS",
     "ENCLOSED_BIAS_FACTOR",
     "ENCLOSED_MIN_DELTA_E",
     "SMALL_AREA_SHARE",
@@ -167,6 +170,23 @@ RINGING_EDGE_FACTOR = 2.0
 #: crisp step of 6 J' leaves at least 1.0 beside it; sensor and JPEG noise about 0.3 (measured).
 SHADOW_CURVATURE = 0.7
 
+#: A deeper shadow may curve more: up to this fraction of its depth below the backdrop. A
+#: Gaussian shadow of depth D and width s (pixels) curves by about 2D / (3 s^2) at its core, so
+#: shadows at least 2.6 px wide pass; beside a crisp outline of height H the first pixel inside
+#: curves by at least H / 6, whatever H, so outlines stay closed (derivation; measured in tests).
+SHADOW_RELATIVE_CURVATURE = 0.1
+
+#: How far (a fraction of the short side, through shadow pixels) a shadow reaches from the
+#: backdrop. Contact shadows of studio shots are a few percent of the frame high (measured on
+#: the generated and demo shots: their cores lie up to about 8 % of the side from clean backdrop); a product as dark as its shadow where it
+#: stands on it loses at most this much of its legs (convention of this project).
+SHADOW_REACH = 0.12
+
+#: An enclosed region judged by its own colour needs this many pixels away from strong edges;
+#: narrower gaps (between slats) are all blur and ringing and are judged by their pixels within
+#: the opening tolerance instead (convention of this project).
+ENCLOSED_CLEAR_PIXELS = 12
+
 #: Largest J' step from a background neighbour of a shadow-coloured pixel that the shadow
 #: still takes after the flood (corners where a leg meets its shadow). Twice the shadow
 #: curvature: the 3 J' half-step beside a crisp 6 J' outline stays out (measured).
@@ -215,6 +235,8 @@ class Mask:
         the flags; 1 for transparent backgrounds, :data:`SCENE_CONFIDENCE` for scenes.
     flags : tuple of str
         Doubts about the mask: :data:`FLAG_SMALL_AREA`, :data:`FLAG_NEAR_BACKDROP`.
+    backdrop : ndarray, shape (h, w, 3) or None
+        The fitted backdrop surface (J'a'b' at every pixel) of a studio shot, else None.
     """
 
     weights: np.ndarray
@@ -223,6 +245,7 @@ class Mask:
     scene: bool
     confidence: float
     flags: tuple = ()
+    backdrop: np.ndarray | None = None
 
 
 def border_ring(shape, width):
@@ -471,35 +494,49 @@ def foreground_mask(
     weight = ndimage.uniform_filter(like, 3, mode="nearest")
     local = ndimage.uniform_filter(lightness * like, 3, mode="nearest") / np.maximum(weight, 1e-6)
     curvature = np.abs(lightness - local)
-    shadow = coloured & (curvature < SHADOW_CURVATURE) & (_edge_strength(lightness, like > 0) < shadow_edge)
+    smooth = curvature < np.maximum(SHADOW_CURVATURE, SHADOW_RELATIVE_CURVATURE * np.abs(dj))
+    shadow = coloured & smooth & (_edge_strength(lightness, like > 0) < shadow_edge)
     # JPEG ringing beside a strong edge moves the backdrop by several ΔE: there, within
     # ``tolerance`` of the surface is enough (a light part's own outline is no strong edge).
     strong = _colour_step_sq(jab) > (RINGING_EDGE_FACTOR * tolerance) ** 2
-    ringing = ndimage.binary_dilation(strong, iterations=2) & (d2 <= tolerance**2)
-    candidates = near | ringing | shadow
-    labels, n = ndimage.label(candidates)
-    keep = _connected_to_edge(labels)
-    # Enclosed regions that continue the backdrop: mostly within the opening tolerance, and their
-    # median colour as close to the surface as the backdrop's own patches are to it.
-    if n > keep.sum():
-        size = np.bincount(labels.ravel(), minlength=n + 1)
-        near_count = np.bincount(labels.ravel(), weights=near.ravel(), minlength=n + 1)
-        mostly = near_count >= 0.5 * np.maximum(size, 1)
-        mostly[0] = False
-        index = np.flatnonzero(mostly & ~keep)
-        if index.size:
-            bias = min(max(ENCLOSED_BIAS_FACTOR * _patch_bias(diff, width), ENCLOSED_MIN_DELTA_E), cap)
-            offset = np.stack([ndimage.median(diff[..., c], labels, index) for c in range(3)], axis=-1)
-            keep[index[np.sqrt((offset**2).sum(axis=-1)) <= bias]] = True
-    back = keep[labels] | transparent
+    ringing_zone = ndimage.binary_dilation(strong, iterations=2)
+    ringing = ringing_zone & (d2 <= tolerance**2)
+    labels, _ = ndimage.label(near | ringing)
+    back = _connected_to_edge(labels)[labels]
+    # Shadows lie on the floor around the product and reach only so far from the backdrop: a
+    # product as dark as its own contact shadow where it stands on it is not flooded beyond the
+    # shadow's width, and a flat panel inside an opening is not taken for a shadow of it.
+    reach = max(2, int(round(SHADOW_REACH * min(h, w))))
+    back = ndimage.binary_dilation(back, iterations=reach, mask=back | shadow)
+    # Enclosed regions that continue the backdrop: regions within the opening tolerance, apart
+    # from the flood, whose median colour lies as close to the surface as the backdrop's own
+    # patches do. Shadow-coloured pixels do not join them, so a flat light panel set into an
+    # opening (a mirror, a cane seat) is not swallowed with the gap around it.
+    labels, n = ndimage.label((near | ringing) & ~back)
+    if n:
+        index = np.arange(1, n + 1)
+        bias = min(max(ENCLOSED_BIAS_FACTOR * _patch_bias(diff, width), ENCLOSED_MIN_DELTA_E), cap)
+        clear = near & ~ringing_zone  # away from strong edges: the region's own colour
+        n_clear = np.bincount(labels[clear], minlength=n + 1)
+        n_near = np.bincount(labels[near], minlength=n + 1)
+        off_clear = np.stack([ndimage.median(diff[..., c], labels * clear, index) for c in range(3)], axis=-1)
+        off_near = np.stack([ndimage.median(diff[..., c], labels * near, index) for c in range(3)], axis=-1)
+        wide = n_clear[1:] >= ENCLOSED_CLEAR_PIXELS
+        off = np.where(wide[:, None], off_clear, off_near)
+        limit = np.where(wide, bias, opening)
+        keep = np.zeros(n + 1, dtype=bool)
+        keep[1:] = (n_near[1:] > 0) & (np.sqrt((np.nan_to_num(off, nan=np.inf) ** 2).sum(axis=-1)) <= limit)
+        back |= keep[labels]
+    back |= transparent
     # Shadow pixels in corners (a leg meeting its shadow) have too few smooth neighbours for the
     # curvature test; take those that continue a background neighbour within a small J' step.
     for _ in range(2):
+        source = back
         gap = np.full((h, w), np.inf, dtype=lightness.dtype)
         for axis, sl_a, sl_b in ((0, np.s_[1:, :], np.s_[:-1, :]), (1, np.s_[:, 1:], np.s_[:, :-1])):
             step = np.abs(lightness[sl_a] - lightness[sl_b])
-            gap[sl_a] = np.minimum(gap[sl_a], np.where(back[sl_b], step, np.inf))
-            gap[sl_b] = np.minimum(gap[sl_b], np.where(back[sl_a], step, np.inf))
+            gap[sl_a] = np.minimum(gap[sl_a], np.where(source[sl_b], step, np.inf))
+            gap[sl_b] = np.minimum(gap[sl_b], np.where(source[sl_a], step, np.inf))
         grow = coloured & ~back & (gap < SHADOW_GROW_STEP)
         if not grow.any():
             break
@@ -532,4 +569,4 @@ def foreground_mask(
             flags.append(FLAG_NEAR_BACKDROP)
             confidence = min(confidence, NEAR_BACKDROP_CONFIDENCE)
     weights = left.astype(float)
-    return Mask(weights, background, float(back.mean()), False, confidence, tuple(flags))
+    return Mask(weights, background, float(back.mean()), False, confidence, tuple(flags), surface)

@@ -500,32 +500,53 @@ def palette_from_decoded(decoded, settings=PaletteSettings()):
     # filter, JPEG ringing): they do not shape the colours (k-means sees only clean pixels), but
     # every product pixel counts towards the share of its nearest colour, so regions with much
     # outline (slats, legs, fine texture) keep their share.
-    # Blends on the outline mix the product with the backdrop: they count only when they lie
-    # within half the edge threshold of a colour (nearly pure), as before.
+    # Pixels on a sharp colour edge are blends of their neighbours (anti-aliasing, the box
+    # filter, JPEG ringing): only clean pixels shape the colours (k-means). Every product pixel
+    # inside the outline then counts fully towards its nearest colour, so regions with much inner
+    # edge (fine texture) keep their share. A pixel on the outline is part product, part
+    # backdrop: against a fitted backdrop it is unmixed (the share of the nearest colour on the
+    # line from the backdrop through the pixel), so thin parts (slats, legs, frames) count by
+    # their area; without a backdrop it counts only when nearly pure.
     blended = _colour_edge(pixel_jab).ravel() > settings.edge_delta_e**2
-    clean = np.where(blended, 0.0, product)
-    if clean.sum() < 0.5 * product.sum():
-        clean = product
     background = (mask.weights <= 0.0)
     touching = np.zeros_like(background)
     touching[1:] |= background[:-1]
     touching[:-1] |= background[1:]
     touching[:, 1:] |= background[:, :-1]
     touching[:, :-1] |= background[:, 1:]
-    outline = touching.ravel() & blended
+    outline = touching.ravel() & (product > 0)
+    if mask.backdrop is None:
+        outline &= blended
+    clean = np.where(blended | outline, 0.0, product)
+    if clean.sum() < 16:
+        clean = product
     inner = np.where(outline, 0.0, product)
     bins, jab = weighted_means(product)
     n_bins = int(inverse.max()) + 1
     clean_mass = np.bincount(inverse, weights=clean, minlength=n_bins)[bins]
     inner_mass = np.bincount(inverse, weights=inner, minlength=n_bins)[bins]
-    outline_mass = np.bincount(inverse, weights=product - inner, minlength=n_bins)[bins]
     fit = clean_mass > 0
     rng = np.random.default_rng(settings.seed)
     centres, _ = weighted_kmeans(jab[fit], clean_mass[fit], settings.colours, rng)
-    d2 = _sq_dist(jab, centres)
-    nearest = np.argmin(d2, axis=1)
-    pure = d2[np.arange(len(jab)), nearest] <= (settings.edge_delta_e / 2.0) ** 2
-    mass = np.bincount(nearest, weights=inner_mass + np.where(pure, outline_mass, 0.0), minlength=len(centres))
+    nearest = np.argmin(_sq_dist(jab, centres), axis=1)
+    mass = np.bincount(nearest, weights=inner_mass, minlength=len(centres))
+    edge = np.flatnonzero(outline)
+    if edge.size:
+        px = flat_jab[edge].astype(float)
+        if mask.backdrop is None:
+            d2 = _sq_dist(px, centres)
+            k = np.argmin(d2, axis=1)
+            pure = d2[np.arange(edge.size), k] <= (settings.edge_delta_e / 2.0) ** 2
+            mass += np.bincount(k[pure], weights=product[edge][pure], minlength=len(centres))
+        else:
+            back = mask.backdrop.reshape(-1, 3)[edge]
+            span = centres[None, :, :] - back[:, None, :]  # (n, k, 3)
+            rel = (px - back)[:, None, :]
+            alpha = np.clip((rel * span).sum(-1) / np.maximum((span * span).sum(-1), 1e-9), 0.0, 1.0)
+            resid = ((rel - alpha[..., None] * span) ** 2).sum(-1)
+            k = np.argmin(resid, axis=1)
+            a = alpha[np.arange(edge.size), k]
+            mass += np.bincount(k, weights=a * product[edge], minlength=len(centres))
     centres, mass = centres[mass > 0], mass[mass > 0]
     centres, mass = _merge_close(centres, mass, settings.merge_delta_e)
     share = mass / mass.sum()
