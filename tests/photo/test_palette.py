@@ -269,7 +269,7 @@ def test_flags_round_trip_and_validation(tmp_path):
     # The store keeps them.
     from harmony.shop.store import Store
 
-    with Store(tmp_path / "s.db") as store:
+    with Store(tmp_path / "s.db", create=True) as store:
         assert "flags" in {r[1] for r in store._db.execute("PRAGMA table_info(palettes)")}
 
 
