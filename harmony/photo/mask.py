@@ -344,12 +344,13 @@ def backdrop_model(jab, ring, usable, tolerance, iterations=3):
         if it == iterations or inlier.sum() < 12:
             break
         cols = 3 if it == 0 else 6
-        sol, *_ = np.linalg.lstsq(design[inlier, :cols], pts[inlier], rcond=None)
+        a = design[inlier, :cols]
+        sol = np.linalg.solve(a.T @ a + 1e-9 * np.eye(cols), a.T @ pts[inlier])  # normal equations
         coef = np.zeros((6, 3))
         coef[:cols] = sol
     y = np.linspace(-0.5, 0.5, h)[:, None] * np.ones((1, w))
     x = np.ones((h, 1)) * np.linspace(-0.5, 0.5, w)[None, :]
-    surface = (_basis(y, x).reshape(-1, 6) @ coef).reshape(h, w, 3)
+    surface = (_basis(y, x).reshape(-1, 6) @ coef).reshape(h, w, 3).astype(jab.dtype)
     return surface, residual, inlier
 
 
@@ -514,18 +515,24 @@ def foreground_mask(
     # opening (a mirror, a cane seat) is not swallowed with the gap around it.
     labels, n = ndimage.label((near | ringing) & ~back)
     if n:
-        index = np.arange(1, n + 1)
         bias = min(max(ENCLOSED_BIAS_FACTOR * _patch_bias(diff, width), ENCLOSED_MIN_DELTA_E), cap)
         clear = near & ~ringing_zone  # away from strong edges: the region's own colour
         n_clear = np.bincount(labels[clear], minlength=n + 1)
         n_near = np.bincount(labels[near], minlength=n + 1)
-        off_clear = np.stack([ndimage.median(diff[..., c], labels * clear, index) for c in range(3)], axis=-1)
-        off_near = np.stack([ndimage.median(diff[..., c], labels * near, index) for c in range(3)], axis=-1)
+        # Mean offsets (bincount: fast with many small regions); the pixels are already
+        # within the opening tolerance, so no outlier can pull a mean far.
+        flat = labels.ravel()
+        sel_c, sel_n = flat[clear.ravel()], flat[near.ravel()]
+        d_flat = diff.reshape(-1, 3)
+        off_clear = np.stack([np.bincount(sel_c, weights=d_flat[clear.ravel(), c], minlength=n + 1)
+                              for c in range(3)], axis=-1)[1:] / np.maximum(n_clear[1:, None], 1)
+        off_near = np.stack([np.bincount(sel_n, weights=d_flat[near.ravel(), c], minlength=n + 1)
+                             for c in range(3)], axis=-1)[1:] / np.maximum(n_near[1:, None], 1)
         wide = n_clear[1:] >= ENCLOSED_CLEAR_PIXELS
         off = np.where(wide[:, None], off_clear, off_near)
         limit = np.where(wide, bias, opening)
         keep = np.zeros(n + 1, dtype=bool)
-        keep[1:] = (n_near[1:] > 0) & (np.sqrt((np.nan_to_num(off, nan=np.inf) ** 2).sum(axis=-1)) <= limit)
+        keep[1:] = (n_near[1:] > 0) & (np.sqrt((off**2).sum(axis=-1)) <= limit)
         back |= keep[labels]
     back |= transparent
     # Shadow pixels in corners (a leg meeting its shadow) have too few smooth neighbours for the
