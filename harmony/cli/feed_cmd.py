@@ -175,8 +175,10 @@ def suggest_cmd(product_id, db, category, top, as_json, rules_path, curation_pat
             "product": found[0].row.product,
             "category": found[0].row.category,
             "colours": list(own.hex),
+            "palette_flags": list(own.flags),
             "suggestions": [
-                {**s.row.to_dict(), "raw": s.pair.raw, "colours": list(s.palette.hex)} for s in found
+                {**s.row.to_dict(), "raw": s.pair.raw, "colours": list(s.palette.hex),
+                 "palette_flags": list(s.palette.flags)} for s in found
             ],
         }
         click.echo(json.dumps(payload, ensure_ascii=False))
@@ -185,9 +187,17 @@ def suggest_cmd(product_id, db, category, top, as_json, rules_path, curation_pat
     first = found[0].row
     names = [f"{s.row.partner} ({s.row.partner_category})" for s in found]
     width = max(len(n) for n in names)
-    click.echo(f"{first.product} ({first.category})  {colour_blocks(own, colour)}")
+    click.echo(f"{first.product} ({first.category})  {colour_blocks(own, colour)}{_doubt(own)}")
     for s, name in zip(found, names):
         r = s.row
         pin = "  (pinned)" if r.pinned else ""
-        click.echo(f"{r.rank:>3}. {name:<{width}}  score {r.score:.2f}  {colour_blocks(s.palette, colour)}{pin}")
+        click.echo(f"{r.rank:>3}. {name:<{width}}  score {r.score:.2f}  {colour_blocks(s.palette, colour)}{pin}"
+                   f"{_doubt(s.palette)}")
         click.echo(f"     {r.reason}")
+
+
+def _doubt(palette):
+    """'  [palette flagged: near-backdrop, confidence 0.60]' for a flagged palette, else ''."""
+    if palette is None or not palette.flags:
+        return ""
+    return f"  [palette flagged: {', '.join(palette.flags)}, confidence {palette.confidence:.2f}]"

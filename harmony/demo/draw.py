@@ -248,6 +248,22 @@ def _draw_armchair(p, fr, look):
         _throw_cushion(p, fr, look, 0.5, 0.36, 0.14, 0.08)
 
 
+def _draw_open_shelf(p, fr, look, levels):
+    """An open frame: four posts and ``levels`` shelves, the backdrop showing between them."""
+    m, tex = look.main, look.main_tex
+    p.ground(fr, 0.02, 0.98, 0.985, depth=0.04, strength=0.28, sigma=6.0)
+    for u in (0.03, 0.2, 0.8, 0.97):
+        back_post = u in (0.2, 0.8)
+        p.fill(p.rect(fr, u - 0.02, 0.02 if not back_post else 0.05, u + 0.02, 0.975),
+               _scaled(m, 0.85 if back_post else 1.0), tex, along="y", edge=0.0)
+        p.foot(fr, u, 0.975, size=0.03)
+    for k in range(levels):
+        v = 0.02 + k * (0.93 / max(levels - 1, 1))
+        p.fill(p.poly(fr, [(0.05, v - 0.035), (0.95, v - 0.035), (1.0, v), (0.0, v)]), _scaled(m, 1.05), tex,
+               along="x", edge=0.0)
+        p.fill(p.rect(fr, 0.0, v, 1.0, v + 0.045), _scaled(m, 0.85), tex, along="x", edge=0.0)
+
+
 def _draw_table(p, fr, look, top_v, leg_v, round_top, shelf):
     m, tex = look.main, look.main_tex
     p.ground(fr, 0.02, 0.98, 0.985, depth=0.05, strength=0.25, sigma=6.0)
@@ -330,6 +346,17 @@ def _draw_pendant(p, fr, look):
     p.fill(p.rect(fr, 0.44, 0.0, 0.56, 0.03), look.frame, look.frame_tex, along="y", edge=0.0)
     p.fill(p.rect(fr, 0.495, 0.03, 0.505, 0.4), cord, "plain", edge=0.0)
     shade_tex = look.main_tex
+    if look.variant == 4:  # wire cage around a bare bulb
+        p.fill(p.ellipse(fr, 0.42, 0.62, 0.58, 0.8), (1.0, 0.97, 0.88), "glass", edge=0.0)
+        wires = [p.line(fr, [(0.5, 0.4), (0.5 + 0.4 * np.cos(t), 0.85 - 0.42 * np.sin(t)), (0.5 + 0.4 * np.cos(t), 0.88)], 2.0)
+                 for t in np.linspace(0.15, np.pi - 0.15, 6)]
+        wires.append(p.line(fr, [(0.1, 0.88), (0.9, 0.88)], 2.5))
+        wires.append(p.line(fr, [(0.16, 0.62), (0.84, 0.62)], 2.0))
+        mask = wires[0]
+        for extra in wires[1:]:
+            mask = ImageChops.lighter(mask, extra)
+        p.fill(mask, look.frame, "plain", edge=0.0)
+        return
     if look.variant == 2:
         d = 0.56 * fr.w / fr.h  # a round globe whatever the frame's aspect
         glow = p.ellipse(fr, 0.22, 0.41, 0.78, 0.41 + d)
@@ -378,7 +405,17 @@ def _draw_dining_chair(p, fr, look):
         p.fill(p.poly(fr, [(u - 0.03, 0.0), (u + 0.03, 0.0), (u + 0.02, 0.93), (u - 0.02, 0.93)]),
                m, tex, along="y", edge=0.0, shade=0.1)
         p.foot(fr, u, 0.93, size=0.04)
-    if look.variant == 1:  # slats
+    if look.variant == 4:  # ladder back: open horizontal rails
+        for v in (0.05, 0.15, 0.25, 0.35):
+            p.fill(p.rect(fr, 0.22, v, 0.78, v + 0.045, r=0.01), m, tex, edge=0.0)
+    elif look.variant == 5:  # spindles under a top rail
+        for u in np.linspace(0.3, 0.7, 7):
+            p.fill(p.rect(fr, u - 0.008, 0.08, u + 0.008, 0.47), m, tex, along="y", edge=0.0)
+        p.fill(p.rect(fr, 0.2, 0.03, 0.8, 0.09, r=0.02), m, tex, edge=0.0)
+    elif look.variant == 6:  # hoop back: a ring of bent wood
+        p.fill(ImageChops.subtract(p.ellipse(fr, 0.2, 0.0, 0.8, 0.44), p.ellipse(fr, 0.26, 0.035, 0.74, 0.405)),
+               m, tex, edge=0.0)
+    elif look.variant == 1:  # slats
         for u in np.linspace(0.3, 0.7, 5):
             p.fill(p.rect(fr, u - 0.018, 0.06, u + 0.018, 0.5), m, tex, along="y", edge=0.0)
         p.fill(p.rect(fr, 0.2, 0.04, 0.8, 0.1), m, tex, edge=0.0)
@@ -493,6 +530,10 @@ def _draw_product(p, fr, product):
         _draw_sofa(p, fr, look, seats=(2, 3, 3, 2)[look.variant])
     elif cat == "armchair":
         _draw_armchair(p, fr, look)
+    elif cat == "coffee table" and look.variant == 4:
+        _draw_open_shelf(p, fr, look, levels=2)
+    elif cat == "bedside table" and look.variant == 4:
+        _draw_open_shelf(p, fr, look, levels=3)
     elif cat == "coffee table":
         _draw_table(p, fr, look, top_v=0.3, leg_v=0.98, round_top=look.variant == 1, shelf=look.variant == 2)
     elif cat == "dining table":

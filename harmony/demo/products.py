@@ -8,7 +8,7 @@ import numpy as np
 from harmony import colour
 from harmony.resources import DEMO_DIR
 
-__all__ = ["SHOP_NAME", "CURRENCY", "DEFAULT_SEED", "IMAGE_SIZE", "JPEG_QUALITY", "DEFAULT_SHOP_DIR", "CATALOGUE_COLUMNS", "CATEGORY_COUNTS", "CATEGORIES", "ColourStory", "COLOUR_STORIES", "Look", "DemoProduct", "ShopSummary", "design_products"]
+__all__ = ["OPEN_AND_LIGHT", "SHOP_NAME", "CURRENCY", "DEFAULT_SEED", "IMAGE_SIZE", "JPEG_QUALITY", "DEFAULT_SHOP_DIR", "CATALOGUE_COLUMNS", "CATEGORY_COUNTS", "CATEGORIES", "ColourStory", "COLOUR_STORIES", "Look", "DemoProduct", "ShopSummary", "design_products"]
 
 #: The shop's invented name (a made-up word, no real brand, person or company).
 SHOP_NAME = "Tovendel"
@@ -21,8 +21,8 @@ JPEG_QUALITY = 85
 DEFAULT_SHOP_DIR = DEMO_DIR / "shop"
 CATALOGUE_COLUMNS = ("id", "title", "category", "price", "currency", "stock", "image", "colour", "material")
 
-#: Products per category (194 in all).
-CATEGORY_COUNTS = {
+#: Products per category designed first (194 in all); :data:`OPEN_AND_LIGHT` adds more.
+_BASE_COUNTS = {
     "sofa": 18,
     "armchair": 16,
     "coffee table": 14,
@@ -37,6 +37,22 @@ CATEGORY_COUNTS = {
     "desk": 10,
     "desk chair": 12,
 }
+
+#: Products added after the first 194, of the kinds whose palettes are hardest to get right:
+#: open frames (ladder-, spindle- and hoop-back chairs, open shelving, a wire-cage pendant) and
+#: light neutrals (light grey and off-white upholstery, white lamps). ``(category, variant,
+#: fabric)``: variants 4 and up are the open designs of :mod:`harmony.demo.draw`; ``fabric`` names
+#: a colour of the neutrals story for the main colour, or None for the story's usual choice.
+OPEN_AND_LIGHT = (
+    ("dining chair", 4, None), ("dining chair", 5, None), ("dining chair", 6, None), ("dining chair", 4, None),
+    ("coffee table", 4, None), ("bedside table", 4, None), ("bedside table", 4, "off-white"),
+    ("pendant lamp", 4, None), ("pendant lamp", 2, "off-white"), ("floor lamp", 0, "off-white"),
+    ("sofa", 1, "light grey"), ("sofa", 2, "off-white"), ("armchair", 0, "off-white"),
+    ("armchair", 3, "light grey"), ("bed", 0, "off-white"), ("bed", 2, "light grey"),
+)
+
+#: Products per category (210 in all).
+CATEGORY_COUNTS = {c: n + sum(1 for cat, _, _ in OPEN_AND_LIGHT if cat == c) for c, n in _BASE_COUNTS.items()}
 CATEGORIES = tuple(CATEGORY_COUNTS)
 
 _ID_PREFIX = {
@@ -287,15 +303,19 @@ def _design_look(category, story, rng):
 _DESCRIPTORS = {
     "sofa": ("2-seat sofa", "3-seat sofa", "3-seat sofa", "2-seat sofa"),
     "armchair": ("armchair", "lounge chair", "armchair", "reading chair"),
-    "coffee table": ("coffee table", "round coffee table", "coffee table with shelf", "low coffee table"),
+    "coffee table": ("coffee table", "round coffee table", "coffee table with shelf", "low coffee table",
+                     "open-frame coffee table"),
     "rug": ("rug 160x230", "rug 200x300", "rug 140x200", "rug 250x350"),
     "floor lamp": ("floor lamp", "tripod floor lamp", "floor lamp", "tripod floor lamp"),
     "cushion": ("cushion 45x45", "striped cushion 50x50", "piped cushion 45x45", "cushion 50x50"),
     "dining table": ("dining table for 4", "dining table for 6", "dining table for 6", "dining table for 8"),
-    "dining chair": ("dining chair", "slatted dining chair", "upholstered dining chair", "dining chair"),
-    "pendant lamp": ("dome pendant lamp", "cone pendant lamp", "globe pendant lamp", "drum pendant lamp"),
+    "dining chair": ("dining chair", "slatted dining chair", "upholstered dining chair", "dining chair",
+                     "ladder-back dining chair", "spindle-back dining chair", "hoop-back dining chair"),
+    "pendant lamp": ("dome pendant lamp", "cone pendant lamp", "globe pendant lamp", "drum pendant lamp",
+                     "wire cage pendant lamp"),
     "bed": ("double bed 140x200", "double bed 160x200", "king bed 180x200", "double bed 160x200"),
-    "bedside table": ("bedside table", "bedside table with 2 drawers", "bedside table", "bedside table"),
+    "bedside table": ("bedside table", "bedside table with 2 drawers", "bedside table", "bedside table",
+                      "open shelf bedside table"),
     "desk": ("desk", "desk with drawers", "writing desk", "desk with drawers"),
     "desk chair": ("desk chair", "office chair", "desk chair", "office chair"),
 }
@@ -330,7 +350,7 @@ def design_products(rng):
     weights = _STORY_WEIGHTS / _STORY_WEIGHTS.sum()
     for category in CATEGORIES:
         used_titles = set()
-        for number in range(1, CATEGORY_COUNTS[category] + 1):
+        for number in range(1, _BASE_COUNTS[category] + 1):
             story = COLOUR_STORIES[int(rng.choice(len(COLOUR_STORIES), p=weights))]
             look, coarse, material, shade = _design_look(category, story, rng)
             descriptor = _DESCRIPTORS[category][look.variant]
@@ -346,16 +366,64 @@ def design_products(rng):
             designs.append(dict(id=pid, title=title, category=category, price=price, stock=stock,
                                 colour=coarse, material=material, story=story.name, look=look,
                                 photo_seed=int(rng.integers(2**62))))
-    n = len(designs)
+    n = len(designs)  # the first 194: scene photos are chosen among them only
     with_scene = rng.choice(n, size=round(n / 10), replace=False)
-    scene_only = set(int(i) for i in with_scene[:4])
-    with_scene = set(int(i) for i in with_scene)
+    scene_only = set(designs[int(i)]["id"] for i in with_scene[:4])
+    with_scene = set(designs[int(i)]["id"] for i in with_scene)
+    designs += _open_and_light(np.random.default_rng(int(rng.integers(2**62))), designs)
+    order = {c: k for k, c in enumerate(CATEGORIES)}
+    designs.sort(key=lambda d: (order[d["category"]], d["id"]))
     products = []
-    for i, d in enumerate(designs):
-        images = [] if i in scene_only else [(f"images/{d['id']}.jpg", "studio")]
-        if i in with_scene:
+    for d in designs:
+        images = [] if d["id"] in scene_only else [(f"images/{d['id']}.jpg", "studio")]
+        if d["id"] in with_scene:
             images.append((f"images/{d['id']}-room.jpg", "scene"))
         products.append(DemoProduct(currency=CURRENCY, images=tuple(images), **d))
     return tuple(products)
 
 
+
+
+def _open_and_light(rng, designs):
+    """Design the products of :data:`OPEN_AND_LIGHT` from their own generator ``rng``."""
+    neutrals = next(s for s in COLOUR_STORIES if s.name == "neutrals")
+    numbers = {}
+    for d in designs:
+        numbers[d["category"]] = max(numbers.get(d["category"], 0), int(d["id"].split("-")[1]))
+    titles = {d["title"] for d in designs}
+    out = []
+    for category, variant, fabric in OPEN_AND_LIGHT:
+        story = neutrals if fabric else COLOUR_STORIES[int(rng.integers(len(COLOUR_STORIES)))]
+        look, coarse, material, shade = _design_look(category, story, rng)
+        changes = {"variant": variant}
+        if fabric:
+            name, code, coarse = next(f for f in story.fabrics + story.accents if f[0] == fabric)
+            changes["main"] = _jitter(code, rng, j=1.0, ab=0.5)
+            if category in ("pendant lamp", "floor lamp"):
+                changes["main_tex"] = "lacquer" if category == "pendant lamp" else "weave"
+                material = "glass" if category == "pendant lamp" else "linen shade"
+            shade = name
+        elif category in ("dining chair", "coffee table", "bedside table"):
+            wood = _pick(story.woods, rng)
+            changes.update(main=_jitter(wood[1], rng), main_tex="wood", second=_jitter(wood[1], rng),
+                           second_tex="wood")
+            shade, material, coarse = wood[0], wood[0], wood[2]
+        elif category == "pendant lamp":
+            metal = _pick(story.metals, rng)
+            changes.update(frame=_jitter(metal[1], rng, j=2.0, ab=0.8), frame_tex="metal")
+            shade, material, coarse = metal[0], "steel wire", metal[2]
+        look = Look(**{**look.__dict__, **changes})
+        descriptor = _DESCRIPTORS[category][variant]
+        finish = material if shade == material else f"{shade} {material}"
+        title = f"{_pick(story.collections, rng)} {descriptor}, {finish}"
+        while title in titles:
+            title += " II"
+        titles.add(title)
+        numbers[category] += 1
+        u = rng.random()
+        out.append(dict(id=f"{_ID_PREFIX[category]}-{numbers[category]:03d}", title=title, category=category,
+                        price=_price(category, min(variant, 3), material, rng),
+                        stock=0 if u < 0.08 else None if u < 0.25 else int(rng.integers(1, 41)),
+                        colour=coarse, material=material, story=story.name, look=look,
+                        photo_seed=int(rng.integers(2**62))))
+    return out

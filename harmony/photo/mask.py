@@ -1,10 +1,39 @@
 """Which pixels of a product photo belong to the product.
 
-Studio shots have a uniform backdrop: the background is whatever is *connected to the image edge*
-and within a ΔE tolerance of the border colour, so a near-white part inside the product stays.
-Soft shadows (connected to the background, darker, about as neutral, and without sharp edges)
-go too. A border that is not uniform marks a room (lifestyle) scene: then every pixel counts,
-weighted by a centre prior, and the result is flagged with a low confidence.
+Studio shots have a backdrop that is uniform *up to a smooth light fall-off*: a seamless sweep
+lit from above can lose 20 % or more of its brightness from top to bottom. The backdrop is
+therefore modelled as a smooth surface, a quadratic in the pixel position fitted robustly to the
+border ring, per channel of CAM02-UCS J'a'b' (:func:`backdrop_model`). Every later test compares a
+pixel with the backdrop *at that pixel*, not with one border colour.
+
+* **Studio shot or scene.** The border is uniform when at least ``uniform_share`` of the ring lies
+  within ``tolerance`` of the fitted surface, the surface itself changes by no more than a sweep
+  does (:data:`MAX_FALLOFF_J`, :data:`MAX_FALLOFF_AB`), and nothing along the ring *steps*: a
+  room with a plain wall over a floor has a mostly uniform ring, but the wall meets the floor in a
+  sharp step, while a sweep changes slowly (:data:`MAX_RING_STEP`).
+* **Backdrop, wherever it shows.** A pixel *continues the backdrop* when it lies within the
+  opening tolerance of the surface: the backdrop's own measured spread (95th percentile of the
+  ring's ΔE from the surface) times :data:`OPENING_SPREAD_FACTOR`, kept between
+  :data:`OPENING_MIN_DELTA_E` and :data:`OPENING_MAX_DELTA_E`. Such pixels connected to the image
+  edge are background, and so is every *enclosed* region made mostly of them (the backdrop seen
+  through a chair back, between shelves, inside a frame), however it is enclosed. A part that
+  differs from the backdrop by more than the opening tolerance (at most 4.5 ΔE, so any light part
+  5 ΔE or more away) is product wherever it is, touching the outline or not.
+* **Shadows.** A shadow pixel is darker than the backdrop (by at most ``shadow_depth``), as
+  neutral as the backdrop (a'b' within ``shadow_ab``) *and* smooth: it differs by less than
+  ``shadow_edge`` from each neighbour and by less than :data:`SHADOW_CURVATURE` from the mean of
+  its 3 x 3 neighbourhood. Soft shadows fade into the backdrop over several pixels and pass; the
+  crisp outline of a flat light surface does not (a step of 6 ΔE leaves at least 1 ΔE of
+  curvature beside it, whatever its sub-pixel position), so the flood from the backdrop stops
+  there and the surface stays product, however close to neutral.
+* **Confidence.** The share of the ring that matches the backdrop surface, lowered and flagged
+  when the kept area is implausibly small for a studio shot (:data:`SMALL_AREA_SHARE`,
+  flag ``"small-area"``) or when a clear part of the product sits within a few ΔE of the backdrop
+  (:data:`NEAR_BACKDROP_DELTA_E`, :data:`NEAR_BACKDROP_SHARE`, flag ``"near-backdrop"``): such
+  parts may have been lost, or may be backdrop that was kept.
+
+A border that is not uniform marks a room (lifestyle) scene: then every pixel counts, weighted by
+a centre prior, and the result is flagged with a low confidence.
 
 A full-bleed photo (a close-up of a rug, a fabric swatch, a flat colour fill) also has a uniform
 border, but there the border colour is the product itself. Backdrop removal would take away the
@@ -36,7 +65,7 @@ by colour and is treated as a backdrop (error when nothing else is left).
 from dataclasses import dataclass
 
 import numpy as np
-from skimage.measure import label
+from scipy import ndimage
 
 __all__ = [
     "Mask",
@@ -45,9 +74,31 @@ __all__ = [
     "BACKDROP_MIN_LIGHTNESS",
     "EVEN_LEFTOVER_RATIO",
     "EVEN_LEFTOVER_SLACK",
+    "MAX_FALLOFF_J",
+    "MAX_FALLOFF_AB",
+    "MAX_RING_STEP",
+    "OPENING_SPREAD_FACTOR",
+    "OPENING_MIN_DELTA_E",
+    "OPENING_MAX_DELTA_E",
+    "SHADOW_CURVATURE",
+    "RINGING_EDGE_FACTOR",
+    "SHADOW_GROW_STEP",
+    "SHADOW_REACH",
+    "SHADOW_RELATIVE_CURVATURE",
+    "ENCLOSED_CLEAR_PIXELS",
+    "ENCLOSED_BIAS_FACTOR",
+    "ENCLOSED_MIN_DELTA_E",
+    "SMALL_AREA_SHARE",
+    "SMALL_AREA_CONFIDENCE",
+    "NEAR_BACKDROP_DELTA_E",
+    "NEAR_BACKDROP_SHARE",
+    "NEAR_BACKDROP_CONFIDENCE",
+    "FLAG_SMALL_AREA",
+    "FLAG_NEAR_BACKDROP",
     "is_backdrop_colour",
     "CENTRE_PRIOR_SIGMA",
     "border_ring",
+    "backdrop_model",
     "foreground_mask",
 ]
 
@@ -74,6 +125,90 @@ BACKDROP_MIN_LIGHTNESS = 75.0
 EVEN_LEFTOVER_RATIO = 1.5
 EVEN_LEFTOVER_SLACK = 0.02
 
+#: Largest change of the fitted backdrop's J' across the frame. A sweep whose light falls off by
+#: 35 % from top to bottom (sRGB 0.95 -> 0.62) changes J' by about 25; brighter fall-offs than that
+#: are not studio lighting (convention of this project, measured with :func:`backdrop_model`).
+MAX_FALLOFF_J = 30.0
+#: Largest change of the fitted backdrop's a' or b' across the frame: a fall-off darkens a
+#: backdrop without changing its hue much (convention of this project).
+MAX_FALLOFF_AB = 6.0
+#: Largest ΔE between two backdrop-like points of the ring 4 pixels apart. A 35 % sweep changes
+#: by about 0.8 ΔE over 4 pixels at 128 px; a wall meeting a floor steps by the whole difference
+#: at once (convention of this project; measured in ``tests/photo/test_mask.py``).
+MAX_RING_STEP = 3.0
+
+#: The opening tolerance is this many times the backdrop's measured spread (95th percentile of
+#: the ring's ΔE from the fitted surface), kept between the two limits below. Three times the
+#: 95th percentile of a Gaussian spread is beyond its 99.99th percentile (common practice).
+OPENING_SPREAD_FACTOR = 3.0
+#: Smallest opening tolerance (ΔE): JPEG's 4:2:0 chroma subsampling shifts a flat backdrop by
+#: up to about 2.5 ΔE in whole blocks next to a coloured product, so below 3 ΔE bands of backdrop
+#: would be kept (measured on generated shots at quality 90).
+OPENING_MIN_DELTA_E = 3.0
+#: Largest opening tolerance (ΔE), below the 5 ΔE at which a light part must stay product (the
+#: trade-off is measured in ``tests/photo/test_openings.py``: an enclosed inlay 5 ΔE from the
+#: backdrop keeps its share, enclosed backdrop with the spread of a JPEG'd sweep goes).
+OPENING_MAX_DELTA_E = 4.5
+
+#: An enclosed region is backdrop seen through an opening when its median colour lies within
+#: this many times the backdrop's own patch-to-surface unevenness of the surface (the largest ΔE
+#: of the median of one of eight border patches from the fitted surface), kept between
+#: :data:`ENCLOSED_MIN_DELTA_E` and :data:`OPENING_MAX_DELTA_E`. A near-white part with its own
+#: colour (a pillow 1.8 ΔE off) is then product, a window onto the backdrop is not (convention of
+#: this project, measured in ``tests/photo/test_openings.py``).
+ENCLOSED_BIAS_FACTOR = 3.0
+#: Smallest tolerance for the median colour of an enclosed region (ΔE).
+ENCLOSED_MIN_DELTA_E = 1.0
+
+#: A step between neighbours larger than this many times ``tolerance`` (ΔE) is a strong edge;
+#: beside it JPEG ringing is tolerated up to ``tolerance`` (measured: a 50 ΔE outline at quality
+#: 90 rings by up to about 5 ΔE one pixel out at 128 px).
+RINGING_EDGE_FACTOR = 2.0
+
+#: Largest |J' - mean of its 3 x 3 neighbourhood| of a shadow pixel. A soft shadow 25 J' deep
+#: blurred over 2.5 px (the contact shadows of studio shots at 128 px) curves by about 0.35; a
+#: crisp step of 6 J' leaves at least 1.0 beside it; sensor and JPEG noise about 0.3 (measured).
+SHADOW_CURVATURE = 0.7
+
+#: A deeper shadow may curve more: up to this fraction of its depth below the backdrop. A
+#: Gaussian shadow of depth D and width s (pixels) curves by about 2D / (3 s^2) at its core, so
+#: shadows at least 2.6 px wide pass; beside a crisp outline of height H the first pixel inside
+#: curves by at least H / 6, whatever H, so outlines stay closed (derivation; measured in tests).
+SHADOW_RELATIVE_CURVATURE = 0.1
+
+#: How far (a fraction of the short side, through shadow pixels) a shadow reaches from the
+#: backdrop. Contact shadows of studio shots are a few percent of the frame high (measured on
+#: the generated and demo shots: their cores lie up to about 8 % of the side from clean backdrop); a product as dark as its shadow where it
+#: stands on it loses at most this much of its legs (convention of this project).
+SHADOW_REACH = 0.12
+
+#: An enclosed region judged by its own colour needs this many pixels away from strong edges;
+#: narrower gaps (between slats) are all blur and ringing and are judged by their pixels within
+#: the opening tolerance instead (convention of this project).
+ENCLOSED_CLEAR_PIXELS = 12
+
+#: Largest J' step from a background neighbour of a shadow-coloured pixel that the shadow
+#: still takes after the flood (corners where a leg meets its shadow). Twice the shadow
+#: curvature: the 3 J' half-step beside a crisp 6 J' outline stays out (measured).
+SHADOW_GROW_STEP = 1.4
+
+#: A studio shot whose product keeps less than this share of the image is implausible (products
+#: are photographed to fill the frame; convention of this project, the smallest demo product, a
+#: slim floor lamp, keeps about 6 %).
+SMALL_AREA_SHARE = 0.03
+#: Confidence of a palette flagged ``"small-area"`` (below the 0.5 "prefer another photo" line).
+SMALL_AREA_CONFIDENCE = 0.4
+#: A product pixel within this ΔE of the backdrop surface is "near the backdrop": a few JNDs
+#: beyond the opening tolerance (convention of this project).
+NEAR_BACKDROP_DELTA_E = 8.0
+#: Share of the kept (non-outline) pixels near the backdrop that flags the palette.
+NEAR_BACKDROP_SHARE = 0.15
+#: Confidence of a palette flagged ``"near-backdrop"``.
+NEAR_BACKDROP_CONFIDENCE = 0.6
+
+FLAG_SMALL_AREA = "small-area"
+FLAG_NEAR_BACKDROP = "near-backdrop"
+
 #: Standard deviation of the Gaussian centre prior for scenes, as a fraction of each image side
 #: (common practice: product photos centre the product).
 CENTRE_PRIOR_SIGMA = 0.25
@@ -89,14 +224,19 @@ class Mask:
         How much each pixel counts for the palette: 0 for background and shadow, 1 for the
         product of a studio shot, the centre prior for a scene.
     background_jab : ndarray, shape (3,) or None
-        Border colour of a studio shot; None for transparent backgrounds and scenes.
+        Backdrop colour of a studio shot (the fitted surface at the median ring position); None
+        for transparent backgrounds and scenes.
     background_share : float
         Share of pixels that are background (backdrop, shadow or transparent).
     scene : bool
         True when the border was not uniform.
     confidence : float
-        In [0, 1]: the share of border pixels matching the backdrop for studio shots, 1 for
-        transparent backgrounds, :data:`SCENE_CONFIDENCE` for scenes.
+        In [0, 1]: the share of border pixels matching the backdrop for studio shots, lowered by
+        the flags; 1 for transparent backgrounds, :data:`SCENE_CONFIDENCE` for scenes.
+    flags : tuple of str
+        Doubts about the mask: :data:`FLAG_SMALL_AREA`, :data:`FLAG_NEAR_BACKDROP`.
+    backdrop : ndarray, shape (h, w, 3) or None
+        The fitted backdrop surface (J'a'b' at every pixel) of a studio shot, else None.
     """
 
     weights: np.ndarray
@@ -104,6 +244,8 @@ class Mask:
     background_share: float
     scene: bool
     confidence: float
+    flags: tuple = ()
+    backdrop: np.ndarray | None = None
 
 
 def border_ring(shape, width):
@@ -115,11 +257,15 @@ def border_ring(shape, width):
     return ring
 
 
-def _edge_strength(lightness):
-    """Largest absolute J' difference from the four neighbours, shape (h, w)."""
+def _edge_strength(lightness, among=None):
+    """Largest absolute J' difference from the four neighbours (only neighbours where ``among``
+    holds, when given), shape (h, w)."""
     step = np.zeros_like(lightness)
     dx = np.abs(np.diff(lightness, axis=1))
     dy = np.abs(np.diff(lightness, axis=0))
+    if among is not None:
+        dx *= among[:, 1:] & among[:, :-1]
+        dy *= among[1:, :] & among[:-1, :]
     np.maximum(step[:, :-1], dx, out=step[:, :-1])
     np.maximum(step[:, 1:], dx, out=step[:, 1:])
     np.maximum(step[:-1, :], dy, out=step[:-1, :])
@@ -127,27 +273,115 @@ def _edge_strength(lightness):
     return step
 
 
-def _connected_to_edge(candidates):
-    labels = label(candidates, connectivity=1)
+def _colour_step_sq(jab):
+    """Largest squared ΔE between each pixel and its four neighbours, shape (h, w)."""
+    h, w = jab.shape[:2]
+    dx = ((jab[:, 1:] - jab[:, :-1]) ** 2).sum(axis=-1)
+    dy = ((jab[1:, :] - jab[:-1, :]) ** 2).sum(axis=-1)
+    step = np.zeros((h, w), dtype=jab.dtype)
+    np.maximum(step[:, :-1], dx, out=step[:, :-1])
+    np.maximum(step[:, 1:], dx, out=step[:, 1:])
+    np.maximum(step[:-1, :], dy, out=step[:-1, :])
+    np.maximum(step[1:, :], dy, out=step[1:, :])
+    return step
+
+
+def _connected_to_edge(labels):
     edge = np.concatenate([labels[0], labels[-1], labels[:, 0], labels[:, -1]])
     keep = np.zeros(labels.max() + 1, dtype=bool)
     keep[edge] = True
     keep[0] = False
-    return keep[labels]
+    return keep
 
 
-def _side_spread(jab, transparent, width):
-    """Largest ΔE between the median colours of the four border strips of ``width`` pixels."""
-    medians = []
-    for rows, cols in ((slice(0, width), slice(None)), (slice(-width, None), slice(None)),
-                       (slice(None), slice(0, width)), (slice(None), slice(-width, None))):
-        strip = jab[rows, cols][~transparent[rows, cols]]
-        if len(strip):
-            medians.append(np.median(strip, axis=0))
-    if len(medians) < 2:
-        return 0.0
-    m = np.array(medians)
-    return float(np.max(np.sqrt(((m[:, None, :] - m[None, :, :]) ** 2).sum(axis=-1))))
+def _basis(y, x):
+    """Quadratic basis in normalised coordinates, shape (..., 6)."""
+    return np.stack([np.ones_like(y), x, y, x * x, x * y, y * y], axis=-1)
+
+
+def backdrop_model(jab, ring, usable, tolerance, iterations=3):
+    """Fit a smooth backdrop surface to the border ring.
+
+    Parameters
+    ----------
+    jab : ndarray, shape (h, w, 3)
+    ring, usable : ndarray, shape (h, w), bool
+        The border ring, and the pixels that may take part (opaque).
+    tolerance : float
+        ΔE beyond which a ring pixel is not backdrop (a product touching the border) and is left
+        out of the next fit.
+    iterations : int
+        Refits on the inliers of the previous fit.
+
+    Returns
+    -------
+    surface : ndarray, shape (h, w, 3)
+        The backdrop's J'a'b' at every pixel.
+    residual : ndarray, shape (n,)
+        ΔE of each usable ring pixel from the surface.
+    inlier : ndarray, shape (n,), bool
+
+    Notes
+    -----
+    Starts from the per-channel median of the ring (robust to a product touching the border),
+    then least squares over the ring pixels within ``tolerance`` of the current fit, with a
+    quadratic in (x, y): enough for a sweep's fall-off and a vignette, too stiff to follow an
+    object. The first refit is planar so that a far-off start cannot bend the surface.
+    """
+    h, w = jab.shape[:2]
+    ys, xs = np.nonzero(ring & usable)
+    yn, xn = ys / max(h - 1, 1) - 0.5, xs / max(w - 1, 1) - 0.5
+    pts = jab[ys, xs].astype(float)
+    design = _basis(yn, xn)
+    coef = np.zeros((6, 3))
+    coef[0] = np.median(pts, axis=0)
+    for it in range(iterations + 1):
+        fit = design @ coef
+        residual = np.sqrt(((pts - fit) ** 2).sum(axis=1))
+        # Widen the first inlier test: a sweep's ring is far from its median colour.
+        limit = tolerance if it else max(tolerance, 2.5 * float(np.median(residual)))
+        inlier = residual <= limit
+        if it == iterations or inlier.sum() < 12:
+            break
+        cols = 3 if it == 0 else 6
+        a = design[inlier, :cols]
+        sol = np.linalg.solve(a.T @ a + 1e-9 * np.eye(cols), a.T @ pts[inlier])  # normal equations
+        coef = np.zeros((6, 3))
+        coef[:cols] = sol
+    y = np.linspace(-0.5, 0.5, h)[:, None] * np.ones((1, w))
+    x = np.ones((h, 1)) * np.linspace(-0.5, 0.5, w)[None, :]
+    surface = (_basis(y, x).reshape(-1, 6) @ coef).reshape(h, w, 3).astype(jab.dtype)
+    return surface, residual, inlier
+
+
+def _ring_steps(jab, surface, width, tolerance):
+    """Largest ΔE between backdrop-like points 4 px apart along the four sides of the ring."""
+    worst = 0.0
+    sides = (jab[:width].mean(axis=0), jab[-width:].mean(axis=0),
+             jab[:, :width].mean(axis=1), jab[:, -width:].mean(axis=1))
+    models = (surface[:width].mean(axis=0), surface[-width:].mean(axis=0),
+              surface[:, :width].mean(axis=1), surface[:, -width:].mean(axis=1))
+    for profile, model in zip(sides, models):
+        if len(profile) < 6:
+            continue
+        ok = np.sqrt(((profile - model) ** 2).sum(axis=1)) <= tolerance
+        both = ok[4:] & ok[:-4]
+        if both.any():
+            step = np.sqrt(((profile[4:] - profile[:-4]) ** 2).sum(axis=1))
+            worst = max(worst, float(step[both].max()))
+    return worst
+
+
+def _patch_bias(diff, width):
+    """Largest ΔE of a border patch's median colour from the surface: the backdrop's own unevenness.
+
+    The ring is cut into eight patches (each side in two halves); ``diff`` is J'a'b' minus the
+    fitted surface, shape (h, w, 3)."""
+    h, w = diff.shape[:2]
+    patches = (diff[:width, : w // 2], diff[:width, w // 2 :], diff[-width:, : w // 2],
+               diff[-width:, w // 2 :], diff[: h // 2, :width], diff[h // 2 :, :width],
+               diff[: h // 2, -width:], diff[h // 2 :, -width:])
+    return max(float(np.linalg.norm(np.median(p.reshape(-1, 3), axis=0))) for p in patches)
 
 
 def is_backdrop_colour(jab):
@@ -166,6 +400,11 @@ def _centre_prior(shape):
     x = (np.arange(w) + 0.5) / w - 0.5
     s2 = 2.0 * CENTRE_PRIOR_SIGMA**2
     return np.exp(-(y[:, None] ** 2) / s2) * np.exp(-(x[None, :] ** 2) / s2)
+
+
+def _scene(shape, transparent):
+    weights = _centre_prior(shape) * ~transparent
+    return Mask(weights, None, float(transparent.mean()), True, SCENE_CONFIDENCE)
 
 
 def foreground_mask(
@@ -190,20 +429,18 @@ def foreground_mask(
     ring_fraction : float
         Width of the border ring sampled for the backdrop, as a fraction of the short side.
     tolerance : float
-        ΔE (CAM02-UCS) from the border colour within which an edge-connected pixel is backdrop.
+        ΔE (CAM02-UCS) from the fitted backdrop surface within which a ring pixel counts as
+        backdrop when deciding whether the border is uniform.
     uniform_share : float
         The border is uniform (a studio shot) when at least this share of its pixels lies within
-        ``tolerance`` of its median colour.
-        The median colours of the four sides must also lie within ``tolerance`` of each other:
-        a room with a plain wall has a mostly uniform ring, but its floor fills the bottom side.
+        ``tolerance`` of the backdrop surface, and the ring has no step (see the module docstring).
     shadow_ab : float
         Largest a'b' distance from the backdrop's a'b' of a shadow pixel (shadows are as neutral
         as the backdrop they fall on).
     shadow_depth : float
         Largest drop in J' below the backdrop of a shadow pixel.
     shadow_edge : float
-        A shadow pixel differs by less than this in J' from each of its neighbours (soft shadows
-        have no sharp edges, product outlines do).
+        A shadow pixel differs by less than this in J' from each of its neighbours.
 
     Returns
     -------
@@ -213,9 +450,6 @@ def foreground_mask(
     -----
     A uniform border whose colour is not a backdrop, with backdrop removal leaving only an even
     scatter, is a one-material frame: nothing is removed (see the module docstring for the rule).
-    The backdrop colour is the per-channel median of the ring, robust to a product that touches
-    the border. A light grey product standing in the shadow is kept as long as its outline is
-    sharper than ``shadow_edge``.
     """
     jab = np.asarray(jab)
     if jab.dtype.kind != "f":
@@ -231,31 +465,115 @@ def foreground_mask(
         weights = (~transparent).astype(float)
         return Mask(weights, None, float(transparent.mean()), False, 1.0)
 
-    ring_jab = jab[ring & ~transparent]
-    background = np.median(ring_jab, axis=0)
-    da, db = jab[..., 1] - background[1], jab[..., 2] - background[2]
-    dj = jab[..., 0] - background[0]
-    chroma_sq = da * da + db * db
-    near = chroma_sq + dj * dj <= tolerance**2
-    share = float(near[ring & ~transparent].mean())
-    if share < uniform_share or _side_spread(jab, transparent, width) > tolerance:
-        weights = _centre_prior((h, w)) * ~transparent
-        return Mask(weights, None, float(transparent.mean()), True, SCENE_CONFIDENCE)
+    surface, ring_residual, inlier = backdrop_model(jab, ring, ~transparent, tolerance)
+    share = float(inlier.mean())
+    if share < uniform_share:
+        return _scene((h, w), transparent)
+    span = surface.reshape(-1, 3).max(axis=0) - surface.reshape(-1, 3).min(axis=0)
+    if span[0] > MAX_FALLOFF_J or max(span[1], span[2]) > MAX_FALLOFF_AB:
+        return _scene((h, w), transparent)
+    if _ring_steps(jab, surface, width, tolerance) > MAX_RING_STEP:
+        return _scene((h, w), transparent)
 
-    shadow = (
-        (dj < 0.0)
-        & (dj >= -shadow_depth)
-        & (chroma_sq <= shadow_ab**2)
-        & (_edge_strength(jab[..., 0]) < shadow_edge)
-    )
-    back = _connected_to_edge(near | shadow) | transparent
+    diff = jab - surface
+    dj = diff[..., 0]
+    chroma_sq = diff[..., 1] ** 2 + diff[..., 2] ** 2
+    d2 = chroma_sq + dj * dj
+    spread = float(np.percentile(ring_residual[inlier], 95))
+    background = np.median(surface[ring], axis=0)
+    # The 5 ΔE rule protects light parts on a light studio backdrop; on a dark or coloured
+    # backdrop (a chart on black) ΔE is inflated by noise and the plain tolerance applies.
+    light = bool(is_backdrop_colour(background))
+    cap = OPENING_MAX_DELTA_E if light else tolerance
+    opening = min(max(OPENING_SPREAD_FACTOR * spread, OPENING_MIN_DELTA_E), cap) if light else tolerance
+    near = d2 <= opening**2
+    lightness = jab[..., 0]
+    coloured = (dj < 0.0) & (dj >= -shadow_depth) & (chroma_sq <= shadow_ab**2)
+    # Curvature against the neighbours that could be backdrop or shadow by colour only (a
+    # normalised 3 x 3 mean), so that a shadow beside a dark leg is not taken for an outline.
+    like = (coloured | near).astype(lightness.dtype)
+    weight = ndimage.uniform_filter(like, 3, mode="nearest")
+    local = ndimage.uniform_filter(lightness * like, 3, mode="nearest") / np.maximum(weight, 1e-6)
+    curvature = np.abs(lightness - local)
+    smooth = curvature < np.maximum(SHADOW_CURVATURE, SHADOW_RELATIVE_CURVATURE * np.abs(dj))
+    shadow = coloured & smooth & (_edge_strength(lightness, like > 0) < shadow_edge)
+    # JPEG ringing beside a strong edge moves the backdrop by several ΔE: there, within
+    # ``tolerance`` of the surface is enough (a light part's own outline is no strong edge).
+    strong = _colour_step_sq(jab) > (RINGING_EDGE_FACTOR * tolerance) ** 2
+    ringing_zone = ndimage.binary_dilation(strong, iterations=2)
+    ringing = ringing_zone & (d2 <= tolerance**2)
+    labels, _ = ndimage.label(near | ringing)
+    back = _connected_to_edge(labels)[labels]
+    # Shadows lie on the floor around the product and reach only so far from the backdrop: a
+    # product as dark as its own contact shadow where it stands on it is not flooded beyond the
+    # shadow's width, and a flat panel inside an opening is not taken for a shadow of it.
+    reach = max(2, int(round(SHADOW_REACH * min(h, w))))
+    back = ndimage.binary_dilation(back, iterations=reach, mask=back | shadow)
+    # Enclosed regions that continue the backdrop: regions within the opening tolerance, apart
+    # from the flood, whose median colour lies as close to the surface as the backdrop's own
+    # patches do. Shadow-coloured pixels do not join them, so a flat light panel set into an
+    # opening (a mirror, a cane seat) is not swallowed with the gap around it.
+    labels, n = ndimage.label((near | ringing) & ~back)
+    if n:
+        bias = min(max(ENCLOSED_BIAS_FACTOR * _patch_bias(diff, width), ENCLOSED_MIN_DELTA_E), cap)
+        clear = near & ~ringing_zone  # away from strong edges: the region's own colour
+        n_clear = np.bincount(labels[clear], minlength=n + 1)
+        n_near = np.bincount(labels[near], minlength=n + 1)
+        # Mean offsets (bincount: fast with many small regions); the pixels are already
+        # within the opening tolerance, so no outlier can pull a mean far.
+        flat = labels.ravel()
+        sel_c, sel_n = flat[clear.ravel()], flat[near.ravel()]
+        d_flat = diff.reshape(-1, 3)
+        off_clear = np.stack([np.bincount(sel_c, weights=d_flat[clear.ravel(), c], minlength=n + 1)
+                              for c in range(3)], axis=-1)[1:] / np.maximum(n_clear[1:, None], 1)
+        off_near = np.stack([np.bincount(sel_n, weights=d_flat[near.ravel(), c], minlength=n + 1)
+                             for c in range(3)], axis=-1)[1:] / np.maximum(n_near[1:, None], 1)
+        wide = n_clear[1:] >= ENCLOSED_CLEAR_PIXELS
+        off = np.where(wide[:, None], off_clear, off_near)
+        limit = np.where(wide, bias, opening)
+        keep = np.zeros(n + 1, dtype=bool)
+        keep[1:] = (n_near[1:] > 0) & (np.sqrt((off**2).sum(axis=-1)) <= limit)
+        back |= keep[labels]
+    back |= transparent
+    # Shadow pixels in corners (a leg meeting its shadow) have too few smooth neighbours for the
+    # curvature test; take those that continue a background neighbour within a small J' step.
+    for _ in range(2):
+        source = back
+        gap = np.full((h, w), np.inf, dtype=lightness.dtype)
+        for axis, sl_a, sl_b in ((0, np.s_[1:, :], np.s_[:-1, :]), (1, np.s_[:, 1:], np.s_[:, :-1])):
+            step = np.abs(lightness[sl_a] - lightness[sl_b])
+            gap[sl_a] = np.minimum(gap[sl_a], np.where(source[sl_b], step, np.inf))
+            gap[sl_b] = np.minimum(gap[sl_b], np.where(source[sl_a], step, np.inf))
+        grow = coloured & ~back & (gap < SHADOW_GROW_STEP)
+        if not grow.any():
+            break
+        back |= grow
+    # Specks the flood went round (noise on a shadow failing the smoothness test) are background.
+    left_labels, m = ndimage.label(~back)
+    if m:
+        speck = np.bincount(left_labels.ravel(), minlength=m + 1) < max(3, int(0.0003 * h * w))
+        speck[0] = False
+        back |= speck[left_labels]
     left = ~back
     inner = ~ring & ~transparent
     ring_left = float(left[ring & ~transparent].mean())
     inner_left = float(left[inner].mean()) if inner.any() else ring_left
     even = inner_left <= EVEN_LEFTOVER_RATIO * ring_left + EVEN_LEFTOVER_SLACK
-    if even and not is_backdrop_colour(background):
+    if even and not light:
         weights = (~transparent).astype(float)
         return Mask(weights, None, float(transparent.mean()), False, FULL_FRAME_CONFIDENCE)
-    weights = (~back).astype(float)
-    return Mask(weights, background, float(back.mean()), False, share)
+    confidence, flags = share, []
+    kept = left & ~transparent
+    kept_share = float(kept.mean())
+    if 0.0 < kept_share < SMALL_AREA_SHARE:
+        flags.append(FLAG_SMALL_AREA)
+        confidence = min(confidence, SMALL_AREA_CONFIDENCE)
+    # Near the backdrop, leaving out the outline (its blends are always near).
+    body = kept & ~ndimage.binary_dilation(back, iterations=1)
+    if body.any():
+        close = float((d2[body] <= NEAR_BACKDROP_DELTA_E**2).mean())
+        if close >= NEAR_BACKDROP_SHARE:
+            flags.append(FLAG_NEAR_BACKDROP)
+            confidence = min(confidence, NEAR_BACKDROP_CONFIDENCE)
+    weights = left.astype(float)
+    return Mask(weights, background, float(back.mean()), False, confidence, tuple(flags), surface)

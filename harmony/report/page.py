@@ -268,6 +268,7 @@ def _product_view(product, palette, image_path, thumbnails=True):
             flags.append("room scene")
         if palette.confidence < LOW_CONFIDENCE:
             flags.append("low confidence")
+        flags.extend(f"palette: {flag}" for flag in palette.flags)
     return ProductView(
         id=str(product.id),
         title=str(product.title),
@@ -618,7 +619,11 @@ def gather_report(
                 "room scene": "only a room-scene photo: the palette was guessed around the centre",
                 "low confidence": f"palette confidence {v.confidence:.2f}" if v.confidence is not None else "",
                 "no palette": "no palette in the store",
-            }[flag]
+                "palette: near-backdrop": "parts of the product lie within a few ΔE of the backdrop: some may be "
+                                          f"lost or kept wrongly (confidence {v.confidence or 0:.2f})",
+                "palette: small-area": "the product left after removing the backdrop is implausibly small "
+                                       f"(confidence {v.confidence or 0:.2f})",
+            }.get(flag, flag)
             flagged.append(FlagView(v.id, v.title, flag, detail))
     failed_ids = set()
     for pid, image, reason in failures:
@@ -629,7 +634,7 @@ def gather_report(
     # A failure explains a missing palette; do not list the product twice.
     flagged = [f for f in flagged if not (f.kind == "no palette" and f.product_id in failed_ids)]
     order = {"extraction failed": 0, "no palette": 1, "room scene": 2, "low confidence": 3}
-    flagged.sort(key=lambda f: (order[f.kind], f.product_id))
+    flagged.sort(key=lambda f: (order.get(f.kind, 4), f.product_id))
     flagged = group_flags(flagged)  # each product once, with all its reasons
 
     counts = {}

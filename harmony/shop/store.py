@@ -82,6 +82,7 @@ CREATE TABLE palettes (
     background_share REAL NOT NULL,
     scene INTEGER NOT NULL,
     confidence REAL NOT NULL,
+    flags TEXT NOT NULL DEFAULT '',
     PRIMARY KEY (sha256, settings_key)
 );
 CREATE TABLE failures (
@@ -316,6 +317,14 @@ class Store:
                 f"{self.path}: store schema version {version}, this harmony reads version {SCHEMA_VERSION}; "
                 f"extract again into a new --db file"
             )
+        columns = {r[1] for r in db.execute("PRAGMA table_info(palettes)")}
+        if "flags" not in columns and not self.read_only:
+            # Stores made before palettes carried flags: add the column (their palettes are of
+            # an older method version and are extracted again anyway).
+            with self._transaction():
+                db.execute("ALTER TABLE palettes ADD COLUMN flags TEXT NOT NULL DEFAULT ''")
+            columns.add("flags")
+        self._flags_column = "pal.flags" if "flags" in columns else "''"
         if self.read_only:
             return
         db.execute("PRAGMA journal_mode = WAL")
@@ -452,7 +461,8 @@ class Store:
         where, args = self._filter(category_key, product_id)
         sql = (
             "SELECT pi.product_id, pi.path, pi.abs_path, pi.sha256, pal.k, pal.jab, pal.weights, pal.width,"
-            " pal.height, pal.background, pal.background_share, pal.scene, pal.confidence"
+            " pal.height, pal.background, pal.background_share, pal.scene, pal.confidence, "
+            f"{self._flags_column}"
             " FROM product_images pi JOIN products p ON p.id = pi.product_id"
             " JOIN palettes pal ON pal.sha256 = pi.sha256 AND pal.settings_key = ?"
             f"{where} ORDER BY pi.product_id, pi.position"
@@ -471,7 +481,7 @@ class Store:
 
     @staticmethod
     def _palette_from_row(row):
-        _pid, _path, abs_path, sha, k, jab, weights, width, height, bg, share, scene, conf = row
+        _pid, _path, abs_path, sha, k, jab, weights, width, height, bg, share, scene, conf, flags = row
         confidence = float(conf)
         if scene:
             confidence = min(confidence, SCENE_CONFIDENCE)
@@ -485,6 +495,7 @@ class Store:
             background_share=float(share),
             scene=bool(scene),
             confidence=confidence,
+            flags=tuple(f for f in flags.split(",") if f),
             source=abs_path,
         )
 
@@ -658,7 +669,7 @@ class Store:
                 bg = None if palette.background_jab is None else _blob(palette.background_jab)
                 db.execute("DELETE FROM failures WHERE sha256 = ? AND settings_key = ?", (sha, settings_key))
                 db.execute(
-                    "INSERT OR REPLACE INTO palettes VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                    "INSERT OR REPLACE INTO palettes VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
                     (
                         sha,
                         settings_key,
@@ -671,6 +682,7 @@ class Store:
                         float(palette.background_share),
                         int(bool(palette.scene)),
                         float(palette.confidence),
+                        ",".join(palette.flags),
                     ),
                 )
 

@@ -12,7 +12,7 @@ from harmony.errors import HarmonyError
 from harmony.photo.palette import extract_palette
 from harmony.photo.swatch import ansi_block, segment_widths, write_swatch
 
-KEYS = {"format", "image", "sha256", "width", "height", "scene", "confidence", "background", "colours"}
+KEYS = {"format", "image", "sha256", "width", "height", "scene", "confidence", "flags", "background", "colours"}
 COLOUR_KEYS = {"hex", "share", "J", "a", "b", "M", "hue", "lrv", "neutral"}
 
 

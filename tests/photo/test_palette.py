@@ -247,7 +247,7 @@ def test_studio_master_over_the_decoded_cap_gives_a_palette():
 
 
 def test_method_version_in_key():
-    assert PaletteSettings().key.startswith("v3-")
+    assert PaletteSettings().key.startswith("v4-")
 
 
 def test_palette_json_format_2_says_share_and_still_reads_format_1():
@@ -257,3 +257,25 @@ def test_palette_json_format_2_says_share_and_still_reads_format_1():
     old = {**data, "colours": [{("weight" if k == "share" else k): v for k, v in c.items()} for c in data["colours"]]}
     del old["format"]
     assert np.allclose(Palette.from_dict(old).weights, [0.75, 0.25])
+
+
+def test_flags_round_trip_and_validation(tmp_path):
+    pal = Palette(jab=[[50.0, 1.0, 2.0]], weights=[1.0], confidence=0.6, flags=("near-backdrop",))
+    again = Palette.from_json(pal.to_json())
+    assert again.flags == ("near-backdrop",) and again.to_json() == pal.to_json()
+    assert Palette.from_dict({k: v for k, v in pal.to_dict().items() if k != "flags"}).flags == ()
+    with pytest.raises(ValueError, match="flags must be a sequence of strings"):
+        Palette(jab=[[50.0, 1.0, 2.0]], weights=[1.0], flags="near-backdrop")
+    # The store keeps them.
+    from harmony.shop.store import Store
+
+    with Store(tmp_path / "s.db", create=True) as store:
+        assert "flags" in {r[1] for r in store._db.execute("PRAGMA table_info(palettes)")}
+
+
+def test_suggest_shows_the_flag():
+    from harmony.cli.feed_cmd import _doubt
+
+    pal = Palette(jab=[[50.0, 1.0, 2.0]], weights=[1.0], confidence=0.6, flags=("near-backdrop",))
+    assert _doubt(pal) == "  [palette flagged: near-backdrop, confidence 0.60]"
+    assert _doubt(Palette(jab=[[50.0, 1.0, 2.0]], weights=[1.0])) == ""
