@@ -131,6 +131,18 @@ class _Symmetric:
         return self
 
 
+def _default_phrase(self, ja, jb, na, nb, value):
+    """The words linking two colours under a rule without a phrase of its own.
+
+    ``ja``, ``jb`` are the colours (J'a'b'), ``na``, ``nb`` their neutrality and ``value`` the
+    colour pair's net contribution. Every rule kind lists the words it may use
+    (``phrases()``) and picks one per colour pair with ``phrase_index(ja, jb, na, nb, value)``,
+    which works element-wise on arrays (the feed phrases many colour pairs at once); this scalar
+    form goes through the same choice.
+    """
+    return self.phrases()[int(self.phrase_index(ja, jb, na, nb, value))]
+
+
 @dataclass(frozen=True)
 class HueRule(_Symmetric):
     """A kernel over the hue difference of two chromatic colours.
@@ -187,15 +199,20 @@ class HueRule(_Symmetric):
         return self.bumps(np.cos(d), np.abs(np.sin(d)))
 
 
-    def default_phrase(self, ja, jb, na, nb, value):
-        if value < 0:
-            return "clashes with"
+    def phrases(self):
         c = self.centres[0]
         if c <= 30.0:
-            return "sits close in hue to"
-        if c >= 165.0:
-            return "sits opposite"
-        return f"sits about {c:.0f} degrees round the wheel from"
+            kept = "sits close in hue to"
+        elif c >= 165.0:
+            kept = "sits opposite"
+        else:
+            kept = f"sits about {c:.0f} degrees round the wheel from"
+        return ("clashes with", kept)
+
+    def phrase_index(self, ja, jb, na, nb, value):
+        return np.where(np.asarray(value) < 0, 0, 1)
+
+    default_phrase = _default_phrase
 
 
 @dataclass(frozen=True)
@@ -217,12 +234,15 @@ class NeutralRule(_Symmetric):
         return na + nb - na * nb
 
 
-    def default_phrase(self, ja, jb, na, nb, value):
-        if value < 0:
-            return "sits too plainly with"
-        if na >= 0.5 and nb >= 0.5:
-            return "sits quietly with"
-        return "anchors" if na >= nb else "is anchored by"
+    def phrases(self):
+        return ("sits too plainly with", "sits quietly with", "anchors", "is anchored by")
+
+    def phrase_index(self, ja, jb, na, nb, value):
+        na, nb = np.asarray(na), np.asarray(nb)
+        return np.where(np.asarray(value) < 0, 0,
+                        np.where((na >= 0.5) & (nb >= 0.5), 1, np.where(na >= nb, 2, 3)))
+
+    default_phrase = _default_phrase
 
 
 @dataclass(frozen=True)
@@ -262,8 +282,13 @@ class LightnessRule:
     def flipped(self):
         return replace(self, direction=_FLIP_DIRECTION[self.direction])
 
-    def default_phrase(self, ja, jb, na, nb, value):
-        return "is a clear step lighter than" if ja[0] > jb[0] else "is a clear step darker than"
+    def phrases(self):
+        return ("is a clear step lighter than", "is a clear step darker than")
+
+    def phrase_index(self, ja, jb, na, nb, value):
+        return np.where(np.asarray(ja)[..., 0] > np.asarray(jb)[..., 0], 0, 1)
+
+    default_phrase = _default_phrase
 
 
 @dataclass(frozen=True)
@@ -281,9 +306,14 @@ class OuLuoRule(_Symmetric):
         return two_colour_harmony(geometry.a.lab, geometry.b.lab)
 
 
-    def default_phrase(self, ja, jb, na, nb, value):
+    def phrases(self):
+        return ("goes with", "sits uneasily with")
+
+    def phrase_index(self, ja, jb, na, nb, value):
         # The model's own sign says harmonious (CH > 0) or not, whatever the rule's weight.
-        return "goes with" if value > 0 else "sits uneasily with"
+        return np.where(np.asarray(value) > 0, 0, 1)
+
+    default_phrase = _default_phrase
 
 
 _RULE_CLASSES = {"hue": HueRule, "neutral": NeutralRule, "lightness": LightnessRule, "ou_luo": OuLuoRule}

@@ -557,11 +557,13 @@ def _explain_group(stack_a, stack_b, ia, ib, rows, pair_rules, labels_a, labels_
     else:
         stack = np.zeros((g, 0, n, m))
     per_rule = stack.reshape(g, len(names), n * m).sum(axis=2)
-    raw = [float(v.sum()) for v in per_rule]
-    scores[rows] = to_unit(np.array(raw), pair_rules)
+    # Row by row this is float(per_rule[q].sum()): numpy sums each row of a contiguous array
+    # with the same pairwise loop as a 1-d sum (the golden feed test holds it to the last bit).
+    raw = per_rule.sum(axis=1)
+    scores[rows] = to_unit(raw, pair_rules)
     if stack.size == 0 or top <= 0:
         for q, row in enumerate(rows):
-            reasons[row] = explain_reason((), pair_rules.categories, pair_rules, jab_a[q], jab_b[q], raw[q])
+            reasons[row] = explain_reason((), pair_rules.categories, pair_rules, jab_a[q], jab_b[q], float(raw[q]))
         return
     # As net_colour_pairs, for the whole group: colour pairs by their net value over the rules,
     # the largest first (ties to the lower flat index), each led by its largest same-sign rule.
@@ -570,30 +572,97 @@ def _explain_group(stack_a, stack_b, ia, ib, rows, pair_rules, labels_a, labels_
     keep = min(int(top), n * m)
     best = _largest(mag, keep)
     vals = np.take_along_axis(flat, best, axis=1)
-    live = np.take_along_axis(mag, best, axis=1) != 0
+    live = np.take_along_axis(mag, best, axis=1) != 0  # a prefix of each row: zeros sort last
     by_rule = np.take_along_axis(stack.reshape(g, len(names), n * m), best[:, None, :], axis=2)
     r_idx = np.argmax(by_rule * np.sign(vals)[:, None, :], axis=1)
     i_idx, j_idx = np.divmod(best, m)
-    vals_l, live_l = vals.tolist(), live.tolist()
-    r_l, i_l, j_l = r_idx.tolist(), i_idx.tolist(), j_idx.tolist()
-    wa_l, wb_l = w_a.tolist(), w_b.tolist()
-    for q, row in enumerate(rows):
-        la, lb = labels_a[ia[q]], labels_b[ib[q]]
-        chosen = []
-        got_pos = got_neg = False
-        for s in range(keep):
-            if not live_l[q][s]:
-                break
-            v = vals_l[q][s]
-            if (v > 0 and not got_pos) or (v < 0 and not got_neg):
-                got_pos |= v > 0
-                got_neg |= v < 0
-                i, j = i_l[q][s], j_l[q][s]
-                chosen.append(ColourPair(
-                    hex_a=la.hex[i], hex_b=lb.hex[j], rule=names[r_l[q][s]], value=v,
-                    share_a=wa_l[q][i], share_b=wb_l[q][j], name_a=la.names[i], name_b=lb.names[j],
-                    index_a=i, index_b=j,
-                ))
-                if got_pos and got_neg:
-                    break
-        reasons[row] = explain_reason(chosen, pair_rules.categories, pair_rules, jab_a[q], jab_b[q], raw[q])
+    # explain_reason reads the first helping and the first hurting colour pair of each row.
+    helps, hurts = live & (vals > 0), live & (vals < 0)
+    has_p, has_n = helps.any(axis=1), hurts.any(axis=1)
+    q_all = np.arange(g)
+    s_p, s_n = np.argmax(helps, axis=1), np.argmax(hurts, axis=1)
+    v_p, v_n = vals[q_all, s_p], vals[q_all, s_n]
+    both = has_p & has_n & ((raw < pair_rules.midpoint) | (np.abs(v_n) >= 0.5 * v_p))
+    words = _Words(pair_rules, names, labels_a, labels_b, ia, ib, jab_a, jab_b)
+    text_p = words.clauses(q_all[has_p], s_p[has_p], r_idx, i_idx, j_idx, vals, w_a, w_b)
+    text_n = words.clauses(q_all[has_n], s_n[has_n], r_idx, i_idx, j_idx, vals, w_a, w_b)
+    out = np.empty(g, dtype=object)
+    out[:] = "no rule found anything to say about these two palettes"
+    out[has_p] = text_p
+    out[has_n & ~has_p] = text_n[~has_p[has_n]]
+    if both.any():
+        out[both] = [f"{a}; but {b}" for a, b in zip(out[both].tolist(), text_n[both[has_n]].tolist())]
+    for row, text in zip(rows.tolist(), out.tolist()):
+        reasons[row] = text
+
+
+#: "0" .. "100": a share in per cent as the sentence prints it (f"{share * 100:.0f}").
+_PERCENT = np.array([str(k) for k in range(101)], dtype=object)
+
+
+def _percent(shares):
+    """f"{s * 100:.0f}" of each share, element-wise (an object array of str).
+
+    Python's ``.0f`` rounds the double ``s * 100`` half to even, as :func:`numpy.rint` does, so
+    a table lookup gives the same text; anything outside 0..100 is formatted one by one.
+    """
+    x = np.asarray(shares, dtype=float) * 100.0
+    r = np.rint(x)
+    ok = (r >= 0) & (r <= 100) & ~np.signbit(x)
+    out = _PERCENT[np.where(ok, r, 0).astype(np.int64)]
+    if not ok.all():
+        out[~ok] = [f"{v:.0f}" for v in x[~ok].tolist()]
+    return out
+
+
+class _Words:
+    """The clauses of :func:`explain_reason` for many colour pairs of one group at once.
+
+    A clause is ``"{who_a} {name_a} ({pct_a} %) {phrase} {who_b} {name_b} ({pct_b} %){tail}"``;
+    phrase and tail depend only on the rule and on which of its few phrases it picks, so they
+    come from a small table built once per group.
+    """
+
+    def __init__(self, pair_rules, names, labels_a, labels_b, ia, ib, jab_a, jab_b):
+        self.pair_rules, self.names = pair_rules, names
+        self.who_a, self.who_b = _owners(pair_rules.categories)
+        self.jab_a, self.jab_b = jab_a, jab_b
+        self.labels_a, self.labels_b, self.ia, self.ib = labels_a, labels_b, ia, ib
+        self._neutral = None
+
+    def _neutrality(self):
+        if self._neutral is None:
+            t, f = self.pair_rules.neutral_threshold, self.pair_rules.neutral_fade
+            self._neutral = (neutrality(self.jab_a, t, f), neutrality(self.jab_b, t, f))
+        return self._neutral
+
+    def clauses(self, q, s, r_idx, i_idx, j_idx, vals, w_a, w_b):
+        """Clause texts (object array) of row ``q[t]``'s ``s[t]``-th colour pair."""
+        if q.size == 0:
+            return np.empty(0, dtype=object)
+        r, i, j, v = r_idx[q, s], i_idx[q, s], j_idx[q, s], vals[q, s]
+        mids, tails = np.empty(q.size, dtype=object), np.empty(q.size, dtype=object)
+        for rule_no in np.unique(r).tolist():
+            rule = self.pair_rules.rule(self.names[rule_no])
+            at = np.flatnonzero(r == rule_no)
+            if rule.phrase:
+                options, pick = (rule.phrase,), np.zeros(at.size, dtype=np.int64)
+            else:
+                na, nb = self._neutrality()
+                qa, ca, cb = q[at], i[at], j[at]
+                options = rule.phrases()
+                pick = np.asarray(rule.phrase_index(self.jab_a[qa, ca], self.jab_b[qa, cb], na[qa, ca],
+                                                    nb[qa, cb], v[at]), dtype=np.int64)
+            label = _rule_label(rule)
+            # The rule's name closes the clause unless the phrase already says it ("clashes with").
+            mids[at] = np.array([f" {phrase} {self.who_b} " for phrase in options], dtype=object)[pick]
+            tails[at] = np.array(["" if label.casefold() in phrase.casefold() else f": {label}"
+                                  for phrase in options], dtype=object)[pick]
+        name_a = [self.labels_a[x].names[y] for x, y in zip(self.ia[q].tolist(), i.tolist())]
+        name_b = [self.labels_b[x].names[y] for x, y in zip(self.ib[q].tolist(), j.tolist())]
+        pct_a, pct_b = _percent(w_a[q, i]).tolist(), _percent(w_b[q, j]).tolist()
+        who_a = self.who_a
+        out = np.empty(q.size, dtype=object)
+        out[:] = [f"{who_a} {a} ({pa} %){mid}{b} ({pb} %){tail}"
+                  for a, pa, mid, b, pb, tail in zip(name_a, pct_a, mids.tolist(), name_b, pct_b, tails.tolist())]
+        return out

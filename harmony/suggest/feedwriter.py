@@ -83,9 +83,10 @@ def _jsonl(chunk):
 
     head = f', "category": {js(chunk.category)}, "partner": '
     mid = f', "partner_category": {js(chunk.partner_category)}, "rank": '
-    dumps = json.dumps
+    # What json.dumps(text, ensure_ascii=False) returns for a str, without its per-call set-up.
+    dumps = json.encoder.encode_basestring
     return "".join(
-        f'{{"product": {js(p)}{head}{js(q)}{mid}{r}, "score": {s!r}, "reason": {dumps(t, ensure_ascii=False)}, '
+        f'{{"product": {js(p)}{head}{js(q)}{mid}{r}, "score": {s!r}, "reason": {dumps(t)}, '
         f'"pinned": {"true" if u else "false"}}}\n'
         for p, q, r, s, t, u in zip(chunk.product, chunk.partner, chunk.rank, chunk.score, chunk.reason, chunk.pinned)
     )
