@@ -364,3 +364,42 @@ def test_no_row_of_the_demo_feed_contradicts_itself(tmp_path):
     assert len(rows) > 10_000
     assert contradicting_rows([r.reason for r in rows]) == []
     assert any("; but " in r.reason for r in rows)  # the "but" clause still appears, for other pairs
+
+
+def test_feed_reasons_equal_pair_scores_for_every_rule_kind():
+    # The feed's group-at-once sentences against the per-pair path (pair_scores, which speaks
+    # through explain_reason one colour pair at a time), for every rule kind without a phrase of
+    # its own; a third of the colours are greys so that the neutral rule picks every phrase.
+    from harmony.rules.score import colour_labels, pair_scores, scores_and_reasons
+    from harmony.rules.screen import PaletteStack
+
+    rng = np.random.default_rng(52)
+
+    def palettes(count):
+        out = []
+        for _ in range(count):
+            k = int(rng.integers(1, 7))
+            srgb = rng.uniform(0.0, 1.0, size=(k, 3))
+            grey = rng.random(k) < 0.35
+            srgb[grey] = srgb[grey].mean(axis=1, keepdims=True)
+            out.append(Palette(srgb1_to_jab(srgb), np.sort(rng.dirichlet(np.ones(k)))[::-1]))
+        return out
+
+    rs = parse_rules(_EVERY_KIND)
+    pals_a, pals_b = palettes(40), palettes(30)
+    ia, ib = rng.integers(0, 40, 600), rng.integers(0, 30, 600)
+    seen = set()
+    for cats in (("rug", "vase"), ("rug", "sofa"), ("sofa", "rug"), ("rug", "cushion"), ("rug", "armchair"),
+                 ("armchair", "rug"), ("rug", "bed")):
+        pr = rs.for_pair(*cats)
+        t = pr.neutral_threshold
+        la, lb = [colour_labels(p.jab, t) for p in pals_a], [colour_labels(p.jab, t) for p in pals_b]
+        scores, reasons = scores_and_reasons(PaletteStack.from_palettes(pals_a), PaletteStack.from_palettes(pals_b),
+                                             ia, ib, pr, labels_a=la, labels_b=lb)
+        want = pair_scores([pals_a[i] for i in ia], [pals_b[j] for j in ib], pr)
+        assert reasons == [w.reason for w in want]
+        assert scores.tolist() == [w.score for w in want]  # to the last bit
+        seen.update(reasons)
+    for words in ("anchors", "is anchored by", "sits quietly with", "sits too plainly with", "goes with",
+                  "sits uneasily with", "is a clear step lighter than", "is a clear step darker than", "clashes with"):
+        assert any(f" %) {words} the " in r for r in seen), words
