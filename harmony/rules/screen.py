@@ -503,7 +503,7 @@ def top_k_blocked(q, hb, k, block=2048, sample=SAMPLE_COLUMNS):
 
 
 def screen_top_k(palettes_a, palettes_b, kernel, k=10, *, candidates=None, grid=BinGrid(),
-                 block=2048, exact=True, rank_tol=1e-6, workers=1, exact_below=0):
+                 block=2048, exact=True, rank_tol=1e-6, workers=1, exact_below=0, rows=None):
     """Top-k partners in side b of every product of side a, by the screen and an exact re-rank.
 
     Parameters
@@ -535,6 +535,10 @@ def screen_top_k(palettes_a, palettes_b, kernel, k=10, *, candidates=None, grid=
         When ``exact`` and ``n_a * n_b`` is at most this, skip the screen and score every pair
         exactly (the result then equals :func:`exact_top_k`, ``candidates = n_b``, ``rank = 0``).
         For small categories the exact scores cost less than factorising the bin kernel.
+    rows : slice, optional
+        Only these products of side a get partners (a block of a large category pair); the
+        screen is prepared on every product of both sides, so each row comes out as in a whole
+        run. The result has one row per product of the block.
 
     Returns
     -------
@@ -561,7 +565,9 @@ def screen_top_k(palettes_a, palettes_b, kernel, k=10, *, candidates=None, grid=
         stack_b = PaletteStack.from_palettes(palettes_b)
         n_a, n_b = len(stack_a), len(stack_b)
         if n_a * n_b <= int(exact_below):
-            every = np.broadcast_to(np.arange(n_b), (n_a, n_b))
+            if rows is not None:
+                stack_a = PaletteStack(stack_a.jab[rows], stack_a.weights[rows])
+            every = np.broadcast_to(np.arange(n_b), (len(stack_a), n_b))
             raw = exact_raw_candidates(stack_a, stack_b, every, kernel, workers=workers)
             idx, raw = _order(np.ascontiguousarray(every), raw, min(k, n_b))
             return ScreenResult(indices=idx, raw=raw, exact=True, candidates=n_b)
@@ -569,15 +575,18 @@ def screen_top_k(palettes_a, palettes_b, kernel, k=10, *, candidates=None, grid=
     prep = _prepare(palettes_a, palettes_b, kernel, grid, rank_tol, max(int(block), 1))
     n_b = len(prep.stack_b)
     k_eff = min(k, n_b)
-    cand = top_k_blocked(prep.q, prep.hb, c if exact else k, block=block)
+    q, side_a = prep.q, prep.stack_a
+    if rows is not None:  # a block of side a: the screen above saw every product, as in a whole run
+        q, side_a = q[rows], PaletteStack(side_a.jab[rows], side_a.weights[rows])
+    cand = top_k_blocked(q, prep.hb, c if exact else k, block=block)
     if exact:
-        raw = exact_raw_candidates(prep.stack_a, prep.stack_b, cand, kernel, workers=workers)
+        raw = exact_raw_candidates(side_a, prep.stack_b, cand, kernel, workers=workers)
     else:
         raw = np.empty(cand.shape)
         for r0 in range(0, cand.shape[0], block):
             rows = slice(r0, r0 + block)
             raw[rows] = np.einsum(
-                "ir,ric->ic", prep.q[rows].astype(float), prep.hb[:, cand[rows]].astype(float)
+                "ir,ric->ic", q[rows].astype(float), prep.hb[:, cand[rows]].astype(float)
             )
     idx, raw = _order(cand, raw, k_eff)
     return ScreenResult(

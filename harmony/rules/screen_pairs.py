@@ -21,7 +21,8 @@ def _rerank(stack_a, stack_b, cand, kernel, k, workers):
 
 
 def screen_both_ways(stack_a, stack_b, kernel_ab, kernel_ba, k=10, *, partners_a=None, partners_b=None,
-                     candidates=None, grid=BinGrid(), block=2048, rank_tol=1e-6, workers=1, exact_below=0):
+                     candidates=None, grid=BinGrid(), block=2048, rank_tol=1e-6, workers=1, exact_below=0,
+                     rows_a=None, rows_b=None):
     """Exact top-k both ways between two categories from one screen: a's best b and b's best a.
 
     The bin kernel is built and factorised once, ``K_ab ~ L R^T``; the screen of b against a
@@ -39,6 +40,10 @@ def screen_both_ways(stack_a, stack_b, kernel_ab, kernel_ba, k=10, *, partners_a
         Which products of each side may be listed as partners (in stock); default all.
     candidates, grid, block, rank_tol, workers, exact_below
         As in :func:`screen_top_k`; ``exact_below`` applies to each direction on its own.
+    rows_a, rows_b : slice, optional
+        Only these products of each side get partners (a block of a large category pair; an
+        empty slice skips a direction). The screen is still prepared on every product, so a
+        block's rows come out exactly as in the whole run.
 
     Returns
     -------
@@ -63,7 +68,10 @@ def screen_both_ways(stack_a, stack_b, kernel_ab, kernel_ba, k=10, *, partners_a
     if not (exact_ab and exact_ba) and len(partners_a) and len(partners_b):
         prep = _prepare(stack_a, stack_b, kernel_ab, grid, rank_tol, max(int(block), 1))
 
-    def one_way(stack_x, sub_y, q, hb, cols, kernel, exact_all):
+    def one_way(stack_x, sub_y, q, hb, cols, kernel, exact_all, rows):
+        if rows is not None:
+            stack_x = PaletteStack(stack_x.jab[rows], stack_x.weights[rows])
+            q = None if q is None else q[rows]
         n_x, n_y = len(stack_x), len(sub_y)
         if n_y == 0 or n_x == 0:
             empty = np.zeros((n_x, 0))
@@ -81,6 +89,6 @@ def screen_both_ways(stack_a, stack_b, kernel_ab, kernel_ba, k=10, *, partners_a
     if prep is not None:
         q_a, hb_b = prep.q, prep.hb
         q_b, hb_a = np.ascontiguousarray(prep.hb.T), np.ascontiguousarray(prep.q.T)
-    ab = one_way(stack_a, sub_b, q_a, hb_b, partners_b, kernel_ab, exact_ab)
-    ba = one_way(stack_b, sub_a, q_b, hb_a, partners_a, kernel_ba, exact_ba)
+    ab = one_way(stack_a, sub_b, q_a, hb_b, partners_b, kernel_ab, exact_ab, rows_a)
+    ba = one_way(stack_b, sub_a, q_b, hb_a, partners_a, kernel_ba, exact_ba, rows_b)
     return ab, ba

@@ -57,6 +57,8 @@ __all__ = [
     "plan_feed",
     "category_entry",
     "finalise_partners",
+    "FEED_BLOCK",
+    "task_parts",
     "task_chunks",
     "feed_chunks",
     "write_feed_stream",
@@ -75,6 +77,12 @@ SIMILARITY_DELTA_E = 10.0
 #: screened (``screen_top_k(..., exact_below=EXACT_PAIRS)``): below it the exact scores cost less
 #: than factorising the screen's bin kernel (about 0.1 s for 20,000 pairs of 10-colour palettes).
 EXACT_PAIRS = 20_000
+
+#: Products of one side per feed task: a direction of a category pair with more products is split
+#: into blocks of this many rows (each a Dask task of its own; the local engine runs the same
+#: blocks, so both write the same bytes). Each block screens against every partner, so its
+#: memory is bounded by the block, not by the category.
+FEED_BLOCK = 10_000
 
 
 @dataclass(frozen=True)
@@ -229,6 +237,8 @@ class FeedPlan:
         ColourLabels per category, made on first use.
     curation : harmony.suggest.curation.Curation or None
         Pins, blocks, floors and category pairs applied to each (product, partner category) list.
+    block : int
+        Products of one side per task part (see :func:`task_parts`).
     """
 
     top: int
@@ -238,9 +248,11 @@ class FeedPlan:
     tasks: list
     labels: dict = field(default_factory=dict, repr=False)
     curation: object = None
+    block: int = FEED_BLOCK
 
 
-def plan_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, warn=None, curation=None):
+def plan_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, warn=None, curation=None,
+              block=None):
     """Check the options and gather the palettes of a feed run (see :func:`feed_chunks`)."""
     top = int(top)
     if top < 1:
@@ -274,7 +286,10 @@ def plan_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, w
             _warn(warn, f"{rules.path}: the rules pair target category '{cat}' with no other category; it gets no rows")
     tasks = sorted({(min(a, b), max(a, b)) for a, b in work})
     tasks = [(a, b, (a, b) in work, (b, a) in work) for a, b in tasks]
-    return FeedPlan(top, pool_size, float(diversity), categories, tasks, curation=curation)
+    block = FEED_BLOCK if block is None else int(block)
+    if block < 1:
+        raise HarmonyError(f"block must be at least 1, got {block}")
+    return FeedPlan(top, pool_size, float(diversity), categories, tasks, curation=curation, block=block)
 
 
 def category_entry(products, palettes):
@@ -341,15 +356,17 @@ def _labels(plan, cat, threshold):
     return got
 
 
-def _direction_chunk(plan, x, y, res, pair_rules):
-    """The FeedChunk of products of ``x`` with partners of ``y`` from their screen result."""
+def _direction_chunk(plan, x, y, res, pair_rules, lo=0):
+    """The FeedChunk of products of ``x`` (from position ``lo``) with partners of ``y`` from
+    their screen result."""
     ids_x, stack_x, _, sizes_x = plan.categories[x]
     ids_y, stack_y, in_y, sizes_y = plan.categories[y]
     sub = PaletteStack(stack_y.jab[in_y], stack_y.weights[in_y])
     prod_i, part_j, ranks = [], [], []
     extra = 0 if plan.curation is None else len(plan.curation.blocks)  # curation: room for blocked partners
-    for i in range(len(ids_x)):
-        chosen = finalise_partners(i, res.indices[i], res.raw[i], sub, pair_rules, plan.top + extra, plan.diversity)
+    for r in range(res.indices.shape[0]):
+        i = lo + r
+        chosen = finalise_partners(i, res.indices[r], res.raw[r], sub, pair_rules, plan.top + extra, plan.diversity)
         prod_i.extend([i] * len(chosen))
         part_j.extend(int(in_y[j]) for j in chosen)
         ranks.extend(range(1, len(chosen) + 1))
@@ -396,39 +413,59 @@ def _pin_scorer(plan, x, y, pair_rules):
     return score_of
 
 
-def task_chunks(plan, rules, task):
-    """The FeedChunks of one unordered category pair ``task`` (a to b first, then b to a)."""
+def task_parts(plan, task):
+    """The parts of one unordered category pair ``task``: ``None`` for the whole pair, else
+    ``(x, lo, hi)`` per block of :attr:`FeedPlan.block` products of side x, a to b first."""
+    a, b, ab, ba = task
+    sizes = {x: len(plan.categories[x][0]) for x in (a, b)}
+    if max(sizes[a] if ab else 0, sizes[b] if ba else 0) <= plan.block:
+        return [None]
+    return [(x, lo, min(lo + plan.block, sizes[x]))
+            for on, x in ((ab, a), (ba, b)) if on
+            for lo in range(0, sizes[x], plan.block)]
+
+
+def task_chunks(plan, rules, task, part=None):
+    """The FeedChunks of one unordered category pair ``task`` (a to b first, then b to a), or of
+    one ``part`` of it (see :func:`task_parts`): the products ``lo:hi`` of side x only."""
     a, b, ab, ba = task
     _, stack_a, in_a, _ = plan.categories[a]
     _, stack_b, in_b, _ = plan.categories[b]
+    rows = {a: None, b: None}
+    if part is not None:
+        side, lo, hi = part
+        rows = {x: slice(lo, hi) if x == side else slice(0, 0) for x in (a, b)}
     pr_ab, pr_ba = rules.for_pair(a, b), rules.for_pair(b, a)
     grid = BinGrid(neutral_threshold=pr_ab.neutral_threshold, neutral_fade=pr_ab.neutral_fade)
     if ab and ba and _transposes(rules, a, b):
         res_ab, res_ba = screen_both_ways(stack_a, stack_b, pr_ab, pr_ba, k=plan.pool_size,
                                           partners_a=in_a, partners_b=in_b, grid=grid,
-                                          exact_below=EXACT_PAIRS)
+                                          exact_below=EXACT_PAIRS, rows_a=rows[a], rows_b=rows[b])
         results = [(a, b, res_ab, pr_ab), (b, a, res_ba, pr_ba)]
     else:
         results = []
         for on, x, y, pr in ((ab, a, b, pr_ab), (ba, b, a, pr_ba)):
             _, stack_x, _, _ = plan.categories[x]
             _, stack_y, in_y, _ = plan.categories[y]
-            if on and len(in_y) and len(stack_x):
+            if on and len(in_y) and len(stack_x) and (rows[x] is None or rows[x].stop > rows[x].start):
                 sub = PaletteStack(stack_y.jab[in_y], stack_y.weights[in_y])
-                res = screen_top_k(stack_x, sub, pr, k=plan.pool_size, grid=grid, exact_below=EXACT_PAIRS)
+                res = screen_top_k(stack_x, sub, pr, k=plan.pool_size, grid=grid, exact_below=EXACT_PAIRS,
+                                   rows=rows[x])
                 results.append((x, y, res, pr))
     out = []
     for x, y, res, pr in results:
-        if len(plan.categories[x][0]) and len(plan.categories[y][2]):
-            out.append(_direction_chunk(plan, x, y, res, pr))
+        skip = rows[x] is not None and rows[x].stop <= rows[x].start
+        if not skip and len(plan.categories[x][0]) and len(plan.categories[y][2]):
+            out.append(_direction_chunk(plan, x, y, res, pr, lo=0 if rows[x] is None else rows[x].start))
     return out
 
 
 def feed_chunks(plan, rules, *, progress=False):
     """The feed as FeedChunks, one ordered category pair at a time, in file order."""
     for task in tqdm(plan.tasks, desc="feed", unit="category pair", disable=not progress, leave=False):
-        with threadpool_limits(limits=1):
-            yield from task_chunks(plan, rules, task)
+        for part in task_parts(plan, task):
+            with threadpool_limits(limits=1):
+                yield from task_chunks(plan, rules, task, part)
 
 
 def _has_rows(plan):
@@ -484,7 +521,8 @@ def build_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, 
 
 
 def write_feed_stream(store, rules, path, fmt=None, *, top=10, targets=None, diversity=0.0, pool=None,
-                      warn=None, progress=False, engine="local", scheduler=None, workers=None, curation=None):
+                      warn=None, progress=False, engine="local", scheduler=None, workers=None, curation=None,
+                      block=None):
     """Build the feed and write it as it is made (see :func:`harmony.suggest.feedwriter.write_chunks`).
 
     Rows come grouped by category pair (pairs in sorted order, a to b before b to a), within a
@@ -502,7 +540,7 @@ def write_feed_stream(store, rules, path, fmt=None, *, top=10, targets=None, div
     feed_format(path, fmt)
     if engine not in ("local", "dask"):
         raise HarmonyError(f"unknown feed engine '{engine}' (use local or dask)")
-    plan = plan_feed(store, rules, top, targets, diversity, pool=pool, warn=warn, curation=curation)
+    plan = plan_feed(store, rules, top, targets, diversity, pool=pool, warn=warn, curation=curation, block=block)
     if not _has_rows(plan):
         # Said before the file is touched, so an older feed stays as it was.
         raise HarmonyError(

@@ -1,4 +1,5 @@
-"""The feed on a Dask cluster: one task per unordered category pair, the same bytes as locally.
+"""The feed on a Dask cluster: one task per unordered category pair, or per block of products of
+a large one (:func:`harmony.suggest.feed.task_parts`), the same bytes as locally.
 
 Each task opens the palette store by its path, reads the palettes of its two categories only,
 and runs :func:`harmony.suggest.feed.task_chunks` exactly as the local engine does (one BLAS
@@ -19,8 +20,9 @@ __all__ = ["dask_chunks", "pair_task", "SCHEDULER_TIMEOUT"]
 SCHEDULER_TIMEOUT = 10
 
 
-def pair_task(db_path, rules_path, plan, task):
-    """Run on a worker: the FeedChunks of one category pair, palettes read from the store."""
+def pair_task(db_path, rules_path, plan, task, part=None):
+    """Run on a worker: the FeedChunks of one category pair (or one ``part`` of it), palettes
+    read from the store."""
     from threadpoolctl import threadpool_limits
 
     from harmony.rules import load_rules
@@ -34,7 +36,7 @@ def pair_task(db_path, rules_path, plan, task):
             categories[cat] = category_entry(store.products(cat), store.palettes(cat))
     local = replace(plan, categories=categories, labels={})
     with threadpool_limits(limits=1):
-        return task_chunks(local, rules, task)
+        return task_chunks(local, rules, task, part)
 
 
 def dask_chunks(db_path, rules_path, plan, *, scheduler=None, workers=None, progress=False):
@@ -57,6 +59,9 @@ def dask_chunks(db_path, rules_path, plan, *, scheduler=None, workers=None, prog
         raise HarmonyError("the dask engine needs dask.distributed: pip install 'harmony[dask]'") from None
     if str(rules_path).startswith("<"):
         raise HarmonyError("the dask engine needs the rules as a file its workers can read")
+    from harmony.suggest.feed import task_parts
+
+    jobs = [(task, part) for task in plan.tasks for part in task_parts(plan, task)]
     light = replace(plan, categories={}, labels={})
     cluster = None
     try:
@@ -70,10 +75,10 @@ def dask_chunks(db_path, rules_path, plan, *, scheduler=None, workers=None, prog
                                    dashboard_address=None)
             client = Client(cluster)
         try:
-            futures = [client.submit(pair_task, str(db_path), str(rules_path), light, task, pure=False)
-                       for task in light.tasks]
+            futures = [client.submit(pair_task, str(db_path), str(rules_path), light, task, part, pure=False)
+                       for task, part in jobs]
             try:
-                for future in tqdm(futures, desc="feed", unit="category pair", disable=not progress, leave=False):
+                for future in tqdm(futures, desc="feed", unit="task", disable=not progress, leave=False):
                     chunks = future.result()
                     future.release()
                     yield from chunks

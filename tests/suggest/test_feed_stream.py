@@ -166,5 +166,25 @@ def test_dask_engine_writes_the_same_bytes(tmp_path, store_items, rules, monkeyp
         local, _, _ = write_feed_stream(store, rules, tmp_path / "local.jsonl", top=3, warn=lambda m: None)
         remote, _, _ = write_feed_stream(store, rules, tmp_path / "dask.jsonl", top=3, warn=lambda m: None,
                                          engine="dask", workers=2)
-    assert local.read_bytes() == remote.read_bytes()
+        # Large category pairs forced into blocks of 9 products: several tasks per pair.
+        blocked, _, _ = write_feed_stream(store, rules, tmp_path / "blocked.jsonl", top=3, warn=lambda m: None,
+                                          engine="dask", workers=2, block=9)
+    assert local.read_bytes() == remote.read_bytes() == blocked.read_bytes()
     assert len(local.read_bytes()) > 0
+
+
+def test_blocks_of_a_category_pair_write_the_same_bytes(tmp_path, store_items, rules, monkeypatch):
+    # Blocks of 7 products per task part, with every pair screened: the same bytes as whole
+    # category pairs (each block's screen is prepared on every product of both sides).
+    monkeypatch.setattr(feed_module, "EXACT_PAIRS", 0)
+    db = make_store(tmp_path, store_items)
+    with Store(db) as store:
+        whole, _, _ = write_feed_stream(store, rules, tmp_path / "whole.jsonl", top=3, warn=lambda m: None)
+        plan = plan_feed(store, rules, top=3, warn=lambda m: None, block=7)
+        blocked, _, _ = write_feed_stream(store, rules, tmp_path / "blocked.jsonl", top=3, warn=lambda m: None,
+                                          block=7)
+    parts = feed_module.task_parts(plan, plan.tasks[0])
+    sizes = [len(plan.categories[c][0]) for c in plan.tasks[0][:2]]
+    assert len(parts) == sum(-(-n // 7) for n in sizes) > 2 and parts[0] == (plan.tasks[0][0], 0, 7)
+    assert whole.read_bytes() == blocked.read_bytes()
+    assert len(whole.read_bytes()) > 0
