@@ -370,3 +370,16 @@ def test_colour_attribute_overlap_and_standard_methods(tmp_path):
     assert names == ["complementary_only", "complementary_inverted", "same colours (EMD)", "colour attribute", "random order"]
     names = [m.name for m in standard_methods(rules[:1], {}, [Product("X", "Sofa", 1.0)])]
     assert "colour attribute" not in names
+
+
+@pytest.mark.parametrize("seed", range(5))
+def test_mid_ranks_equal_scipy_rankdata(seed):
+    # Reference: scipy.stats.rankdata(method="average"), to the last bit, with many ties.
+    from scipy.stats import rankdata
+
+    from harmony.evaluation.metrics import _mid_ranks
+
+    rng = np.random.default_rng(seed)
+    s = rng.integers(0, 6, 40).astype(float)
+    assert np.array_equal(_mid_ranks(s), rankdata(s))
+    assert np.array_equal(_mid_ranks(s[:1]), rankdata(s[:1]))
