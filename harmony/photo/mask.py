@@ -63,6 +63,7 @@ by colour and is treated as a backdrop (error when nothing else is left).
 """
 
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 from scipy import ndimage
@@ -98,6 +99,7 @@ __all__ = [
     "is_backdrop_colour",
     "CENTRE_PRIOR_SIGMA",
     "border_ring",
+    "colour_step_sq",
     "backdrop_model",
     "foreground_mask",
 ]
@@ -257,6 +259,12 @@ def border_ring(shape, width):
     return ring
 
 
+def _planes(jab):
+    """J'a'b' as three contiguous (h, w) planes, shape (3, h, w); no copy when ``jab`` is a view
+    of channel-first memory (as :func:`harmony.photo.palette.srgb8_to_jab` returns)."""
+    return np.ascontiguousarray(np.moveaxis(jab, -1, 0))
+
+
 def _edge_strength(lightness, among=None):
     """Largest absolute J' difference from the four neighbours (only neighbours where ``among``
     holds, when given), shape (h, w)."""
@@ -273,17 +281,53 @@ def _edge_strength(lightness, among=None):
     return step
 
 
-def _colour_step_sq(jab):
-    """Largest squared ΔE between each pixel and its four neighbours, shape (h, w)."""
-    h, w = jab.shape[:2]
-    dx = ((jab[:, 1:] - jab[:, :-1]) ** 2).sum(axis=-1)
-    dy = ((jab[1:, :] - jab[:-1, :]) ** 2).sum(axis=-1)
-    step = np.zeros((h, w), dtype=jab.dtype)
+def colour_step_sq(jab):
+    """Largest squared ΔE between each pixel and its four neighbours, shape (h, w).
+
+    ``jab`` has shape (h, w, 3); the sums run over J', a', b' in that order."""
+    planes = _planes(np.asarray(jab))
+    h, w = planes.shape[1:]
+    dx = np.zeros((h, w - 1), dtype=planes.dtype)
+    dy = np.zeros((h - 1, w), dtype=planes.dtype)
+    for plane in planes:
+        dx += (plane[:, 1:] - plane[:, :-1]) ** 2
+        dy += (plane[1:, :] - plane[:-1, :]) ** 2
+    step = np.zeros((h, w), dtype=planes.dtype)
     np.maximum(step[:, :-1], dx, out=step[:, :-1])
     np.maximum(step[:, 1:], dx, out=step[:, 1:])
     np.maximum(step[:-1, :], dy, out=step[:-1, :])
     np.maximum(step[1:, :], dy, out=step[1:, :])
     return step
+
+
+def _dilate_cross(mask, times=1):
+    """``scipy.ndimage.binary_dilation(mask, iterations=times)`` with its default cross (4-neighbour)
+    structure and a False border: the pixels within city-block distance ``times`` of ``mask``."""
+    out = mask
+    for _ in range(times):
+        grown = out.copy()
+        grown[1:] |= out[:-1]
+        grown[:-1] |= out[1:]
+        grown[:, 1:] |= out[:, :-1]
+        grown[:, :-1] |= out[:, 1:]
+        out = grown
+    return out
+
+
+def _grow_within(seed, allowed, steps):
+    """``scipy.ndimage.binary_dilation(seed, iterations=steps, mask=seed | allowed)``, run only on
+    the bounding box of the pixels it may add (plus one pixel): every path of the growth runs
+    through those pixels, so the result is the same."""
+    free = allowed & ~seed
+    rows = np.flatnonzero(free.any(axis=1))
+    if rows.size == 0:
+        return seed
+    cols = np.flatnonzero(free.any(axis=0))
+    h, w = seed.shape
+    box = np.s_[max(rows[0] - 1, 0): min(rows[-1] + 2, h), max(cols[0] - 1, 0): min(cols[-1] + 2, w)]
+    out = seed.copy()
+    out[box] = ndimage.binary_dilation(seed[box], iterations=steps, mask=seed[box] | allowed[box])
+    return out
 
 
 def _connected_to_edge(labels):
@@ -297,6 +341,60 @@ def _connected_to_edge(labels):
 def _basis(y, x):
     """Quadratic basis in normalised coordinates, shape (..., 6)."""
     return np.stack([np.ones_like(y), x, y, x * x, x * y, y * y], axis=-1)
+
+
+@lru_cache(maxsize=16)
+def _grid_basis(h, w):
+    """:func:`_basis` at every pixel of an (h, w) image, shape (h * w, 6), read-only."""
+    y = np.linspace(-0.5, 0.5, h)[:, None] * np.ones((1, w))
+    x = np.ones((h, 1)) * np.linspace(-0.5, 0.5, w)[None, :]
+    grid = _basis(y, x).reshape(-1, 6)
+    grid.setflags(write=False)
+    return grid
+
+
+@lru_cache(maxsize=16)
+def _ring_basis(h, w, width):
+    """Flat indices of the ring pixels (raster order) and their :func:`_basis` rows, read-only."""
+    index = np.flatnonzero(border_ring((h, w), width))
+    ys, xs = np.divmod(index, w)
+    design = _basis(ys / max(h - 1, 1) - 0.5, xs / max(w - 1, 1) - 0.5)
+    index.setflags(write=False)
+    design.setflags(write=False)
+    return index, design
+
+
+def _fit_surface(planes, index, design, tolerance, iterations):
+    """The fit of :func:`backdrop_model` on the ring pixels ``index`` (flat) with basis rows
+    ``design``; returns the surface as planes, shape (3, h, w), float like ``planes``."""
+    h, w = planes.shape[1:]
+    pts = planes.reshape(3, -1)[:, index].T.astype(float)
+    coef = np.zeros((6, 3))
+    coef[0] = np.median(pts, axis=0)
+    for it in range(iterations + 1):
+        fit = design @ coef
+        residual = np.sqrt(((pts - fit) ** 2).sum(axis=1))
+        # Widen the first inlier test: a sweep's ring is far from its median colour.
+        limit = tolerance if it else max(tolerance, 2.5 * float(np.median(residual)))
+        inlier = residual <= limit
+        if it == iterations or inlier.sum() < 12:
+            break
+        cols = 3 if it == 0 else 6
+        a = design[inlier, :cols]
+        sol = np.linalg.solve(a.T @ a + 1e-9 * np.eye(cols), a.T @ pts[inlier])  # normal equations
+        coef = np.zeros((6, 3))
+        coef[:cols] = sol
+    surface = np.empty((3, h * w), dtype=planes.dtype)
+    surface[...] = (_grid_basis(h, w) @ coef).T
+    return surface.reshape(3, h, w), residual, inlier
+
+
+def _ring_index(h, w, width, usable):
+    index, design = _ring_basis(h, w, width)
+    if usable is not None:
+        ok = usable.ravel()[index]
+        index, design = index[ok], design[ok]
+    return index, design
 
 
 def backdrop_model(jab, ring, usable, tolerance, iterations=3):
@@ -328,47 +426,31 @@ def backdrop_model(jab, ring, usable, tolerance, iterations=3):
     quadratic in (x, y): enough for a sweep's fall-off and a vignette, too stiff to follow an
     object. The first refit is planar so that a far-off start cannot bend the surface.
     """
+    jab = np.asarray(jab)
     h, w = jab.shape[:2]
-    ys, xs = np.nonzero(ring & usable)
-    yn, xn = ys / max(h - 1, 1) - 0.5, xs / max(w - 1, 1) - 0.5
-    pts = jab[ys, xs].astype(float)
-    design = _basis(yn, xn)
-    coef = np.zeros((6, 3))
-    coef[0] = np.median(pts, axis=0)
-    for it in range(iterations + 1):
-        fit = design @ coef
-        residual = np.sqrt(((pts - fit) ** 2).sum(axis=1))
-        # Widen the first inlier test: a sweep's ring is far from its median colour.
-        limit = tolerance if it else max(tolerance, 2.5 * float(np.median(residual)))
-        inlier = residual <= limit
-        if it == iterations or inlier.sum() < 12:
-            break
-        cols = 3 if it == 0 else 6
-        a = design[inlier, :cols]
-        sol = np.linalg.solve(a.T @ a + 1e-9 * np.eye(cols), a.T @ pts[inlier])  # normal equations
-        coef = np.zeros((6, 3))
-        coef[:cols] = sol
-    y = np.linspace(-0.5, 0.5, h)[:, None] * np.ones((1, w))
-    x = np.ones((h, 1)) * np.linspace(-0.5, 0.5, w)[None, :]
-    surface = (_basis(y, x).reshape(-1, 6) @ coef).reshape(h, w, 3).astype(jab.dtype)
-    return surface, residual, inlier
+    index = np.flatnonzero(np.asarray(ring, bool) & np.asarray(usable, bool))
+    ys, xs = np.divmod(index, w)
+    design = _basis(ys / max(h - 1, 1) - 0.5, xs / max(w - 1, 1) - 0.5)
+    surface, residual, inlier = _fit_surface(_planes(jab), index, design, tolerance, iterations)
+    return np.moveaxis(surface, 0, -1), residual, inlier
 
 
-def _ring_steps(jab, surface, width, tolerance):
-    """Largest ΔE between backdrop-like points 4 px apart along the four sides of the ring."""
+def _ring_steps(planes, surface, width, tolerance):
+    """Largest ΔE between backdrop-like points 4 px apart along the four sides of the ring
+    (``planes`` and ``surface`` shape (3, h, w))."""
     worst = 0.0
-    sides = (jab[:width].mean(axis=0), jab[-width:].mean(axis=0),
-             jab[:, :width].mean(axis=1), jab[:, -width:].mean(axis=1))
-    models = (surface[:width].mean(axis=0), surface[-width:].mean(axis=0),
-              surface[:, :width].mean(axis=1), surface[:, -width:].mean(axis=1))
+    sides = (planes[:, :width].mean(axis=1), planes[:, -width:].mean(axis=1),
+             planes[:, :, :width].mean(axis=2), planes[:, :, -width:].mean(axis=2))
+    models = (surface[:, :width].mean(axis=1), surface[:, -width:].mean(axis=1),
+              surface[:, :, :width].mean(axis=2), surface[:, :, -width:].mean(axis=2))
     for profile, model in zip(sides, models):
-        if len(profile) < 6:
+        if profile.shape[1] < 6:
             continue
-        ok = np.sqrt(((profile - model) ** 2).sum(axis=1)) <= tolerance
+        ok = np.sqrt(((profile - model) ** 2).sum(axis=0)) <= tolerance
         both = ok[4:] & ok[:-4]
         if both.any():
-            step = np.sqrt(((profile[4:] - profile[:-4]) ** 2).sum(axis=1))
-            worst = max(worst, float(step[both].max()))
+            step = ((profile[:, 4:] - profile[:, :-4]) ** 2).sum(axis=0)
+            worst = max(worst, float(np.sqrt(step[both].max())))
     return worst
 
 
@@ -376,12 +458,20 @@ def _patch_bias(diff, width):
     """Largest ΔE of a border patch's median colour from the surface: the backdrop's own unevenness.
 
     The ring is cut into eight patches (each side in two halves); ``diff`` is J'a'b' minus the
-    fitted surface, shape (h, w, 3)."""
-    h, w = diff.shape[:2]
-    patches = (diff[:width, : w // 2], diff[:width, w // 2 :], diff[-width:, : w // 2],
-               diff[-width:, w // 2 :], diff[: h // 2, :width], diff[h // 2 :, :width],
-               diff[: h // 2, -width:], diff[h // 2 :, -width:])
-    return max(float(np.linalg.norm(np.median(p.reshape(-1, 3), axis=0))) for p in patches)
+    fitted surface as planes, shape (3, h, w)."""
+    h, w = diff.shape[1:]
+    rows = (diff[:, :width, : w // 2], diff[:, :width, w // 2 :], diff[:, -width:, : w // 2],
+            diff[:, -width:, w // 2 :])
+    cols = (diff[:, : h // 2, :width], diff[:, h // 2 :, :width], diff[:, : h // 2, -width:],
+            diff[:, h // 2 :, -width:])
+    worst = 0.0
+    for group in (rows, cols):
+        if len({p.shape for p in group}) == 1:  # equal halves: one median call for the four
+            medians = np.median(np.stack([p.reshape(3, -1) for p in group]), axis=2)
+        else:
+            medians = np.stack([np.median(p.reshape(3, -1), axis=1) for p in group])
+        worst = max(worst, max(float(np.linalg.norm(m)) for m in medians))
+    return worst
 
 
 def is_backdrop_colour(jab):
@@ -417,6 +507,7 @@ def foreground_mask(
     shadow_ab=6.0,
     shadow_depth=45.0,
     shadow_edge=6.0,
+    step_sq=None,
 ):
     """Separate product from backdrop and shadow.
 
@@ -441,6 +532,8 @@ def foreground_mask(
         Largest drop in J' below the backdrop of a shadow pixel.
     shadow_edge : float
         A shadow pixel differs by less than this in J' from each of its neighbours.
+    step_sq : ndarray, shape (h, w), optional
+        :func:`colour_step_sq` of ``jab``, when the caller already has it.
 
     Returns
     -------
@@ -457,6 +550,8 @@ def foreground_mask(
     if jab.ndim != 3 or jab.shape[2] != 3:
         raise ValueError(f"jab must have shape (h, w, 3), got {jab.shape}")
     h, w = jab.shape[:2]
+    # Channel planes: every pass below runs over contiguous (h, w) arrays.
+    planes = _planes(jab)
     transparent = np.zeros((h, w), dtype=bool) if opaque is None else ~np.asarray(opaque, bool)
     width = max(1, int(round(ring_fraction * min(h, w))))
     ring = border_ring((h, w), width)
@@ -465,68 +560,78 @@ def foreground_mask(
         weights = (~transparent).astype(float)
         return Mask(weights, None, float(transparent.mean()), False, 1.0)
 
-    surface, ring_residual, inlier = backdrop_model(jab, ring, ~transparent, tolerance)
+    ring_index, design = _ring_index(h, w, width, None if opaque is None else ~transparent)
+    surface, ring_residual, inlier = _fit_surface(planes, ring_index, design, tolerance, 3)
     share = float(inlier.mean())
     if share < uniform_share:
         return _scene((h, w), transparent)
-    span = surface.reshape(-1, 3).max(axis=0) - surface.reshape(-1, 3).min(axis=0)
+    flat_surface = surface.reshape(3, -1)
+    span = flat_surface.max(axis=1) - flat_surface.min(axis=1)
     if span[0] > MAX_FALLOFF_J or max(span[1], span[2]) > MAX_FALLOFF_AB:
         return _scene((h, w), transparent)
-    if _ring_steps(jab, surface, width, tolerance) > MAX_RING_STEP:
+    if _ring_steps(planes, surface, width, tolerance) > MAX_RING_STEP:
         return _scene((h, w), transparent)
 
-    diff = jab - surface
-    dj = diff[..., 0]
-    chroma_sq = diff[..., 1] ** 2 + diff[..., 2] ** 2
+    diff = planes - surface
+    dj = diff[0]
+    chroma_sq = diff[1] ** 2 + diff[2] ** 2
     d2 = chroma_sq + dj * dj
     spread = float(np.percentile(ring_residual[inlier], 95))
-    background = np.median(surface[ring], axis=0)
+    background = np.median(flat_surface[:, _ring_basis(h, w, width)[0]], axis=1)
     # The 5 ΔE rule protects light parts on a light studio backdrop; on a dark or coloured
     # backdrop (a chart on black) ΔE is inflated by noise and the plain tolerance applies.
     light = bool(is_backdrop_colour(background))
     cap = OPENING_MAX_DELTA_E if light else tolerance
     opening = min(max(OPENING_SPREAD_FACTOR * spread, OPENING_MIN_DELTA_E), cap) if light else tolerance
     near = d2 <= opening**2
-    lightness = jab[..., 0]
+    lightness = planes[0]
     coloured = (dj < 0.0) & (dj >= -shadow_depth) & (chroma_sq <= shadow_ab**2)
     # Curvature against the neighbours that could be backdrop or shadow by colour only (a
     # normalised 3 x 3 mean), so that a shadow beside a dark leg is not taken for an outline.
-    like = (coloured | near).astype(lightness.dtype)
-    weight = ndimage.uniform_filter(like, 3, mode="nearest")
-    local = ndimage.uniform_filter(lightness * like, 3, mode="nearest") / np.maximum(weight, 1e-6)
+    # Both 3 x 3 means in one filter call (size 1 across the stacked pair).
+    like_bool = coloured | near
+    like = like_bool.astype(lightness.dtype)
+    means = ndimage.uniform_filter(np.stack([like, lightness * like]), (1, 3, 3), mode="nearest")
+    local = means[1] / np.maximum(means[0], 1e-6)
     curvature = np.abs(lightness - local)
     smooth = curvature < np.maximum(SHADOW_CURVATURE, SHADOW_RELATIVE_CURVATURE * np.abs(dj))
-    shadow = coloured & smooth & (_edge_strength(lightness, like > 0) < shadow_edge)
+    shadow = coloured & smooth & (_edge_strength(lightness, like_bool) < shadow_edge)
     # JPEG ringing beside a strong edge moves the backdrop by several ΔE: there, within
     # ``tolerance`` of the surface is enough (a light part's own outline is no strong edge).
-    strong = _colour_step_sq(jab) > (RINGING_EDGE_FACTOR * tolerance) ** 2
-    ringing_zone = ndimage.binary_dilation(strong, iterations=2)
+    if step_sq is None:
+        step_sq = colour_step_sq(jab)
+    strong = step_sq > (RINGING_EDGE_FACTOR * tolerance) ** 2
+    ringing_zone = _dilate_cross(strong, 2)
     ringing = ringing_zone & (d2 <= tolerance**2)
-    labels, _ = ndimage.label(near | ringing)
+    candidate = near | ringing
+    labels, _ = ndimage.label(candidate)
     back = _connected_to_edge(labels)[labels]
     # Shadows lie on the floor around the product and reach only so far from the backdrop: a
     # product as dark as its own contact shadow where it stands on it is not flooded beyond the
     # shadow's width, and a flat panel inside an opening is not taken for a shadow of it.
     reach = max(2, int(round(SHADOW_REACH * min(h, w))))
-    back = ndimage.binary_dilation(back, iterations=reach, mask=back | shadow)
+    back = _grow_within(back, shadow, reach)
     # Enclosed regions that continue the backdrop: regions within the opening tolerance, apart
     # from the flood, whose median colour lies as close to the surface as the backdrop's own
     # patches do. Shadow-coloured pixels do not join them, so a flat light panel set into an
     # opening (a mirror, a cane seat) is not swallowed with the gap around it.
-    labels, n = ndimage.label((near | ringing) & ~back)
+    labels, n = ndimage.label(candidate & ~back)
     if n:
         bias = min(max(ENCLOSED_BIAS_FACTOR * _patch_bias(diff, width), ENCLOSED_MIN_DELTA_E), cap)
-        clear = near & ~ringing_zone  # away from strong edges: the region's own colour
-        n_clear = np.bincount(labels[clear], minlength=n + 1)
-        n_near = np.bincount(labels[near], minlength=n + 1)
+        # Only the pixels of the enclosed regions (raster order, as the sums always ran).
+        inside = np.flatnonzero(labels)
+        region = labels.ravel()[inside]
+        in_near = near.ravel()[inside]
+        in_clear = in_near & ~ringing_zone.ravel()[inside]  # away from strong edges: own colour
+        offsets = diff.reshape(3, -1)[:, inside]
+        n_clear = np.bincount(region[in_clear], minlength=n + 1)
+        n_near = np.bincount(region[in_near], minlength=n + 1)
         # Mean offsets (bincount: fast with many small regions); the pixels are already
         # within the opening tolerance, so no outlier can pull a mean far.
-        flat = labels.ravel()
-        sel_c, sel_n = flat[clear.ravel()], flat[near.ravel()]
-        d_flat = diff.reshape(-1, 3)
-        off_clear = np.stack([np.bincount(sel_c, weights=d_flat[clear.ravel(), c], minlength=n + 1)
+        sel_c, sel_n = region[in_clear], region[in_near]
+        off_clear = np.stack([np.bincount(sel_c, weights=offsets[c][in_clear], minlength=n + 1)
                               for c in range(3)], axis=-1)[1:] / np.maximum(n_clear[1:, None], 1)
-        off_near = np.stack([np.bincount(sel_n, weights=d_flat[near.ravel(), c], minlength=n + 1)
+        off_near = np.stack([np.bincount(sel_n, weights=offsets[c][in_near], minlength=n + 1)
                              for c in range(3)], axis=-1)[1:] / np.maximum(n_near[1:, None], 1)
         wide = n_clear[1:] >= ENCLOSED_CLEAR_PIXELS
         off = np.where(wide[:, None], off_clear, off_near)
@@ -537,14 +642,15 @@ def foreground_mask(
     back |= transparent
     # Shadow pixels in corners (a leg meeting its shadow) have too few smooth neighbours for the
     # curvature test; take those that continue a background neighbour within a small J' step.
+    close_x = np.abs(lightness[:, 1:] - lightness[:, :-1]) < SHADOW_GROW_STEP
+    close_y = np.abs(lightness[1:, :] - lightness[:-1, :]) < SHADOW_GROW_STEP
     for _ in range(2):
-        source = back
-        gap = np.full((h, w), np.inf, dtype=lightness.dtype)
-        for axis, sl_a, sl_b in ((0, np.s_[1:, :], np.s_[:-1, :]), (1, np.s_[:, 1:], np.s_[:, :-1])):
-            step = np.abs(lightness[sl_a] - lightness[sl_b])
-            gap[sl_a] = np.minimum(gap[sl_a], np.where(source[sl_b], step, np.inf))
-            gap[sl_b] = np.minimum(gap[sl_b], np.where(source[sl_a], step, np.inf))
-        grow = coloured & ~back & (gap < SHADOW_GROW_STEP)
+        reached = np.zeros((h, w), dtype=bool)
+        reached[1:] |= back[:-1] & close_y
+        reached[:-1] |= back[1:] & close_y
+        reached[:, 1:] |= back[:, :-1] & close_x
+        reached[:, :-1] |= back[:, 1:] & close_x
+        grow = coloured & ~back & reached
         if not grow.any():
             break
         back |= grow
@@ -569,11 +675,12 @@ def foreground_mask(
         flags.append(FLAG_SMALL_AREA)
         confidence = min(confidence, SMALL_AREA_CONFIDENCE)
     # Near the backdrop, leaving out the outline (its blends are always near).
-    body = kept & ~ndimage.binary_dilation(back, iterations=1)
+    body = kept & ~_dilate_cross(back, 1)
     if body.any():
         close = float((d2[body] <= NEAR_BACKDROP_DELTA_E**2).mean())
         if close >= NEAR_BACKDROP_SHARE:
             flags.append(FLAG_NEAR_BACKDROP)
             confidence = min(confidence, NEAR_BACKDROP_CONFIDENCE)
     weights = left.astype(float)
-    return Mask(weights, background, float(back.mean()), False, confidence, tuple(flags), surface)
+    return Mask(weights, background, float(back.mean()), False, confidence, tuple(flags),
+                np.moveaxis(surface, 0, -1))
