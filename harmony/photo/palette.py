@@ -432,23 +432,6 @@ def _merge_close(centres, masses, limit):
     return np.array(centres), np.array(masses)
 
 
-def _colour_edge(jab):
-    """Largest squared ΔE between each pixel and its four neighbours, shape (h, w)."""
-    h, w = jab.shape[:2]
-    dx = np.zeros((h, w - 1), dtype=jab.dtype)
-    dy = np.zeros((h - 1, w), dtype=jab.dtype)
-    for c in range(3):
-        plane = jab[..., c]
-        dx += (plane[:, 1:] - plane[:, :-1]) ** 2
-        dy += (plane[1:, :] - plane[:-1, :]) ** 2
-    step = np.zeros((h, w), dtype=jab.dtype)
-    np.maximum(step[:, :-1], dx, out=step[:, :-1])
-    np.maximum(step[:, 1:], dx, out=step[:, 1:])
-    np.maximum(step[:-1, :], dy, out=step[:-1, :])
-    np.maximum(step[1:, :], dy, out=step[1:, :])
-    return step
-
-
 #: Levels per sRGB channel of the cached CAM02-UCS table (2 sRGB levels a cell: a pixel's J'a'b'
 #: is that of its cell's centre, within about 0.4 ΔE of its own).
 FINE_LEVELS = 128
@@ -457,25 +440,16 @@ _TABLE = None
 _DONE = None
 
 
-def srgb8_to_jab(srgb8):
-    """CAM02-UCS J'a'b' of 8-bit sRGB pixels through a cached table, shape (..., 3), float32.
-
-    The table holds the colour of every cell of :data:`FINE_LEVELS` levels per channel. It is
-    filled on demand, a fixed block of cells at a time, so each entry is always computed in the
-    same batch and is the same bit for bit whatever images came before; a long run converts each
-    colour region once instead of once per photo.
-    """
+def _fill_table(blocks):
+    """Make sure the table holds every cell of the given blocks (flat block indices)."""
     global _TABLE, _DONE
     shift = 8 - int(np.log2(FINE_LEVELS))
     side = FINE_LEVELS // _BLOCK
     if _TABLE is None:
-        _TABLE = np.empty((FINE_LEVELS**3, 3), dtype=np.float32)
+        # Channel-first, so that a lookup yields three contiguous planes.
+        _TABLE = np.empty((3, FINE_LEVELS**3), dtype=np.float32)
         _DONE = np.zeros(side**3, dtype=bool)
-    q = (np.asarray(srgb8, dtype=np.uint8) >> shift).astype(np.intp)
-    code = (q[..., 0] * FINE_LEVELS + q[..., 1]) * FINE_LEVELS + q[..., 2]
-    block = ((q[..., 0] // _BLOCK) * side + q[..., 1] // _BLOCK) * side + q[..., 2] // _BLOCK
-    present = np.flatnonzero(np.bincount(block.ravel(), minlength=side**3))
-    missing = present[~_DONE[present]]
+    missing = blocks[~_DONE[blocks]]
     if len(missing):
         cell = np.arange(_BLOCK)
         local = np.stack(np.meshgrid(cell, cell, cell, indexing="ij"), axis=-1).reshape(-1, 3)
@@ -485,39 +459,78 @@ def srgb8_to_jab(srgb8):
             cells = local + np.array([b0, b1, b2]) * _BLOCK
             centre = (cells * (1 << shift) + ((1 << shift) - 1) / 2.0) / 255.0
             codes = (cells[:, 0] * FINE_LEVELS + cells[:, 1]) * FINE_LEVELS + cells[:, 2]
-            _TABLE[codes] = colour.srgb1_to_jab(centre)
+            _TABLE[:, codes] = colour.srgb1_to_jab(centre).T
             _DONE[b] = True
-    return _TABLE[code]
+
+
+def _jab_planes(channels, blocks=None):
+    """J'a'b' planes, shape (3, n) float32, of pixels given as three intp channel arrays (0-255).
+
+    ``blocks`` lists the table blocks the pixels fall in, when the caller knows them."""
+    shift = 8 - int(np.log2(FINE_LEVELS))
+    fine = int(np.log2(FINE_LEVELS))
+    side = FINE_LEVELS // _BLOCK
+    r, g, b = (c >> shift for c in channels)
+    if blocks is None:
+        s = int(np.log2(_BLOCK))
+        block = (((r >> s) * side + (g >> s)) * side) + (b >> s)
+        blocks = np.flatnonzero(np.bincount(block, minlength=side**3))
+    _fill_table(blocks)
+    code = (r << (2 * fine)) | (g << fine) | b
+    return _TABLE.take(code, axis=1)
+
+
+def srgb8_to_jab(srgb8):
+    """CAM02-UCS J'a'b' of 8-bit sRGB pixels through a cached table, shape (..., 3), float32.
+
+    The table holds the colour of every cell of :data:`FINE_LEVELS` levels per channel. It is
+    filled on demand, a fixed block of cells at a time, so each entry is always computed in the
+    same batch and is the same bit for bit whatever images came before; a long run converts each
+    colour region once instead of once per photo. The result is a view of channel-first memory
+    (``np.moveaxis(result, -1, 0)`` is contiguous).
+    """
+    srgb8 = np.asarray(srgb8, dtype=np.uint8)
+    rgb = srgb8.reshape(-1, 3)
+    planes = _jab_planes([rgb[:, c].astype(np.intp) for c in range(3)])
+    return np.moveaxis(planes.reshape((3,) + srgb8.shape[:-1]), 0, -1)
 
 
 def _bin_colours(srgb8, levels):
     """Quantise pixels into ``levels``^3 bins.
 
     Returns the bin index of every pixel (into the occupied bins), the J'a'b' of every pixel
-    (:func:`srgb8_to_jab`), and a function giving, for pixel weights, the occupied bins with any
-    weight and their weighted mean J'a'b' (so a product's bins are not pulled towards backdrop
-    pixels sharing a bin). No colour is converted twice.
+    (:func:`srgb8_to_jab`) as planes, shape (3, n), and a function giving, for pixel weights,
+    the occupied bins with any weight and their weighted mean J'a'b' (so a product's bins are not
+    pulled towards backdrop pixels sharing a bin). No colour is converted twice.
     """
-    shift = 8 - int(np.log2(levels))
+    bits = levels.bit_length() - 1
     rgb = srgb8.reshape(-1, 3)
-    pixel_jab = srgb8_to_jab(rgb)
-    q = (rgb >> shift).astype(np.intp)
-    code = (q[:, 0] * levels + q[:, 1]) * levels + q[:, 2]
+    channels = [rgb[:, c].astype(np.intp) for c in range(3)]
+    r, g, b = (c >> (8 - bits) for c in channels)
+    code = (r << (2 * bits)) | (g << bits) | b
     counts = np.bincount(code, minlength=levels**3)
     occupied = np.flatnonzero(counts)
+    blocks = None
+    coarse = bits - int(np.log2(FINE_LEVELS // _BLOCK))  # table blocks are 16 levels a side
+    if coarse >= 0:  # the occupied bins name the table blocks the pixels fall in
+        side = FINE_LEVELS // _BLOCK
+        br, bg, bb = (occupied >> (2 * bits)) >> coarse, ((occupied >> bits) & (levels - 1)) >> coarse, \
+            (occupied & (levels - 1)) >> coarse
+        blocks = np.unique((br * side + bg) * side + bb)
+    pixel_planes = _jab_planes(channels, blocks)
     index = np.zeros(levels**3, dtype=np.intp)
     index[occupied] = np.arange(occupied.size)
     inverse = index[code]
-    channels = [pixel_jab[:, c].astype(float) for c in range(3)]
+    planes64 = pixel_planes.astype(float)
 
     def weighted_means(weights):
         mass = np.bincount(inverse, weights=weights, minlength=occupied.size)
         used = np.flatnonzero(mass > 0)
         sums = np.stack([np.bincount(inverse, weights=weights * ch, minlength=occupied.size)[used]
-                         for ch in channels], axis=1)
+                         for ch in planes64], axis=1)
         return used, sums / mass[used, None]
 
-    return inverse, pixel_jab, weighted_means
+    return inverse, pixel_planes, weighted_means
 
 
 def palette_from_decoded(decoded, settings=PaletteSettings()):
@@ -525,16 +538,18 @@ def palette_from_decoded(decoded, settings=PaletteSettings()):
 
     See :func:`extract_palette` for the method.
     """
-    from harmony.photo.mask import foreground_mask
+    from harmony.photo.mask import colour_step_sq, foreground_mask
 
     h, w = decoded.srgb8.shape[:2]
-    inverse, flat_jab, weighted_means = _bin_colours(decoded.srgb8, settings.levels)
-    pixel_jab = flat_jab.reshape(h, w, 3)
+    inverse, jab_planes, weighted_means = _bin_colours(decoded.srgb8, settings.levels)
+    pixel_jab = np.moveaxis(jab_planes.reshape(3, h, w), 0, -1)  # a view of the planes
+    step_sq = colour_step_sq(pixel_jab)
     mask = foreground_mask(
         pixel_jab,
         decoded.opaque,
         tolerance=settings.tolerance,
         uniform_share=settings.uniform_share,
+        step_sq=step_sq,
     )
     product = mask.weights.ravel()
     if np.count_nonzero(product > 0) < max(16, 0.002 * h * w):
@@ -550,7 +565,7 @@ def palette_from_decoded(decoded, settings=PaletteSettings()):
     # backdrop: against a fitted backdrop it is unmixed (the share of the nearest colour on the
     # line from the backdrop through the pixel), so thin parts (slats, legs, frames) count by
     # their area; without a backdrop it counts only when nearly pure.
-    blended = _colour_edge(pixel_jab).ravel() > settings.edge_delta_e**2
+    blended = step_sq.ravel() > settings.edge_delta_e**2
     background = (mask.weights <= 0.0)
     touching = np.zeros_like(background)
     touching[1:] |= background[:-1]
@@ -578,14 +593,14 @@ def palette_from_decoded(decoded, settings=PaletteSettings()):
     mass = np.bincount(nearest, weights=inner_mass, minlength=len(centres))
     edge = np.flatnonzero(outline)
     if edge.size:
-        px = flat_jab[edge].astype(float)
+        px = jab_planes[:, edge].T.astype(float)
         if mask.backdrop is None:
             d2 = _sq_dist(px, centres)
             k = np.argmin(d2, axis=1)
             pure = d2[np.arange(edge.size), k] <= (settings.edge_delta_e / 2.0) ** 2
             mass += np.bincount(k[pure], weights=product[edge][pure], minlength=len(centres))
         else:
-            back = mask.backdrop.reshape(-1, 3)[edge]
+            back = np.moveaxis(mask.backdrop, -1, 0).reshape(3, -1)[:, edge].T
             span = centres[None, :, :] - back[:, None, :]  # (n, k, 3)
             rel = (px - back)[:, None, :]
             alpha = np.clip((rel * span).sum(-1) / np.maximum((span * span).sum(-1), 1e-9), 0.0, 1.0)
