@@ -330,6 +330,19 @@ def _grow_within(seed, allowed, steps):
     return out
 
 
+def _label_box(mask):
+    """``scipy.ndimage.label(mask)`` (4-connected), run on the bounding box of ``mask`` only: the
+    box keeps the raster order, so the labels are the same."""
+    rows = np.flatnonzero(mask.any(axis=1))
+    if rows.size == 0:
+        return np.zeros(mask.shape, dtype=np.int32), 0
+    cols = np.flatnonzero(mask.any(axis=0))
+    box = np.s_[rows[0]: rows[-1] + 1, cols[0]: cols[-1] + 1]
+    labels = np.zeros(mask.shape, dtype=np.int32)
+    labels[box], n = ndimage.label(mask[box])
+    return labels, n
+
+
 def _connected_to_edge(labels):
     edge = np.concatenate([labels[0], labels[-1], labels[:, 0], labels[:, -1]])
     keep = np.zeros(labels.max() + 1, dtype=bool)
@@ -372,16 +385,18 @@ def _fit_surface(planes, index, design, tolerance, iterations):
     coef = np.zeros((6, 3))
     coef[0] = np.median(pts, axis=0)
     for it in range(iterations + 1):
-        fit = design @ coef
-        residual = np.sqrt(((pts - fit) ** 2).sum(axis=1))
+        sq = pts - design @ coef
+        sq *= sq
+        residual = np.sqrt(sq[:, 0] + sq[:, 1] + sq[:, 2])
         # Widen the first inlier test: a sweep's ring is far from its median colour.
         limit = tolerance if it else max(tolerance, 2.5 * float(np.median(residual)))
         inlier = residual <= limit
         if it == iterations or inlier.sum() < 12:
             break
         cols = 3 if it == 0 else 6
-        a = design[inlier, :cols]
-        sol = np.linalg.solve(a.T @ a + 1e-9 * np.eye(cols), a.T @ pts[inlier])  # normal equations
+        rows = np.flatnonzero(inlier)
+        a = design.take(rows, axis=0)[:, :cols]
+        sol = np.linalg.solve(a.T @ a + 1e-9 * np.eye(cols), a.T @ pts.take(rows, axis=0))  # normal equations
         coef = np.zeros((6, 3))
         coef[:cols] = sol
     surface = np.empty((3, h * w), dtype=planes.dtype)
@@ -615,7 +630,7 @@ def foreground_mask(
     # from the flood, whose median colour lies as close to the surface as the backdrop's own
     # patches do. Shadow-coloured pixels do not join them, so a flat light panel set into an
     # opening (a mirror, a cane seat) is not swallowed with the gap around it.
-    labels, n = ndimage.label(candidate & ~back)
+    labels, n = _label_box(candidate & ~back)
     if n:
         bias = min(max(ENCLOSED_BIAS_FACTOR * _patch_bias(diff, width), ENCLOSED_MIN_DELTA_E), cap)
         # Only the pixels of the enclosed regions (raster order, as the sums always ran).
@@ -655,7 +670,7 @@ def foreground_mask(
             break
         back |= grow
     # Specks the flood went round (noise on a shadow failing the smoothness test) are background.
-    left_labels, m = ndimage.label(~back)
+    left_labels, m = _label_box(~back)
     if m:
         speck = np.bincount(left_labels.ravel(), minlength=m + 1) < max(3, int(0.0003 * h * w))
         speck[0] = False

@@ -524,9 +524,12 @@ def _bin_colours(srgb8, levels):
     planes64 = pixel_planes.astype(float)
 
     def weighted_means(weights):
-        mass = np.bincount(inverse, weights=weights, minlength=occupied.size)
+        # Pixels of weight 0 add nothing to any sum (x + 0.0 == x): leave them out.
+        some = np.flatnonzero(weights)
+        inv, wts = inverse[some], weights[some]
+        mass = np.bincount(inv, weights=wts, minlength=occupied.size)
         used = np.flatnonzero(mass > 0)
-        sums = np.stack([np.bincount(inverse, weights=weights * ch, minlength=occupied.size)[used]
+        sums = np.stack([np.bincount(inv, weights=wts * ch[some], minlength=occupied.size)[used]
                          for ch in planes64], axis=1)
         return used, sums / mass[used, None]
 
