@@ -153,10 +153,11 @@ def client_process(port, paths, clients):
     """Run :func:`_drive` in this process (a child of the benchmark), on uvloop when installed."""
     try:
         import uvloop
-
-        return uvloop.run(_drive(port, paths, clients))
     except ImportError:
-        return asyncio.run(_drive(port, paths, clients))
+        uvloop = None
+    if uvloop is not None and hasattr(uvloop, "run"):  # uvloop.run: 0.18 and later
+        return uvloop.run(_drive(port, paths, clients))
+    return asyncio.run(_drive(port, paths, clients))
 
 
 def cpu_seconds(pids):
