@@ -130,6 +130,33 @@ def _required(params, name):
     return value
 
 
+# -- cached answers ---------------------------------------------------------------------------
+
+
+def _request_line(scope):
+    """The cache key of a request as it was sent: (raw path, raw query string)."""
+    return scope.get("raw_path") or scope["path"].encode("utf-8"), scope.get("query_string", b"")
+
+
+def _cached(request, snap, key):
+    """The answer cached under ``key`` in ``snap``, also remembered under the request as sent."""
+    body = snap.cache.get(key)
+    if body is None:
+        return None
+    if request.scope["method"] == "GET":
+        snap.answers.put(_request_line(request.scope), body)
+    return Response(body, media_type="application/json")
+
+
+def _remember(request, snap, key, response):
+    """Cache the JSON bytes of a computed 200 answer under ``key`` and under the request as sent
+    (the latter is answered by :class:`_Limits` before any routing)."""
+    snap.cache.put(key, response.body)
+    if request.scope["method"] == "GET":
+        snap.answers.put(_request_line(request.scope), response.body)
+    return response
+
+
 # -- the application --------------------------------------------------------------------------
 
 
@@ -194,7 +221,7 @@ def create_app(live, *, rules_path=None, curation=None, rooms_dir=ROOMS_DIR, roo
             "snapshot": snap.generation,
             "loaded_at": round(snap.loaded_at, 3),
             "products": len(snap),
-            "with_palette": len(snap.palettes()),
+            "with_palette": snap.palette_count,
             "categories": len(snap.category_data),
             "warming_up": live.warming,
             "rules": None if rules_path is None else Path(rules_path).name,
@@ -262,15 +289,13 @@ def create_app(live, *, rules_path=None, curation=None, rooms_dir=ROOMS_DIR, roo
             if curation is None or curation.max_partner_categories is None:
                 paired = [cat]
         key = ("partners", product.id, only, top, diversity, min_score)
-        cached = snap.cache.get(key)
+        cached = _cached(request, snap, key)
         if cached is not None:
-            return Response(cached, media_type="application/json")
+            return cached
         pal = _palette_or_409(snap, product)
         payload = await run_in_threadpool(compute_partners, snap, product, pal, paired, only, top, diversity,
                                           min_score)
-        response = _json(payload)
-        snap.cache.put(key, response.body)
-        return response
+        return _remember(request, snap, key, _json(payload))
 
     def compute_similar(snap, product, top):
         from harmony.suggest.lookalike import similar_products
@@ -285,13 +310,11 @@ def create_app(live, *, rules_path=None, curation=None, rooms_dir=ROOMS_DIR, roo
         product = _product(snap, request.path_params["product_id"])
         top = _int(params, "top", 10, 1, MAX_TOP)
         key = ("similar", product.id, top)
-        cached = snap.cache.get(key)
+        cached = _cached(request, snap, key)
         if cached is not None:
-            return Response(cached, media_type="application/json")
+            return cached
         _palette_or_409(snap, product)
-        response = _json(await run_in_threadpool(compute_similar, snap, product, top))
-        snap.cache.put(key, response.body)
-        return response
+        return _remember(request, snap, key, _json(await run_in_threadpool(compute_similar, snap, product, top)))
 
     async def palette(request):
         _params(request, ())
@@ -331,9 +354,9 @@ def create_app(live, *, rules_path=None, curation=None, rooms_dir=ROOMS_DIR, roo
         top = _int(params, "top", 3, 1, MAX_ROOM_SETS)
         limit = _float(params, "time_limit", float(room_time_limit), 0.0, float(room_time_limit), lo_open=True)
         key = ("rooms", name, anchor, budget, top, limit)
-        cached = snap.cache.get(key)
+        cached = _cached(request, snap, key)
         if cached is not None:
-            return Response(cached, media_type="application/json")
+            return cached
         try:
             result = await run_in_threadpool(engine.room_sets, snap, rooms_dir / f"{name}.toml", rules, budget,
                                              anchor, top, limit, curation=curation)
@@ -342,9 +365,7 @@ def create_app(live, *, rules_path=None, curation=None, rooms_dir=ROOMS_DIR, roo
         except HarmonyError as exc:
             raise ApiError(400, f"{exc}.") from None
         result = {"template": name, "anchor": anchor, "time_limit": limit, **result}
-        response = _json(result)
-        snap.cache.put(key, response.body)
-        return response
+        return _remember(request, snap, key, _json(result))
 
     async def openapi(request):
         _params(request, ())
@@ -396,14 +417,20 @@ def create_app(live, *, rules_path=None, curation=None, rooms_dir=ROOMS_DIR, roo
                             Exception: on_crash},
         lifespan=lifespan,
     )
-    return _Limits(app)
+    return _Limits(app, live)
+
+
+_JSON_TYPE = (b"content-type", b"application/json")
 
 
 class _Limits:
-    """ASGI middleware: GET/HEAD only, no request body, bounded path and query, JSON refusals."""
+    """ASGI middleware: GET/HEAD only, no request body, bounded path and query, JSON refusals; a
+    GET whose answer the current snapshot has cached (the same path and query as sent before) is
+    answered here with its stored bytes, without routing or a Request object."""
 
-    def __init__(self, app):
+    def __init__(self, app, live):
         self.app = app
+        self.live = live
 
     async def __call__(self, scope, receive, send):
         if scope["type"] != "http":
@@ -413,6 +440,13 @@ class _Limits:
             status, message = refusal
             response = _error(status, message)
             return await response(scope, receive, send)
+        if scope["method"] == "GET":
+            body = self.live.snapshot.answers.get(_request_line(scope))
+            if body is not None:
+                await send({"type": "http.response.start", "status": 200,
+                            "headers": [(b"content-length", str(len(body)).encode("ascii")), _JSON_TYPE]})
+                await send({"type": "http.response.body", "body": body})
+                return None
         return await self.app(scope, receive, send)
 
     @staticmethod

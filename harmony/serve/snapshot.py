@@ -128,6 +128,9 @@ class Snapshot:
         self._screens = dict(screens or {})
         self._screen_lock = threading.Lock()
         self.cache = _Lru(CACHE_ENTRIES)
+        # The same answers by the request as sent (raw path, raw query), for the fast path.
+        self.answers = _Lru(CACHE_ENTRIES)
+        self.palette_count = len(palettes)
         digest = hashlib.sha256(f"{SCHEMA_VERSION}\x1f{settings_key}".encode())
         for pid in sorted(products):
             p = products[pid]

@@ -158,6 +158,23 @@ def test_methods_bodies_and_sizes_are_limited(server):
     assert server.get("/v1/products/" + "A" * 600 + "/palette").status_code == 414
 
 
+def test_cached_answers_are_the_computed_bytes(server):
+    """A repeated request is answered from the snapshot's cache of answers by request line: the same
+    bytes and headers as the computed answer, under the same limits (a body is still refused)."""
+    path = "/v1/products/SOF-002/partners?category=floor%20lamp&top=7&diversity=0.2"
+    first, second = server.get(path), server.get(path)
+    assert first.status_code == second.status_code == 200 and first.content == second.content
+    for name in ("content-type", "content-length"):
+        assert first.headers[name] == second.headers[name]
+    # Another spelling of the same question (category case) is the same answer.
+    assert server.get(path.replace("floor%20lamp", "Floor+Lamp")).content == first.content
+    head = server.request("HEAD", path)
+    assert head.status_code == 200 and head.content == b"" and head.headers["content-length"] == first.headers["content-length"]
+    refused = server.request("GET", path, content=b"x")
+    assert refused.status_code == 413
+    _one_sentence(refused)
+
+
 def _flock_held(path):
     """Whether some process holds a flock on ``path`` (Linux: /proc/locks lists device:inode)."""
     inode = os.stat(path).st_ino
@@ -177,11 +194,18 @@ def test_new_products_are_answered_while_a_second_extract_is_refused(demo_db, tm
     lock_file.touch()
     catalogue = tmp_path / "catalogue.csv"
     write_catalogue(catalogue)
+    with Store(db, read_only=True) as store:
+        sofa_ids = [p.id for p in store.products("sofa")]
     srv = Server(db)
     first = None
     holder = sqlite3.connect(db, isolation_level=None, timeout=60)
     try:
         assert srv.get("/v1/products/RUG-003/partners").status_code == 404
+        # Every sofa's rug list is cached in the first snapshot (the second request is answered from
+        # the cache of answers by request line); after the reload the same requests see the new rug.
+        for sid in sofa_ids:
+            a, b = (srv.get(f"/v1/products/{sid}/partners", params={"category": "rug", "top": 100}) for _ in range(2))
+            assert a.status_code == 200 and a.content == b.content and "RUG-003" not in a.text
         holder.execute("BEGIN IMMEDIATE")
         first = subprocess.Popen([*CLI, "extract", str(catalogue), "--db", str(db), "--workers", "1"],
                                  stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
