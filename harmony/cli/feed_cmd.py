@@ -84,7 +84,7 @@ def warn_unmatched_pairs(rule_sets, categories):
 @click.option("--scheduler", default=None, metavar="ADDR",
               help="Dask scheduler address (tcp://host:8786); without it --engine dask starts a local cluster.")
 @click.option("--workers", type=click.IntRange(1, 1024), default=None,
-              help="Worker processes of the local Dask cluster (default 2).")
+              help="Worker processes: of the local engine (default: the cores, at most 2) or of the local Dask cluster (default 2).")
 def feed(db, rules_path, top, targets, diversity, fmt, out, progress, blend, blend_weight, similar,
          curation_path, engine, scheduler, workers):
     """Write the cross-sell feed: each product's best partners in the other categories.

@@ -460,8 +460,19 @@ def task_chunks(plan, rules, task, part=None):
     return out
 
 
-def feed_chunks(plan, rules, *, progress=False):
-    """The feed as FeedChunks, one ordered category pair at a time, in file order."""
+def feed_chunks(plan, rules, *, progress=False, workers=1):
+    """The feed as FeedChunks, one ordered category pair at a time, in file order.
+
+    With ``workers > 1`` the category-pair tasks run in that many forked processes
+    (:mod:`harmony.suggest.feed_pool`); the chunks and their order are the same.
+    """
+    if workers is not None and int(workers) > 1:
+        jobs = [(task, part) for task in plan.tasks for part in task_parts(plan, task)]
+        if len(jobs) > 1:
+            from harmony.suggest.feed_pool import pool_chunks
+
+            yield from pool_chunks(plan, rules, jobs, min(int(workers), len(jobs)), progress=progress)
+            return
     for task in tqdm(plan.tasks, desc="feed", unit="category pair", disable=not progress, leave=False):
         for part in task_parts(plan, task):
             with threadpool_limits(limits=1):
@@ -526,10 +537,12 @@ def write_feed_stream(store, rules, path, fmt=None, *, top=10, targets=None, div
     """Build the feed and write it as it is made (see :func:`harmony.suggest.feedwriter.write_chunks`).
 
     Rows come grouped by category pair (pairs in sorted order, a to b before b to a), within a
-    pair by product id and rank. Memory holds one category pair at a time. ``engine="dask"``
-    runs the category pairs on a Dask cluster (:mod:`harmony.suggest.feed_dask`) and writes the
-    same bytes. A curation file is applied to each product's list in each category as it is
-    made; its ``max_partner_categories`` needs all of a product's categories at once, so with it
+    pair by product id and rank. Memory holds one category pair at a time per process.
+    ``engine="dask"`` runs the category pairs on a Dask cluster (:mod:`harmony.suggest.feed_dask`)
+    and writes the same bytes; the local engine runs them in ``workers`` forked processes
+    (default :func:`harmony.suggest.feed_pool.default_workers`: the cores, at most 2; 1 runs in
+    this process), also the same bytes. A curation file is applied to each product's list in
+    each category as it is made; its ``max_partner_categories`` needs all of a product's categories at once, so with it
     the feed is built whole first (:func:`build_feed`) and written in product order.
 
     Returns
@@ -555,7 +568,11 @@ def write_feed_stream(store, rules, path, fmt=None, *, top=10, targets=None, div
 
         chunks = dask_chunks(store.path, rules.path, plan, scheduler=scheduler, workers=workers, progress=progress)
     else:
-        chunks = feed_chunks(plan, rules, progress=progress)
+        if workers is None:
+            from harmony.suggest.feed_pool import default_workers
+
+            workers = default_workers()
+        chunks = feed_chunks(plan, rules, progress=progress, workers=workers)
     products = set()
 
     def counted():

@@ -188,3 +188,16 @@ def test_blocks_of_a_category_pair_write_the_same_bytes(tmp_path, store_items, r
     assert len(parts) == sum(-(-n // 7) for n in sizes) > 2 and parts[0] == (plan.tasks[0][0], 0, 7)
     assert whole.read_bytes() == blocked.read_bytes()
     assert len(whole.read_bytes()) > 0
+
+
+def test_local_engine_in_two_processes_writes_the_same_bytes(tmp_path, store_items, rules):
+    # The forked workers run the same tasks with the same arithmetic: the file must not change,
+    # also with large pairs split into blocks (block=9), nor its order.
+    db = make_store(tmp_path, store_items)
+    kw = dict(top=3, warn=lambda m: None)
+    with Store(db) as store:
+        one, rows, _ = write_feed_stream(store, rules, tmp_path / "one.jsonl", workers=1, **kw)
+        two, _, _ = write_feed_stream(store, rules, tmp_path / "two.jsonl", workers=2, **kw)
+        blocked, _, _ = write_feed_stream(store, rules, tmp_path / "b.jsonl", workers=2, block=9, **kw)
+    assert rows > 0
+    assert one.read_bytes() == two.read_bytes() == blocked.read_bytes()

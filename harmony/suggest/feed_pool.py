@@ -1,0 +1,68 @@
+"""The local feed engine on several cores: category-pair tasks in worker processes, same bytes.
+
+Each task (an unordered category pair, or a block of one, see
+:func:`harmony.suggest.feed.task_parts`) runs :func:`harmony.suggest.feed.task_chunks` in a
+worker process with one BLAS thread, exactly the arithmetic of the in-process run, and its
+chunks come back in task order, so the file is byte-for-byte the one-process file. Workers are
+forked from the calling process and inherit the plan's palettes and the rules without copying
+them; at most ``workers + 1`` tasks are in flight, so memory holds a few category pairs.
+"""
+
+import multiprocessing
+import os
+from collections import deque
+from concurrent.futures import ProcessPoolExecutor
+
+from threadpoolctl import threadpool_limits
+from tqdm import tqdm
+
+__all__ = ["default_workers", "pool_chunks"]
+
+# What the forked workers read: (plan, rules), set in the parent just before the fork.
+_SHARED = None
+
+
+def default_workers():
+    """Worker processes of the local engine: the cores this process may use, at most 2
+    (the feed's measured machine; more cores help as long as memory allows a task per core)."""
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except AttributeError:  # not on every platform
+        cores = os.cpu_count() or 1
+    return max(1, min(2, cores))
+
+
+def _run(job):
+    from harmony.suggest.feed import task_chunks
+
+    plan, rules = _SHARED
+    task, part = job
+    with threadpool_limits(limits=1):
+        return task_chunks(plan, rules, task, part)
+
+
+def pool_chunks(plan, rules, jobs, workers, *, progress=False):
+    """The FeedChunks of ``jobs`` (``(task, part)`` pairs) computed by ``workers`` forked
+    processes, yielded in job order."""
+    global _SHARED
+    _SHARED = (plan, rules)
+    ctx = multiprocessing.get_context("fork")
+    bar = tqdm(total=len(jobs), desc="feed", unit="task", disable=not progress, leave=False)
+    try:
+        with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
+            waiting = deque()
+            todo = iter(jobs)
+            for job in todo:
+                waiting.append(pool.submit(_run, job))
+                if len(waiting) > workers:
+                    break
+            while waiting:
+                chunks = waiting.popleft().result()
+                for job in todo:
+                    waiting.append(pool.submit(_run, job))
+                    break
+                bar.update(1)
+                yield from chunks
+    finally:
+        bar.close()
+        _SHARED = None
