@@ -3,7 +3,9 @@
 Each size runs in its own process (so its peak resident memory is its own): a synthetic store
 is made (palettes generated directly, no photos: benchmark inputs, not check values), then
 ``harmony.suggest.feed.write_feed_stream`` writes the JSONL feed (top 10, default rules).
-Prints seconds, rows per second and peak RSS per size, and a baseline measured in the same run:
+The local engine runs the category pairs in its default number of worker processes (the cores,
+at most 2). Prints seconds, rows per second and peak RSS per size (the parent's plus the
+workers': an upper bound of their sum), and a baseline measured in the same run:
 the old per-row path (each listed pair scored again and explained by ``pair_scores``) on rows of
 the smallest store, for the ratio column. Ends with one JSON line for the largest size:
 ``{"products": 50000, "seconds": ..., "peak_rss_mb": ..., "rows": ...}``.
@@ -68,7 +70,13 @@ def make_store(folder, products, seed=14, out_of_stock=0.05):
 
 
 def peak_rss_mb():
-    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+    """Peak resident memory of this process plus, per worker process of the local engine, the
+    largest peak of any worker (an upper bound of the processes' sum at any moment)."""
+    from harmony.suggest.feed_pool import default_workers
+
+    own = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    child = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+    return (own + (default_workers() * child if default_workers() > 1 else 0)) / 1024.0
 
 
 def run_one(products, folder):

@@ -460,18 +460,20 @@ def task_chunks(plan, rules, task, part=None):
     return out
 
 
-def feed_chunks(plan, rules, *, progress=False, workers=1):
+def feed_chunks(plan, rules, *, progress=False, workers=1, fmt=None):
     """The feed as FeedChunks, one ordered category pair at a time, in file order.
 
     With ``workers > 1`` the category-pair tasks run in that many forked processes
-    (:mod:`harmony.suggest.feed_pool`); the chunks and their order are the same.
+    (:mod:`harmony.suggest.feed_pool`); the chunks and their order are the same, and with
+    ``fmt`` each also carries its text in that format, written out by the worker.
     """
     if workers is not None and int(workers) > 1:
         jobs = [(task, part) for task in plan.tasks for part in task_parts(plan, task)]
         if len(jobs) > 1:
             from harmony.suggest.feed_pool import pool_chunks
 
-            yield from pool_chunks(plan, rules, jobs, min(int(workers), len(jobs)), progress=progress)
+            yield from pool_chunks(plan, rules, jobs, min(int(workers), len(jobs)), progress=progress,
+                                  fmt=fmt)
             return
     for task in tqdm(plan.tasks, desc="feed", unit="category pair", disable=not progress, leave=False):
         for part in task_parts(plan, task):
@@ -572,7 +574,7 @@ def write_feed_stream(store, rules, path, fmt=None, *, top=10, targets=None, div
             from harmony.suggest.feed_pool import default_workers
 
             workers = default_workers()
-        chunks = feed_chunks(plan, rules, progress=progress, workers=workers)
+        chunks = feed_chunks(plan, rules, progress=progress, workers=workers, fmt=feed_format(path, fmt))
     products = set()
 
     def counted():

@@ -12,6 +12,7 @@ import multiprocessing
 import os
 from collections import deque
 from concurrent.futures import ProcessPoolExecutor
+from dataclasses import replace
 
 from threadpoolctl import threadpool_limits
 from tqdm import tqdm
@@ -34,18 +35,22 @@ def default_workers():
 
 def _run(job):
     from harmony.suggest.feed import task_chunks
+    from harmony.suggest.feedwriter import chunk_text
 
-    plan, rules = _SHARED
+    plan, rules, fmt = _SHARED
     task, part = job
     with threadpool_limits(limits=1):
-        return task_chunks(plan, rules, task, part)
+        chunks = task_chunks(plan, rules, task, part)
+    if fmt in ("jsonl", "csv"):  # the text is written out here too, beside the scoring
+        chunks = [replace(c, text=(fmt, chunk_text(c, fmt))) for c in chunks]
+    return chunks
 
 
-def pool_chunks(plan, rules, jobs, workers, *, progress=False):
+def pool_chunks(plan, rules, jobs, workers, *, progress=False, fmt=None):
     """The FeedChunks of ``jobs`` (``(task, part)`` pairs) computed by ``workers`` forked
-    processes, yielded in job order."""
+    processes, yielded in job order; with ``fmt`` ("jsonl" or "csv") each carries its text."""
     global _SHARED
-    _SHARED = (plan, rules)
+    _SHARED = (plan, rules, fmt)
     ctx = multiprocessing.get_context("fork")
     bar = tqdm(total=len(jobs), desc="feed", unit="task", disable=not progress, leave=False)
     try:

@@ -37,6 +37,9 @@ class FeedChunk:
     score : list of float
     pinned : list of bool
         Whether a curation file placed the partner.
+    text : tuple of (str, str), optional
+        ``(format, text)``: the chunk already written out as :func:`chunk_text` writes it in that
+        format (made by a worker process of the local engine, so the parent only copies it).
     """
 
     category: str
@@ -47,6 +50,7 @@ class FeedChunk:
     score: list
     reason: list
     pinned: list
+    text: tuple = None
 
     def __len__(self):
         return len(self.product)
@@ -110,6 +114,8 @@ def _csv(chunk, header):
 
 def chunk_text(chunk, fmt, header=False):
     """One chunk as JSON lines or CSV text (``header``: start with the CSV header row)."""
+    if not header and chunk.text is not None and chunk.text[0] == fmt:
+        return chunk.text[1]
     return _jsonl(chunk) if fmt == "jsonl" else _csv(chunk, header)
 
 

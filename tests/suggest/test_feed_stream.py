@@ -199,5 +199,10 @@ def test_local_engine_in_two_processes_writes_the_same_bytes(tmp_path, store_ite
         one, rows, _ = write_feed_stream(store, rules, tmp_path / "one.jsonl", workers=1, **kw)
         two, _, _ = write_feed_stream(store, rules, tmp_path / "two.jsonl", workers=2, **kw)
         blocked, _, _ = write_feed_stream(store, rules, tmp_path / "b.jsonl", workers=2, block=9, **kw)
+        # The workers also write the text out (JSON lines here, CSV below).
+        csv_one, _, _ = write_feed_stream(store, rules, tmp_path / "one.csv", workers=1, **kw)
+        csv_two, _, _ = write_feed_stream(store, rules, tmp_path / "two.csv", workers=2, **kw)
     assert rows > 0
     assert one.read_bytes() == two.read_bytes() == blocked.read_bytes()
+    assert csv_one.read_bytes() == csv_two.read_bytes()
+    assert len(csv_one.read_bytes().splitlines()) == rows + 1
