@@ -276,7 +276,7 @@ def plan_feed(store, rules, top=10, targets=None, diversity=0.0, *, pool=None, w
         instock = categories[cat][2]
         if cat in target_keys and not instock.size:
             _warn(warn, f"target category '{cat}' has no in-stock product with a palette; it gets no rows")
-    missing = sum(1 for p in store.products() if p.id not in palettes)
+    missing = sum(1 for prods in by_cat.values() for p in prods if p.id not in palettes)
     if missing:
         _warn(warn, f"{missing} product(s) have no palette and are left out (see 'harmony extract' failures)")
     work = {(a, b) for a in known for b in target_keys if b != a and rules.pairs_with(a, b)
