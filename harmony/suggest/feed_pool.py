@@ -12,20 +12,26 @@ import multiprocessing
 import os
 from collections import deque
 from concurrent.futures import ProcessPoolExecutor
+from concurrent.futures.process import BrokenProcessPool
 from dataclasses import replace
 
 from threadpoolctl import threadpool_limits
 from tqdm import tqdm
 
+from harmony.errors import HarmonyError
+
 __all__ = ["default_workers", "pool_chunks"]
 
-# What the forked workers read: (plan, rules), set in the parent just before the fork.
+# What the forked workers read: (plan, rules, text format), set in the parent just before the fork.
 _SHARED = None
 
 
 def default_workers():
     """Worker processes of the local engine: the cores this process may use, at most 2
-    (the feed's measured machine; more cores help as long as memory allows a task per core)."""
+    (the feed's measured machine; more cores help as long as memory allows a task per core);
+    1 where processes cannot be forked."""
+    if "fork" not in multiprocessing.get_all_start_methods():
+        return 1
     try:
         cores = len(os.sched_getaffinity(0))
     except AttributeError:  # not on every platform
@@ -33,14 +39,19 @@ def default_workers():
     return max(1, min(2, cores))
 
 
-def _run(job):
+def _one(plan, rules, job):
     from harmony.suggest.feed import task_chunks
+
+    task, part = job
+    with threadpool_limits(limits=1):
+        return task_chunks(plan, rules, task, part)
+
+
+def _run(job):
     from harmony.suggest.feedwriter import chunk_text
 
     plan, rules, fmt = _SHARED
-    task, part = job
-    with threadpool_limits(limits=1):
-        chunks = task_chunks(plan, rules, task, part)
+    chunks = _one(plan, rules, job)
     if fmt in ("jsonl", "csv"):  # the text is written out here too, beside the scoring
         chunks = [replace(c, text=(fmt, chunk_text(c, fmt))) for c in chunks]
     return chunks
@@ -50,6 +61,10 @@ def pool_chunks(plan, rules, jobs, workers, *, progress=False, fmt=None):
     """The FeedChunks of ``jobs`` (``(task, part)`` pairs) computed by ``workers`` forked
     processes, yielded in job order; with ``fmt`` ("jsonl" or "csv") each carries its text."""
     global _SHARED
+    if "fork" not in multiprocessing.get_all_start_methods():  # run here, the same chunks
+        for job in jobs:
+            yield from _one(plan, rules, job)
+        return
     _SHARED = (plan, rules, fmt)
     ctx = multiprocessing.get_context("fork")
     bar = tqdm(total=len(jobs), desc="feed", unit="task", disable=not progress, leave=False)
@@ -62,7 +77,10 @@ def pool_chunks(plan, rules, jobs, workers, *, progress=False, fmt=None):
                 if len(waiting) > workers:
                     break
             while waiting:
-                chunks = waiting.popleft().result()
+                try:
+                    chunks = waiting.popleft().result()
+                except BrokenProcessPool:
+                    raise HarmonyError("a feed worker process died (out of memory?); no feed was written") from None
                 for job in todo:
                     waiting.append(pool.submit(_run, job))
                     break

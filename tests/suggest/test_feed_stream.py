@@ -206,3 +206,19 @@ def test_local_engine_in_two_processes_writes_the_same_bytes(tmp_path, store_ite
     assert one.read_bytes() == two.read_bytes() == blocked.read_bytes()
     assert csv_one.read_bytes() == csv_two.read_bytes()
     assert len(csv_one.read_bytes().splitlines()) == rows + 1
+
+
+def test_a_dying_worker_is_one_error_and_no_file(tmp_path, store_items, rules, monkeypatch):
+    # A worker process that dies (as the kernel's out-of-memory killer would end it) must give
+    # one clear error and leave no half-written feed behind.
+    import os
+
+    from harmony.errors import HarmonyError
+    from harmony.suggest import feed_pool
+
+    db = make_store(tmp_path, store_items)
+    monkeypatch.setattr(feed_pool, "_one", lambda plan, rules, job: os._exit(9))
+    out = tmp_path / "feed.jsonl"
+    with Store(db) as store, pytest.raises(HarmonyError, match="worker process died"):
+        write_feed_stream(store, rules, out, top=3, warn=lambda m: None, workers=2)
+    assert not out.exists()
