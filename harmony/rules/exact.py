@@ -187,13 +187,27 @@ def exact_raw_candidates(stack_a, stack_b, candidates, kernel, workers=1, chunk=
     pairwise = pairwise_form(kernel)
     outer = outer_form(kernel)
 
+    rules = getattr(pairwise, "__self__", None)
+    if pairwise is not None and callable(getattr(rules, "pairwise_sides", None)):
+        # Per-colour quantities once per palette colour, gathered per pair (same bits as pairwise).
+        side_a, side_b = rules.side(stack_a.jab), rules.side(stack_b.jab)
+
+        def kernel_block(r0, r1, cand):
+            sa = side_a.take((slice(r0, r1), None, slice(None), None))  # (p, 1, k_a, 1)
+            sb = side_b.take(cand).take((slice(None), slice(None), None))  # (p, c, 1, k_b)
+            return rules.pairwise_sides(sa, sb)
+    else:
+
+        def kernel_block(r0, r1, cand):
+            ja = stack_a.jab[r0:r1, None, :, None, :]  # (p, 1, k_a, 1, 3)
+            jb = stack_b.jab[cand][:, :, None, :, :]  # (p, c, 1, k_b, 3)
+            return pairwise(ja, jb)
+
     def run_batched(lo, hi):
         for r0 in range(lo, hi, rows):
             r1 = min(hi, r0 + rows)
             cand = candidates[r0:r1]
-            ja = stack_a.jab[r0:r1, None, :, None, :]  # (p, 1, k_a, 1, 3)
-            jb = stack_b.jab[cand][:, :, None, :, :]  # (p, c, 1, k_b, 3)
-            kmat = np.asarray(pairwise(ja, jb), dtype=float)  # (p, c, k_a, k_b)
+            kmat = np.asarray(kernel_block(r0, r1, cand), dtype=float)  # (p, c, k_a, k_b)
             out[r0:r1] = np.einsum("pa,pcab,pcb->pc", stack_a.weights[r0:r1], kmat, stack_b.weights[cand])
 
     def run_looped(lo, hi):

@@ -57,6 +57,18 @@ class _Side:
         self.chroma = 1.0 - self.neutral
         self._lab = None
 
+    def take(self, key):
+        """These quantities indexed by ``key`` (on the leading axes only), without recomputing them.
+
+        Every quantity is computed colour by colour, so ``side.take(key)`` holds the same bits as
+        ``_Side(side.jab[key], ...)``; the re-rank gathers per-candidate colours this way.
+        """
+        out = object.__new__(_Side)
+        for name in ("jab", "j", "cos_h", "sin_h", "chroma", "neutral"):
+            setattr(out, name, getattr(self, name)[key])
+        out._lab = None if self._lab is None else self._lab[key]
+        return out
+
     @property
     def lab(self):
         if self._lab is None:

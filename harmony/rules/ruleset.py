@@ -19,6 +19,7 @@ from typing import NamedTuple
 
 import numpy as np
 
+from harmony.colour import as_triplets
 from harmony.rules.kinds import _as_colours, _broadcast_pair, _Geometry, _Side
 
 try:  # one spelling of category names across the project
@@ -132,6 +133,21 @@ class PairRules:
         """
         jab_a, jab_b, shape = _broadcast_pair(jab_a, jab_b)
         return self._evaluate(self._geometry(jab_a, jab_b), shape)
+
+    def side(self, jab):
+        """Per-colour quantities of ``jab`` (shape (..., 3)) for :meth:`pairwise_sides`.
+
+        Compute them once per palette colour, then gather them per pair with ``side.take(key)``.
+        """
+        return _Side(as_triplets(jab, "jab"), self.neutral_threshold, self.neutral_fade)
+
+    def pairwise_sides(self, side_a, side_b):
+        """:meth:`pairwise` on colours whose per-colour quantities come from :meth:`side`.
+
+        Gives the same bits as ``pairwise(side_a.jab, side_b.jab)``.
+        """
+        shape = np.broadcast_shapes(side_a.j.shape, side_b.j.shape)
+        return self._evaluate(_Geometry(side_a, side_b), shape)
 
     def kernel(self, jab_a, jab_b):
         """Signed harmony of every colour pair, shape (n, m): ``pairwise(a[:, None], b[None, :])``.
