@@ -35,6 +35,7 @@ or bicubic on each side), so for a smooth kernel its error shrinks with the squa
 the cube (cubic) of the bin spacing.
 """
 
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
@@ -303,13 +304,25 @@ class _Prepared:
     bound: float  # largest change of a screened score from dropping singular values
 
 
-def _prepare(palettes_a, palettes_b, kernel, grid, rank_tol, block):
+def _both(f, args_a, args_b, workers):
+    """``(f(*args_a), f(*args_b))``, the two calls in two threads (one BLAS thread each) when
+    ``workers > 1``; each call gives the same bits either way."""
+    if workers <= 1:
+        return f(*args_a), f(*args_b)
+    with threadpool_limits(limits=1), ThreadPoolExecutor(max_workers=2) as pool:
+        fa, fb = pool.submit(f, *args_a), pool.submit(f, *args_b)
+        return fa.result(), fb.result()
+
+
+def _binned(stack, grid):
+    idx, w = _weighted_shares(stack, grid)
+    return idx, w, bin_centres(grid, _bin_colourfulness(stack, idx, w, grid))
+
+
+def _prepare(palettes_a, palettes_b, kernel, grid, rank_tol, block, workers=1):
     stack_a = PaletteStack.from_palettes(palettes_a)
     stack_b = PaletteStack.from_palettes(palettes_b)
-    idx_a, w_a = _weighted_shares(stack_a, grid)
-    idx_b, w_b = _weighted_shares(stack_b, grid)
-    centres_a = bin_centres(grid, _bin_colourfulness(stack_a, idx_a, w_a, grid))
-    centres_b = bin_centres(grid, _bin_colourfulness(stack_b, idx_b, w_b, grid))
+    (idx_a, w_a, centres_a), (idx_b, w_b, centres_b) = _both(_binned, (stack_a, grid), (stack_b, grid), workers)
     # Only bins that some palette touches matter; the factorisation is done on those alone.
     used_a = np.flatnonzero(np.bincount(idx_a[w_a != 0], minlength=grid.size))
     used_b = np.flatnonzero(np.bincount(idx_b[w_b != 0], minlength=grid.size))
@@ -322,8 +335,8 @@ def _prepare(palettes_a, palettes_b, kernel, grid, rank_tol, block):
     left[used_a] = factor_a
     right = np.zeros((grid.size, rank))
     right[used_b] = factor_b
-    q, norm_a = _project(idx_a, w_a, left, grid.size, block)
-    hb, norm_b = _project(idx_b, w_b, right, grid.size, block)
+    (q, norm_a), (hb, norm_b) = _both(_project, (idx_a, w_a, left, grid.size, block),
+                                      (idx_b, w_b, right, grid.size, block), workers)
     hb = np.ascontiguousarray(hb.T)
     bound = residual * norm_a * norm_b
     return _Prepared(stack_a, stack_b, q, hb, rank, bound)
@@ -502,6 +515,29 @@ def top_k_blocked(q, hb, k, block=2048, sample=SAMPLE_COLUMNS):
     return out
 
 
+def _select_and_rerank_threads(q, side_a, prep, c, kernel, block, workers):
+    """Candidate selection and exact re-rank of contiguous row ranges of side a, one thread each.
+
+    Every row is selected and re-scored exactly as in one thread (rows are independent), so the
+    result has the same bits. The matrix products run on one BLAS thread each inside the
+    threads, so the workers do not oversubscribe the cores.
+    """
+    n_a = len(side_a)
+    cand = np.empty((n_a, min(c, prep.hb.shape[1])), dtype=np.int64)
+    raw = np.empty(cand.shape)
+
+    def run(lo, hi):
+        cand[lo:hi] = top_k_blocked(q[lo:hi], prep.hb, c, block=block)
+        part = PaletteStack(side_a.jab[lo:hi], side_a.weights[lo:hi])
+        raw[lo:hi] = exact_raw_candidates(part, prep.stack_b, cand[lo:hi], kernel)
+
+    bounds = np.linspace(0, n_a, workers + 1).astype(int)
+    with threadpool_limits(limits=1), ThreadPoolExecutor(max_workers=workers) as pool:
+        for f in [pool.submit(run, lo, hi) for lo, hi in zip(bounds[:-1], bounds[1:])]:
+            f.result()
+    return cand, raw
+
+
 def screen_top_k(palettes_a, palettes_b, kernel, k=10, *, candidates=None, grid=BinGrid(),
                  block=2048, exact=True, rank_tol=1e-6, workers=1, exact_below=0, rows=None):
     """Top-k partners in side b of every product of side a, by the screen and an exact re-rank.
@@ -530,7 +566,9 @@ def screen_top_k(palettes_a, palettes_b, kernel, k=10, *, candidates=None, grid=
     rank_tol : float
         Singular values of K below ``rank_tol`` times the largest are dropped (see Notes).
     workers : int
-        Threads for the exact re-rank.
+        Threads for the candidate selection and the exact re-rank (each thread takes a
+        contiguous range of side a's products and one BLAS thread); the result does not depend
+        on it.
     exact_below : int
         When ``exact`` and ``n_a * n_b`` is at most this, skip the screen and score every pair
         exactly (the result then equals :func:`exact_top_k`, ``candidates = n_b``, ``rank = 0``).
@@ -572,16 +610,20 @@ def screen_top_k(palettes_a, palettes_b, kernel, k=10, *, candidates=None, grid=
             idx, raw = _order(np.ascontiguousarray(every), raw, min(k, n_b))
             return ScreenResult(indices=idx, raw=raw, exact=True, candidates=n_b)
         palettes_a, palettes_b = stack_a, stack_b
-    prep = _prepare(palettes_a, palettes_b, kernel, grid, rank_tol, max(int(block), 1))
+    prep = _prepare(palettes_a, palettes_b, kernel, grid, rank_tol, max(int(block), 1), int(workers))
     n_b = len(prep.stack_b)
     k_eff = min(k, n_b)
     q, side_a = prep.q, prep.stack_a
     if rows is not None:  # a block of side a: the screen above saw every product, as in a whole run
         q, side_a = q[rows], PaletteStack(side_a.jab[rows], side_a.weights[rows])
-    cand = top_k_blocked(q, prep.hb, c if exact else k, block=block)
-    if exact:
-        raw = exact_raw_candidates(side_a, prep.stack_b, cand, kernel, workers=workers)
+    workers = max(1, min(int(workers), len(side_a)))
+    if exact and workers > 1:
+        cand, raw = _select_and_rerank_threads(q, side_a, prep, c, kernel, block, workers)
     else:
+        cand = top_k_blocked(q, prep.hb, c if exact else k, block=block)
+    if exact and workers == 1:
+        raw = exact_raw_candidates(side_a, prep.stack_b, cand, kernel)
+    elif not exact:
         raw = np.empty(cand.shape)
         for r0 in range(0, cand.shape[0], block):
             rows = slice(r0, r0 + block)
