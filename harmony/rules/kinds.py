@@ -199,7 +199,10 @@ class HueRule(_Symmetric):
             else:
                 x = np.asarray(cos_d * (cos_c * kappa) + sin_d * (sin_c * kappa) - kappa)
             np.exp(x, out=x)
-            total = x if total is None else total + x
+            if total is None:
+                total = x
+            else:
+                total += x
         return total
 
     def term(self, geometry):

@@ -96,7 +96,10 @@ class PairRules:
             if rule.kind == "hue":
                 part = rule.bumps(*g.hue_difference)
                 part *= w
-                hue = part if hue is None else hue + part
+                if hue is None:
+                    hue = part
+                else:
+                    hue += part
             else:
                 total += w * rule.term(g)
         if hue is not None:

@@ -329,7 +329,12 @@ def _prepare(palettes_a, palettes_b, kernel, grid, rank_tol, block, workers=1):
     if used_a.size == 0 or used_b.size == 0:
         used_a = used_a if used_a.size else np.array([0])
         used_b = used_b if used_b.size else np.array([0])
-    k = bin_kernel(kernel, centres_a[used_a], centres_b[used_b])
+    ca, cb = centres_a[used_a], centres_b[used_b]
+    if workers > 1 and len(ca) > 1:  # row halves: each entry is computed on its own, same bits
+        half = len(ca) // 2
+        k = np.concatenate(_both(bin_kernel, (kernel, ca[:half], cb), (kernel, ca[half:], cb), workers))
+    else:
+        k = bin_kernel(kernel, ca, cb)
     factor_a, factor_b, rank, residual = low_rank(k, rank_tol)
     left = np.zeros((grid.size, rank))
     left[used_a] = factor_a
