@@ -5,7 +5,7 @@ import json
 import numpy as np
 import pytest
 from click.testing import CliRunner
-from test_feed import make_store, random_palettes
+from test_cli_feed import db  # noqa: F401  (the same small store of sofas, rugs and lamps)
 
 from harmony.cli import main
 
@@ -14,14 +14,6 @@ def run(*args):
     return CliRunner().invoke(main, [str(a) for a in args])
 
 
-@pytest.fixture()
-def db(tmp_path):
-    rng = np.random.default_rng(31)
-    pals = random_palettes(12, rng)
-    items = [(f"S{i}", "sofa", None, pals[i]) for i in range(4)]
-    items += [(f"R{i}", "rug", 0 if i == 1 else 2, pals[4 + i]) for i in range(5)]
-    items += [(f"L{i}", "floor lamp", None, pals[9 + i]) for i in range(3)]
-    return make_store(tmp_path, items)
 
 
 def test_feed_blend_and_similar_rows(db, tmp_path):
