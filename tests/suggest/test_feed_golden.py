@@ -4,9 +4,15 @@
 below, written by the per-row sentence path this project used before the feed's reasons were
 vectorised (silver: this project's own output, a regression guard only). The store's palettes
 are random sRGB colours from a seeded generator: test inputs, not check values.
+
+The stored file was written on another machine. numpy picks its exp and other loops by the
+processor's instruction set, so a score may differ there in its last bits (seen: 2e-15 on an
+AVX2-only processor against the machine that wrote the file); scores are compared to 1e-12 and
+every other field, the order of the rows and the partners included, byte for byte.
 """
 
 import gzip
+import json
 from pathlib import Path
 
 import numpy as np
@@ -48,4 +54,11 @@ def test_feed_bytes_equal_the_stored_feed(tmp_path, monkeypatch, screened):
     got = write_golden_store_feed(tmp_path)
     want = gzip.decompress(GOLDEN.read_bytes())
     assert len(want) > 100_000
-    assert got == want
+    got_rows, want_rows = got.decode().splitlines(), want.decode().splitlines()
+    assert len(got_rows) == len(want_rows)
+    for n, (g, w) in enumerate(zip(got_rows, want_rows), start=1):
+        g, w = json.loads(g), json.loads(w)
+        assert g["score"] == pytest.approx(w["score"], abs=1e-12, rel=0), f"line {n}"
+        g["score"] = w["score"]
+        assert g == w, f"line {n}"
+        assert list(g) == list(w), f"line {n}: field order"
