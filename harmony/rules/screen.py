@@ -512,11 +512,48 @@ def top_k_blocked(q, hb, k, block=2048, sample=SAMPLE_COLUMNS):
             r = np.concatenate([r[keep], rr])
             c = np.concatenate([c[keep], np.tile(np.arange(n_b), short.size)])
             v = np.concatenate([v[keep], s.ravel()])
-        order = np.lexsort((c, -v, r))
-        r, c = r[order], c[order]
-        start = np.searchsorted(r, np.arange(rows_here))
-        # Every row now has at least k hits, so its first k after sorting are its top-k.
-        out[r0 : r0 + rows_here] = c[start[:, None] + np.arange(k)]
+        out[r0 : r0 + rows_here] = _best_of_rows(r, c, v, rows_here, k)
+    return out
+
+
+def _best_of_rows(r, c, v, n_rows, k):
+    """The k best hits of each row, best first, ties to the lower column.
+
+    ``r, c, v`` are the hits' rows, columns and values, each row's hits in ascending column
+    order and every row with at least k of them. Equal to ``np.lexsort((c, -v, r))`` cut to k per
+    row, at a fraction of its cost: a stable radix sort by row, one partition per row of the
+    rows padded to a common width, and a sort of the k winners only.
+    """
+    counts = np.bincount(r, minlength=n_rows)
+    key = r.astype(np.uint16) if n_rows <= 1 << 16 else r  # 16-bit keys take numpy's radix sort
+    order = np.argsort(key, kind="stable")
+    c, v = c[order], v[order]
+    start = np.cumsum(counts) - counts
+    out = np.empty((n_rows, k), dtype=np.int64)
+    # Rows with many more hits than the rest (ties over a whole row) would make the padding huge.
+    wide = counts > max(4 * -(-len(v) // n_rows), k)
+    for i in np.flatnonzero(wide):
+        cs, vs = c[start[i] : start[i] + counts[i]], v[start[i] : start[i] + counts[i]]
+        out[i] = cs[np.lexsort((cs, -vs))[:k]]
+    narrow = np.flatnonzero(~wide)
+    if narrow.size == 0:
+        return out
+    n = counts[narrow]
+    width = int(n.max())
+    hit = np.repeat(start[narrow], n) + (np.arange(int(n.sum())) - np.repeat(np.cumsum(n) - n, n))
+    slot = np.arange(width) < n[:, None]  # row-major, so filling by it keeps each row's order
+    vals = np.full((narrow.size, width), -np.inf, dtype=v.dtype)
+    cols = np.zeros((narrow.size, width), dtype=np.int64)
+    vals[slot] = v[hit]
+    cols[slot] = c[hit]
+    kth = np.partition(vals, width - k, axis=1)[:, width - k : width - k + 1]
+    above = vals > kth
+    tied = vals == kth
+    # Of the entries equal to the k-th value, the lowest columns (the leftmost) fill the row.
+    take = above | (tied & (np.cumsum(tied, axis=1) <= k - above.sum(axis=1, keepdims=True)))
+    best_v = vals[take].reshape(-1, k)
+    best_c = cols[take].reshape(-1, k)
+    out[narrow] = np.take_along_axis(best_c, np.argsort(-best_v, axis=1, kind="stable"), axis=1)
     return out
 
 
