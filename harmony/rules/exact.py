@@ -188,26 +188,32 @@ def exact_raw_candidates(stack_a, stack_b, candidates, kernel, workers=1, chunk=
     outer = outer_form(kernel)
 
     rules = getattr(pairwise, "__self__", None)
+    # Kernel blocks are laid out (p, k_a, c, k_b): each side-a colour meets a long contiguous run
+    # of candidate colours, so numpy's loops run long (short innermost loops of k_b cost a third
+    # more); the values, and the sum below, are those of any other layout.
     if pairwise is not None and callable(getattr(rules, "pairwise_sides", None)):
         # Per-colour quantities once per palette colour, gathered per pair (same bits as pairwise).
-        side_a, side_b = rules.side(stack_a.jab), rules.side(stack_b.jab)
+        side_a, side_b = rules.side(stack_a.jab), rules.side(stack_b.jab.reshape(-1, 3))
+        colour = np.arange(kb)
 
         def kernel_block(r0, r1, cand):
-            sa = side_a.take((slice(r0, r1), None, slice(None), None))  # (p, 1, k_a, 1)
-            sb = side_b.take(cand).take((slice(None), slice(None), None))  # (p, c, 1, k_b)
-            return rules.pairwise_sides(sa, sb)
+            sa = side_a.take((slice(r0, r1), slice(None), None))  # (p, k_a, 1)
+            sb = side_b.take((cand[:, :, None] * kb + colour).reshape(r1 - r0, 1, -1))  # (p, 1, c k_b)
+            return rules.pairwise_sides(sa, sb).reshape(r1 - r0, -1, cand.shape[1], kb)
     else:
 
         def kernel_block(r0, r1, cand):
-            ja = stack_a.jab[r0:r1, None, :, None, :]  # (p, 1, k_a, 1, 3)
-            jb = stack_b.jab[cand][:, :, None, :, :]  # (p, c, 1, k_b, 3)
+            ja = stack_a.jab[r0:r1, :, None, None, :]  # (p, k_a, 1, 1, 3)
+            jb = stack_b.jab[cand][:, None, :, :, :]  # (p, 1, c, k_b, 3)
             return pairwise(ja, jb)
 
     def run_batched(lo, hi):
         for r0 in range(lo, hi, rows):
             r1 = min(hi, r0 + rows)
             cand = candidates[r0:r1]
-            kmat = np.asarray(kernel_block(r0, r1, cand), dtype=float)  # (p, c, k_a, k_b)
+            kmat = np.asarray(kernel_block(r0, r1, cand), dtype=float)  # (p, k_a, c, k_b)
+            # einsum's order of summation follows the memory layout: (p, c, k_a, k_b) as always.
+            kmat = np.ascontiguousarray(kmat.transpose(0, 2, 1, 3))
             out[r0:r1] = np.einsum("pa,pcab,pcb->pc", stack_a.weights[r0:r1], kmat, stack_b.weights[cand])
 
     def run_looped(lo, hi):

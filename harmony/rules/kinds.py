@@ -43,10 +43,10 @@ class _Side:
     two sides of a kernel call combine by numpy broadcasting.
     """
 
-    __slots__ = ("jab", "j", "cos_h", "sin_h", "chroma", "neutral", "_lab")
+    __slots__ = ("_jab", "_key", "j", "cos_h", "sin_h", "chroma", "neutral", "_lab")
 
     def __init__(self, jab, threshold, fade):
-        self.jab = jab
+        self._jab, self._key = jab, None
         self.j = jab[..., 0]
         m = np.hypot(jab[..., 1], jab[..., 2])
         safe = np.where(m > 0.0, m, 1.0)
@@ -61,13 +61,21 @@ class _Side:
         """These quantities indexed by ``key`` (on the leading axes only), without recomputing them.
 
         Every quantity is computed colour by colour, so ``side.take(key)`` holds the same bits as
-        ``_Side(side.jab[key], ...)``; the re-rank gathers per-candidate colours this way.
+        ``_Side(side.jab[key], ...)``; the re-rank gathers per-candidate colours this way. The
+        colours themselves are gathered only if a rule asks for them (:attr:`jab`, :attr:`lab`).
         """
         out = object.__new__(_Side)
-        for name in ("jab", "j", "cos_h", "sin_h", "chroma", "neutral"):
+        for name in ("j", "cos_h", "sin_h", "chroma", "neutral"):
             setattr(out, name, getattr(self, name)[key])
+        out._jab, out._key = self.jab, key
         out._lab = None if self._lab is None else self._lab[key]
         return out
+
+    @property
+    def jab(self):
+        if self._key is not None:
+            self._jab, self._key = self._jab[self._key], None
+        return self._jab
 
     @property
     def lab(self):
@@ -87,12 +95,21 @@ class _Geometry:
     chromaticity ``1 - neutrality``).
     """
 
-    __slots__ = ("a", "b", "_hue", "_chroma")
+    __slots__ = ("a", "b", "_hue", "_chroma", "_lightness")
 
     def __init__(self, a, b):
         self.a, self.b = a, b
         self._hue = None
         self._chroma = None
+        self._lightness = None
+
+    @property
+    def lightness_difference(self):
+        """``J'_b - J'_a`` and its magnitude, shared by the lightness rules."""
+        if self._lightness is None:
+            d = self.b.j - self.a.j
+            self._lightness = (d, np.abs(d))
+        return self._lightness
 
     @property
     def hue_difference(self):
@@ -194,10 +211,11 @@ class HueRule(_Symmetric):
             rc = math.radians(c)
             cos_c, sin_c = math.cos(rc), math.sin(rc)
             # cos(d - c) - 1; the sine term is skipped at c = 0 and c = 180 (sin c = 0 there).
-            if c in (0.0, 180.0):
-                x = np.asarray(cos_d * (cos_c * kappa) - kappa)
-            else:
-                x = np.asarray(cos_d * (cos_c * kappa) + sin_d * (sin_c * kappa) - kappa)
+            # In place where numpy allows (same operations in the same order, fewer temporaries).
+            x = np.asarray(cos_d * (cos_c * kappa))
+            if c not in (0.0, 180.0):
+                x = np.add(x, sin_d * (sin_c * kappa), out=x)
+            x = np.subtract(x, kappa, out=x)
             np.exp(x, out=x)
             if total is None:
                 total = x
@@ -278,9 +296,9 @@ class LightnessRule:
     kind = "lightness"
 
     def term(self, geometry):
-        d = geometry.b.j - geometry.a.j
+        d, size = geometry.lightness_difference
         if self.direction == "either":
-            x = np.abs(d)
+            x = size
         elif self.direction == "lighter":
             x = d
         else:
