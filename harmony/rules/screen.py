@@ -300,7 +300,7 @@ def _project(idx, w, factor, size, block):
     for r0 in range(0, n, block):
         hist = _dense(idx[r0 : r0 + block], w[r0 : r0 + block], size)
         out[r0 : r0 + block] = hist @ factor
-        norm = max(norm, float(np.sqrt((hist * hist).sum(axis=1)).max()))
+        norm = max(norm, float(np.sqrt(np.einsum("ij,ij->i", hist, hist)).max()))  # no temporary
     return out, norm
 
 
