@@ -53,7 +53,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from harmony.errors import EventsError, HarmonyError
-from harmony.evaluation.metrics import CUTOFF, auc, hit_at_k, ndcg_at_k
+from harmony.evaluation.metrics import CUTOFF, metric_table
 
 __all__ = ["MethodResult", "Evaluation", "evaluate"]
 
@@ -240,18 +240,28 @@ def evaluate(queries, methods, products, rng, resamples=1000, level=0.95, unknow
     draws = rng.integers(0, n_products, size=(int(resamples), n_products))
     alpha = (1.0 - float(level)) / 2.0
 
-    work = [(m, q) for m in methods for q in queries.queries]
+    bar = None
     if progress:
         from tqdm import tqdm
 
-        work = tqdm(work, desc="evaluate", unit="query", leave=False)
-    values = {m.name: np.empty((len(queries.queries), 3)) for m in methods}
-    row_of = {id(q): i for i, q in enumerate(queries.queries)}
-    for method, q in work:
-        cands = [by_id[c] for c in q.candidates]
-        s = np.asarray(method(by_id[q.product], cands), dtype=float)
-        labels = q.gains > 0
-        values[method.name][row_of[id(q)]] = (auc(s, labels), ndcg_at_k(s, q.gains, CUTOFF), hit_at_k(s, labels, CUTOFF))
+        bar = tqdm(total=len(methods) * len(queries.queries), desc="evaluate", unit="query", leave=False)
+    gains = np.concatenate([q.gains for q in queries.queries])
+    sizes = [len(q.candidates) for q in queries.queries]
+    asked = [(by_id[q.product], [by_id[c] for c in q.candidates]) for q in queries.queries]
+    values = {}
+    for method in methods:
+        scores = []
+        for (product, cands), n in zip(asked, sizes):
+            s = np.asarray(method(product, cands), dtype=float)
+            if s.shape != (n,):
+                raise ValueError(f"{method.name}: {n} candidates need {n} scores, got shape {s.shape}")
+            scores.append(s)
+            if bar is not None:
+                bar.update(1)
+        # Every query's metrics at once: the same numbers as auc, ndcg_at_k and hit_at_k per query.
+        values[method.name] = metric_table(np.concatenate(scores), gains, sizes, CUTOFF)
+    if bar is not None:
+        bar.close()
 
     results = []
     for method in methods:

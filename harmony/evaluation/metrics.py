@@ -1,12 +1,161 @@
-"""Metrics of one ranked list: AUC, NDCG@k and hit@k, with ties handled exactly (see :mod:`harmony.evaluation`)."""
+"""Metrics of ranked lists: AUC, NDCG@k and hit@k, with ties handled exactly (see :mod:`harmony.evaluation`).
+
+:func:`metric_table` scores many lists at once (the evaluation's thousands of queries in a few
+array operations); :func:`auc`, :func:`ndcg_at_k` and :func:`hit_at_k` are the same code on one list.
+"""
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["CUTOFF", "auc", "ndcg_at_k", "hit_at_k"]
+__all__ = ["CUTOFF", "auc", "ndcg_at_k", "hit_at_k", "metric_table", "auc_table"]
 
 CUTOFF = 10
+
+# --------------------------------------------------------------------------------------------
+# Many lists, sorted once
+# --------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class _Ties:
+    """Lists laid end to end, each sorted by descending score (ties keep their input order), and
+    the runs of equal scores (*tie groups*) in that order."""
+
+    sizes: np.ndarray  # items per list
+    owner: np.ndarray  # list of each item (the same before and after sorting: lists stay in place)
+    order: np.ndarray  # the sorting permutation of all items
+    starts: np.ndarray  # index of each group's first item, in sorted order
+    counts: np.ndarray  # items per group
+    group_list: np.ndarray  # list of each group
+    local_start: np.ndarray  # position of each group's first item within its list
+    first_group: np.ndarray  # index of each list's first group (len(sizes) + 1 entries)
+
+    @property
+    def local_end(self):
+        return self.local_start + self.counts
+
+
+def _ties(s, sizes):
+    sizes = np.asarray(sizes, dtype=np.int64)
+    n_lists = sizes.size
+    owner = np.repeat(np.arange(n_lists), sizes)
+    order = np.lexsort((-s, owner))  # stable: as argsort(-s, kind="stable") list by list
+    sorted_s = s[order]
+    new = np.ones(s.size, dtype=bool)
+    new[1:] = (sorted_s[1:] != sorted_s[:-1]) | (owner[1:] != owner[:-1])
+    starts = np.flatnonzero(new)
+    counts = np.diff(np.append(starts, s.size))
+    group_list = owner[starts]
+    list_start = np.cumsum(sizes) - sizes
+    first_group = np.searchsorted(group_list, np.arange(n_lists + 1))
+    return _Ties(sizes, owner, order, starts, counts, group_list, starts - list_start[group_list], first_group)
+
+
+def _aucs(t, pos):
+    """Mann-Whitney U over mid-ranks / (n_pos * n_neg) per list; ``pos`` in input order."""
+    pos = pos[t.order]
+    n_lists = t.sizes.size
+    n_pos = np.bincount(t.owner[pos], minlength=n_lists)
+    n_neg = t.sizes - n_pos
+    # A group at descending positions [a, b) of a list of n holds ascending ranks n - b + 1 .. n - a:
+    # its mid-rank (the "average" rank of scipy.stats.rankdata) is a half-integer, so the sums are exact.
+    mid = (2 * t.sizes[t.group_list] - 2 * t.local_start - t.counts + 1) / 2.0
+    rank = np.repeat(mid, t.counts)
+    u = np.bincount(t.owner[pos], weights=rank[pos], minlength=n_lists) - n_pos * (n_pos + 1) / 2.0
+    out = np.full(n_lists, math.nan)
+    ok = (n_pos > 0) & (n_neg > 0)
+    out[ok] = u[ok] / (n_pos[ok] * n_neg[ok])
+    return out
+
+
+def _discounts(sizes, k):
+    """1 / log2(position + 2) on each list's first min(k, n) positions, 0 after (laid end to end)."""
+    local = np.arange(int(sizes.sum())) - np.repeat(np.cumsum(sizes) - sizes, sizes)
+    top = np.repeat(np.minimum(sizes, k), sizes)
+    out = np.zeros(local.size)
+    for n_top in np.unique(top).tolist():
+        # Each cutoff's discounts from the very expression a single list uses, to the last bit.
+        at = (top == n_top) & (local < n_top)
+        out[at] = (1.0 / np.log2(np.arange(2, n_top + 2)))[local[at]]
+    return out
+
+
+def _ndcgs(t, g, k):
+    """DCG@k with tied gains averaged (McSherry & Najork 2008) / the ideal DCG@k, per list."""
+    discount = _discounts(t.sizes, k)
+    bounds = np.append(0, np.cumsum(t.sizes)).tolist()
+    # The ideal order of each list: its gains sorted, best first.
+    best = g[np.lexsort((g, t.owner))]
+    ideal = [best[a:b][::-1] @ discount[a:b] if b > a else 0.0 for a, b in zip(bounds[:-1], bounds[1:])]
+    group_gain = np.add.reduceat(g[t.order], t.starts) / t.counts if t.starts.size else np.zeros(0)
+    group_discount = np.add.reduceat(discount, t.starts) if t.starts.size else np.zeros(0)
+    groups = t.first_group.tolist()
+    out = np.full(t.sizes.size, math.nan)
+    for i, (a, b) in enumerate(zip(groups[:-1], groups[1:])):
+        if ideal[i] > 0:
+            out[i] = float(group_gain[a:b] @ group_discount[a:b] / ideal[i])
+    return out
+
+
+def _hits(t, pos, k):
+    """Chance of a positive in the first k under random orders of ties (hypergeometric), per list."""
+    n_lists = t.sizes.size
+    group_pos = np.add.reduceat(pos[t.order].astype(np.int64), t.starts) if t.starts.size else np.zeros(0, np.int64)
+    inside = t.local_end <= k
+    out = (np.bincount(t.group_list[inside & (group_pos > 0)], minlength=n_lists) > 0).astype(float)
+    # The tie straddling the cutoff, in lists with no positive above it: `slots` of its `size`
+    # candidates make the cut, and P(hit) = 1 - P(none of them is a positive).
+    straddle = (t.local_start < k) & ~inside & (out[t.group_list] == 0.0)
+    for g in np.flatnonzero(straddle).tolist():
+        size, n_pos, slots = int(t.counts[g]), int(group_pos[g]), k - int(t.local_start[g])
+        out[t.group_list[g]] = 1.0 - math.comb(size - n_pos, slots) / math.comb(size, slots)
+    out[np.bincount(t.owner[pos], minlength=n_lists) == 0] = math.nan
+    return out
+
+
+def metric_table(scores, gains, sizes, k=CUTOFF):
+    """AUC, NDCG@k and hit@k of many ranked lists at once, each as :func:`auc`,
+    :func:`ndcg_at_k` and :func:`hit_at_k` give it (to the last bit).
+
+    Parameters
+    ----------
+    scores : array_like, shape (N,)
+        The lists' scores laid end to end, higher ranked earlier.
+    gains : array_like, shape (N,)
+        Graded relevance, >= 0; positives are the items with gain above 0.
+    sizes : array_like of int
+        Items per list, summing to N.
+    k : int
+        Rank cutoff of NDCG and hit.
+
+    Returns
+    -------
+    ndarray, shape (len(sizes), 3)
+        Per list: AUC, NDCG@k, hit@k (NaN where undefined, as for one list).
+    """
+    s, g, sizes = _as_lists(scores, gains, sizes, "gains")
+    _check_gains(g)
+    _check_cutoff(k)
+    t = _ties(s, sizes)
+    pos = g > 0
+    return np.stack([_aucs(t, pos), _ndcgs(t, g, k), _hits(t, pos, k)], axis=1)
+
+
+def auc_table(scores, labels, sizes):
+    """:func:`auc` of many lists at once (laid end to end as in :func:`metric_table`): shape (len(sizes),)."""
+    s, y, sizes = _as_lists(scores, labels, sizes, "labels")
+    return _aucs(_ties(s, sizes), y > 0)
+
+
+def _as_lists(scores, values, sizes, name):
+    s, v = _as_list(scores, values, name)
+    sizes = np.asarray(sizes, dtype=np.int64).reshape(-1)
+    if np.any(sizes < 0) or int(sizes.sum()) != s.size:
+        raise ValueError(f"sizes must be >= 0 and sum to the {s.size} scores, got {int(sizes.sum())}")
+    return s, v, sizes
+
 
 # --------------------------------------------------------------------------------------------
 # Metrics of one ranked list
@@ -21,6 +170,16 @@ def _as_list(scores, values, name):
     if not np.all(np.isfinite(s)):
         raise ValueError("scores must be finite")
     return s, v
+
+
+def _check_gains(g):
+    if np.any(g < 0):
+        raise ValueError("gains must be >= 0")
+
+
+def _check_cutoff(k):
+    if k < 1:
+        raise ValueError(f"k must be >= 1, got {k}")
 
 
 def auc(scores, labels):
@@ -43,35 +202,7 @@ def auc(scores, labels):
     The Mann-Whitney U statistic over mid-ranks divided by n_pos * n_neg (Hanley & McNeil 1982).
     """
     s, y = _as_list(scores, labels, "labels")
-    pos = y > 0
-    n_pos, n_neg = int(pos.sum()), int((~pos).sum())
-    if n_pos == 0 or n_neg == 0:
-        return math.nan
-    ranks = _mid_ranks(s)
-    u = ranks[pos].sum() - n_pos * (n_pos + 1) / 2.0
-    return float(u / (n_pos * n_neg))
-
-
-def _mid_ranks(s):
-    """Ranks 1..n in ascending order, ties sharing the mean of their ranks (the "average" method
-    of ``scipy.stats.rankdata``, without its per-call overhead: the evaluation calls it thousands
-    of times on short lists)."""
-    order = np.argsort(s, kind="stable")
-    sorted_s = s[order]
-    starts = np.flatnonzero(np.r_[True, sorted_s[1:] != sorted_s[:-1]])
-    ends = np.r_[starts[1:], s.size]
-    ranks = np.empty(s.size)
-    ranks[order] = np.repeat((starts + ends + 1) / 2.0, ends - starts)
-    return ranks
-
-
-def _tie_groups(s):
-    """Order by descending score, and the start index and size of each run of equal scores."""
-    order = np.argsort(-s, kind="stable")
-    sorted_s = s[order]
-    starts = np.flatnonzero(np.r_[True, sorted_s[1:] != sorted_s[:-1]])
-    sizes = np.diff(np.r_[starts, s.size])
-    return order, starts, sizes
+    return float(_aucs(_ties(s, [s.size]), y > 0)[0])
 
 
 def ndcg_at_k(scores, gains, k=CUTOFF):
@@ -105,21 +236,9 @@ def ndcg_at_k(scores, gains, k=CUTOFF):
     without any gain as 0, this returns NaN for it (such a query is never formed).
     """
     s, g = _as_list(scores, gains, "gains")
-    if np.any(g < 0):
-        raise ValueError("gains must be >= 0")
-    if k < 1:
-        raise ValueError(f"k must be >= 1, got {k}")
-    n = s.size
-    discount = np.zeros(n)
-    top = min(k, n)
-    discount[:top] = 1.0 / np.log2(np.arange(2, top + 2))
-    ideal = float(np.sort(g)[::-1] @ discount)
-    if ideal <= 0:
-        return math.nan
-    order, starts, sizes = _tie_groups(s)
-    group_gain = np.add.reduceat(g[order], starts) / sizes
-    group_discount = np.add.reduceat(discount, starts)
-    return float(group_gain @ group_discount / ideal)
+    _check_gains(g)
+    _check_cutoff(k)
+    return float(_ndcgs(_ties(s, [s.size]), g, k)[0])
 
 
 def hit_at_k(scores, labels, k=CUTOFF):
@@ -139,25 +258,5 @@ def hit_at_k(scores, labels, k=CUTOFF):
         straddles the cutoff is ordered at random (hypergeometric). NaN without positives.
     """
     s, y = _as_list(scores, labels, "labels")
-    if k < 1:
-        raise ValueError(f"k must be >= 1, got {k}")
-    pos = y > 0
-    if not pos.any():
-        return math.nan
-    order, starts, sizes = _tie_groups(s)
-    group_pos = np.add.reduceat(pos[order].astype(int), starts)
-    above = 0
-    for size, n_pos in zip(sizes.tolist(), group_pos.tolist()):
-        slots = k - above
-        if slots <= 0:
-            return 0.0
-        if slots >= size:
-            if n_pos > 0:
-                return 1.0
-            above += size
-            continue
-        # ``slots`` of the ``size`` tied candidates make the cut: P(none of them is a positive).
-        return 1.0 - math.comb(size - n_pos, slots) / math.comb(size, slots)
-    return 0.0
-
-
+    _check_cutoff(k)
+    return float(_hits(_ties(s, [s.size]), y > 0, k)[0])

@@ -35,7 +35,7 @@ import numpy as np
 from harmony.errors import HarmonyError
 from harmony.evaluation.core import evaluate
 from harmony.evaluation.methods import RulesMethod
-from harmony.evaluation.metrics import CUTOFF, auc, hit_at_k, ndcg_at_k
+from harmony.evaluation.metrics import CUTOFF, auc_table, metric_table
 from harmony.evaluation.queries import build_queries
 from harmony.rules import parse_rules
 
@@ -161,12 +161,12 @@ def query_terms(rules, queries, palettes, products, progress=False):
 
 
 def _mean_auc(weights, items, n_anchors):
-    sums, counts = np.zeros(n_anchors), np.zeros(n_anchors)
-    for it in items:
-        v = auc(weights @ it.terms, it.labels)
-        if not math.isnan(v):
-            sums[it.anchor] += v
-            counts[it.anchor] += 1
+    v = auc_table(np.concatenate([weights @ it.terms for it in items]), np.concatenate([it.labels for it in items]),
+                  [it.labels.size for it in items])
+    kept = ~np.isnan(v)
+    anchors = np.array([it.anchor for it in items], dtype=np.int64)[kept]
+    sums = np.bincount(anchors, weights=v[kept], minlength=n_anchors)  # in item order, as a loop adds
+    counts = np.bincount(anchors, minlength=n_anchors).astype(float)
     ok = counts > 0
     return float((sums[ok] / counts[ok]).mean()) if ok.any() else math.nan
 
@@ -222,16 +222,13 @@ def _per_anchor_metrics(rules, queries, palettes, products):
     """(anchor ids, (anchors, 3) array of AUC, NDCG@10, hit@10 per anchor)."""
     method = RulesMethod(rules, palettes)
     by_id = products if isinstance(products, dict) else {p.id: p for p in products}
-    values, owners = [], []
-    for q in queries.queries:
-        s = method(by_id[q.product], [by_id[c] for c in q.candidates])
-        labels = q.gains > 0
-        values.append((auc(s, labels), ndcg_at_k(s, q.gains, CUTOFF), hit_at_k(s, labels, CUTOFF)))
-        owners.append(q.product)
+    scores = [method(by_id[q.product], [by_id[c] for c in q.candidates]) for q in queries.queries]
+    v = metric_table(np.concatenate(scores), np.concatenate([q.gains for q in queries.queries]),
+                     [len(q.candidates) for q in queries.queries], CUTOFF)
+    owners = [q.product for q in queries.queries]
     ids = sorted(set(owners))
     pos = {a: i for i, a in enumerate(ids)}
     owner = np.array([pos[a] for a in owners])
-    v = np.array(values)
     out = np.stack([np.bincount(owner, weights=v[:, j], minlength=len(ids)) / np.bincount(owner, minlength=len(ids))
                     for j in range(3)], axis=1)
     return ids, out

@@ -27,6 +27,15 @@ def test_rank_normalise_matches_scipy_average_ranks():
     assert rank_normalise([5.0]).tolist() == [1.0]
 
 
+@pytest.mark.parametrize("seed", range(5))
+def test_rank_normalise_is_scipy_average_ranks_to_the_last_bit(seed):
+    # Reference: scipy.stats.rankdata(method="average"); average ranks are half-integers, so the
+    # numpy ranking must give the very same bits, with many ties.
+    s = np.random.default_rng(seed).integers(0, 6, 40).astype(float)
+    assert np.array_equal(rank_normalise(s), (rankdata(s) - 1.0) / 39.0)
+    assert np.array_equal(rank_normalise(-s), (rankdata(-s) - 1.0) / 39.0)
+
+
 def test_blend_group_worked_by_hand():
     # harmony ranks a > b > c: 1, 0.5, 0. The other system ranks b > c > x: 1, 0.5, 0; it did not
     # propose a (0). x is not in the store. W = 0.5:
