@@ -250,14 +250,13 @@ def evaluate(queries, methods, products, rng, resamples=1000, level=0.95, unknow
     asked = [(by_id[q.product], [by_id[c] for c in q.candidates]) for q in queries.queries]
     values = {}
     for method in methods:
-        scores = []
-        for (product, cands), n in zip(asked, sizes):
-            s = np.asarray(method(product, cands), dtype=float)
-            if s.shape != (n,):
-                raise ValueError(f"{method.name}: {n} candidates need {n} scores, got shape {s.shape}")
-            scores.append(s)
-            if bar is not None:
-                bar.update(1)
+        many = getattr(method, "score_queries", None)
+        scores = many(asked) if many is not None else [method(product, cands) for product, cands in asked]
+        for s, n in zip(scores, sizes):
+            if np.shape(s) != (n,):
+                raise ValueError(f"{method.name}: {n} candidates need {n} scores, got shape {np.shape(s)}")
+        if bar is not None:
+            bar.update(len(sizes))
         # Every query's metrics at once: the same numbers as auc, ndcg_at_k and hit_at_k per query.
         values[method.name] = metric_table(np.concatenate(scores), gains, sizes, CUTOFF)
     if bar is not None:

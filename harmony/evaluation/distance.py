@@ -1,15 +1,32 @@
 """The earth mover's distance between weighted palettes in CAM02-UCS (Rubner, Tomasi & Guibas 2000)."""
 
+from dataclasses import dataclass
+
 import numpy as np
 
-__all__ = ["emd_one_to_many", "emd"]
+__all__ = ["emd_one_to_many", "emd", "Signature", "signature", "emd_signatures"]
 
 # --------------------------------------------------------------------------------------------
 # Earth mover's distance between weighted palettes
 # --------------------------------------------------------------------------------------------
 
 
-def _signature(jab, weights, name):
+@dataclass(frozen=True, eq=False)
+class Signature:
+    """A palette as the EMD takes it (:func:`signature`): colours (k, 3), weights summing to 1,
+    and those weights divided by their own sum once more (``balanced``), which times the other
+    palette's total gives two sums equal to the last bit, as the solver checks."""
+
+    jab: np.ndarray
+    weights: np.ndarray
+    balanced: np.ndarray
+
+
+def signature(jab, weights, name="palette"):
+    """A palette checked and normalised for the EMD: a :class:`Signature`.
+
+    Raises ValueError naming ``name`` for bad shapes, negative weights or a zero total.
+    """
     jab = np.asarray(jab, dtype=float)
     w = np.asarray(weights, dtype=float)
     if jab.ndim != 2 or jab.shape[1] != 3 or w.shape != (jab.shape[0],) or jab.shape[0] == 0:
@@ -17,7 +34,8 @@ def _signature(jab, weights, name):
     total = w.sum()
     if np.any(w < 0) or not total > 0:
         raise ValueError(f"{name}: weights must be >= 0 with a positive sum")
-    return jab, w / total
+    w = w / total
+    return Signature(jab, w, w / w.sum())
 
 
 def emd_one_to_many(jab_a, weights_a, others, chunk=None):
@@ -54,19 +72,25 @@ def emd_one_to_many(jab_a, weights_a, others, chunk=None):
     N. Bonneel, M. van de Panne, S. Paris, W. Heidrich (2011). Displacement interpolation using
         Lagrangian mass transport. ACM Trans. Graphics 30(6):158.
     """
-    solve = _solver()
-    a, wa = _signature(jab_a, weights_a, "first palette")
-    sigs = [_signature(j, w, f"palette {i}") for i, (j, w) in enumerate(others)]
-    out = np.empty(len(sigs))
-    if not sigs:
+    first = signature(jab_a, weights_a, "first palette")
+    return emd_signatures(first, [signature(j, w, f"palette {i}") for i, (j, w) in enumerate(others)])
+
+
+def emd_signatures(first, others):
+    """:func:`emd_one_to_many` on palettes already made :class:`Signature` (no checks again)."""
+    out = np.empty(len(others))
+    if not others:
         return out
-    sizes = np.array([b.shape[0] for b, _ in sigs])
-    every = np.concatenate([b for b, _ in sigs])
+    solve = _solver()
+    a, wa = first.jab, first.weights
+    every = np.concatenate([s.jab for s in others])
     cost = np.sqrt(((a[:, None, :] - every[None, :, :]) ** 2).sum(axis=-1))
+    total = wa.sum()
     at = 0
-    for t, ((b, wb), m) in enumerate(zip(sigs, sizes.tolist())):
-        # Renormalised once more so both sums agree to the last bit, as the solver checks.
-        out[t] = solve(wa, wb / wb.sum() * wa.sum(), np.ascontiguousarray(cost[:, at : at + m]))
+    for t, s in enumerate(others):
+        m = s.jab.shape[0]
+        wb = s.balanced if total == 1.0 else s.balanced * total  # times 1.0 changes no bit
+        out[t] = solve(wa, wb, np.ascontiguousarray(cost[:, at : at + m]))
         at += m
     return out
 

@@ -5,7 +5,7 @@ from pathlib import Path
 
 import numpy as np
 
-from harmony.evaluation.distance import emd_one_to_many
+from harmony.evaluation.distance import emd_signatures, signature
 from harmony.shop.catalogue import normalise_category
 
 __all__ = ["RulesMethod", "SameColoursMethod", "ColourAttributeMethod", "RandomMethod", "standard_methods"]
@@ -28,15 +28,25 @@ class RulesMethod:
     """Rank by the raw pair score of a rules file, the query product's category first.
 
     The raw score ``w_a @ kernel(jab_a, jab_b) @ w_b`` ranks exactly as the score in [0, 1], which
-    is strictly increasing in it. Pairs the file does not score tie.
+    is strictly increasing in it. Pairs the file does not score tie. The scores of a query are
+    remembered (read-only), so methods built on this one (blends) ask for them again at no cost.
     """
 
     rules: object  # harmony.rules.RuleSet
     palettes: dict
     name: str = ""
     kind: str = field(default="rules", init=False)
+    _known: dict = field(default_factory=dict, init=False, repr=False)
 
     def __call__(self, product, candidates):
+        key = (product.id, tuple(c.id for c in candidates))
+        known = self._known.get(key)
+        if known is None:
+            known = self._known[key] = self._scores(product, candidates)
+            known.flags.writeable = False
+        return known
+
+    def _scores(self, product, candidates):
         cat_a, cat_b = product.category, candidates[0].category
         if not self.rules.pairs_with(cat_a, cat_b):
             return np.zeros(len(candidates))
@@ -53,21 +63,39 @@ class SameColoursMethod:
 
     The distance is symmetric, and a pair usually comes back with its roles swapped (when the
     partner is a query product too), so each unordered pair is solved once and remembered.
+    :meth:`score_queries` solves the new pairs of many queries together, with the query product
+    of the first query that asks for a pair as its first palette, as query by query calls would.
     """
 
     palettes: dict
     name: str = "same colours (EMD)"
     kind: str = field(default="baseline", init=False)
     _known: dict = field(default_factory=dict, init=False, repr=False)
+    _signatures: dict = field(default_factory=dict, init=False, repr=False)
 
     def __call__(self, product, candidates):
-        keys = [(min(product.id, c.id), max(product.id, c.id)) for c in candidates]
-        todo = [(key, c.id) for key, c in zip(keys, candidates) if key not in self._known]
-        if todo:
-            pa = self.palettes[product.id]
-            others = [(self.palettes[cid].jab, self.palettes[cid].weights) for _, cid in todo]
-            self._known.update(zip([key for key, _ in todo], emd_one_to_many(pa.jab, pa.weights, others).tolist()))
-        return -np.array([self._known[key] for key in keys])
+        return self.score_queries([(product, candidates)])[0]
+
+    def score_queries(self, asked):
+        """Scores of many ``(product, candidates)`` queries: a list of arrays."""
+        keys = [[(min(p.id, c.id), max(p.id, c.id)) for c in cands] for p, cands in asked]
+        todo, new = {}, set()  # first palette -> partners whose pair is new, in the order asked
+        for (product, cands), row in zip(asked, keys):
+            for key, c in zip(row, cands):
+                if key not in self._known and key not in new:
+                    new.add(key)
+                    todo.setdefault(product.id, []).append((key, c.id))
+        for first, pairs in todo.items():
+            distances = emd_signatures(self._signature(first), [self._signature(cid) for _, cid in pairs])
+            self._known.update(zip([key for key, _ in pairs], distances.tolist()))
+        return [-np.array([self._known[key] for key in row]) for row in keys]
+
+    def _signature(self, pid):
+        sig = self._signatures.get(pid)
+        if sig is None:
+            pal = self.palettes[pid]
+            sig = self._signatures[pid] = signature(pal.jab, pal.weights, pid)
+        return sig
 
 
 def _colour_words(product, attribute):

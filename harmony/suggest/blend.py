@@ -158,34 +158,42 @@ def read_candidates(path):
     return out
 
 
-def rank_normalise(scores):
+def rank_normalise(scores, sizes=None):
     """Scores to ``(n - rank) / (n - 1)`` in [0, 1], higher score = higher value, ties share their
     mean rank; a single score gives 1.
 
+    ``sizes``, when given, splits ``scores`` into lists laid end to end, each normalised on its own
+    (the same numbers as one call per list).
+
     >>> rank_normalise([0.2, 0.9, 0.5, 0.5]).tolist()
     [0.0, 1.0, 0.5, 0.5]
+    >>> rank_normalise([0.2, 0.9, 0.5, 0.5, 7.0], sizes=[4, 1]).tolist()
+    [0.0, 1.0, 0.5, 0.5, 1.0]
     """
     s = np.asarray(scores, dtype=float)
-    n = s.size
-    if n == 0:
-        return s
-    if n == 1:
-        return np.ones(1)
-    return (_mid_ranks(s) - 1.0) / (n - 1.0)
+    sizes = np.array([s.size] if sizes is None else sizes, dtype=np.int64)
+    if s.ndim != 1 or int(sizes.sum()) != s.size:
+        raise ValueError(f"sizes {sizes.tolist()} do not split {s.shape[0] if s.ndim else 0} scores")
+    n = np.repeat(sizes, sizes).astype(float)
+    out = np.ones(s.size)
+    many = n > 1
+    out[many] = (_mid_ranks(s, sizes)[many] - 1.0) / (n[many] - 1.0)
+    return out
 
 
-def _mid_ranks(s):
-    """Ranks 1..n ascending, ties sharing the mean of their ranks: the "average" ranks of
-    ``scipy.stats.rankdata``, to the last bit (half-integers), without its per-call cost."""
-    order = np.argsort(s, kind="stable")
+def _mid_ranks(s, sizes):
+    """Ranks 1..n ascending within each list, ties sharing the mean of their ranks: the "average"
+    ranks of ``scipy.stats.rankdata``, to the last bit (half-integers), without its per-call cost."""
+    owner = np.repeat(np.arange(sizes.size), sizes)
+    order = np.lexsort((s, owner))  # stable, list by list
     sorted_s = s[order]
-    new = np.empty(s.size, dtype=bool)
-    new[0] = True
-    np.not_equal(sorted_s[1:], sorted_s[:-1], out=new[1:])
+    new = np.ones(s.size, dtype=bool)
+    new[1:] = (sorted_s[1:] != sorted_s[:-1]) | (owner[1:] != owner[:-1])
     starts = np.flatnonzero(new)
     counts = np.diff(np.append(starts, s.size))
+    local = starts - (np.cumsum(sizes) - sizes)[owner[starts]]
     ranks = np.empty(s.size)
-    ranks[order] = np.repeat(starts + (counts + 1) / 2.0, counts)
+    ranks[order] = np.repeat(local + (counts + 1) / 2.0, counts)
     return ranks
 
 
@@ -319,12 +327,19 @@ class BlendMethod:
     kind: str = field(default="blend", init=False)
 
     def __call__(self, anchor, candidates):
-        h = rank_normalise(self.rules_method(anchor, candidates))
-        proposed = np.array([(anchor.id, c.id) in self.candidates for c in candidates])
-        o = np.zeros(len(candidates))
-        if proposed.any():
-            o[proposed] = rank_normalise([self.candidates[(anchor.id, c.id)] for c, p in zip(candidates, proposed) if p])
-        return (1.0 - self.weight) * h + self.weight * o
+        return self.score_queries([(anchor, candidates)])[0]
+
+    def score_queries(self, asked):
+        """Scores of many ``(anchor, candidates)`` queries (a list of arrays), ranked all at once."""
+        sizes = [len(cands) for _, cands in asked]
+        h = rank_normalise(np.concatenate([self.rules_method(a, cands) for a, cands in asked]), sizes)
+        theirs = [[self.candidates.get((a.id, c.id)) for c in cands] for a, cands in asked]
+        proposed = np.array([v is not None for row in theirs for v in row], dtype=bool)
+        o = np.zeros(proposed.size)
+        o[proposed] = rank_normalise([v for row in theirs for v in row if v is not None],
+                                     [sum(v is not None for v in row) for row in theirs])
+        mixed = (1.0 - self.weight) * h + self.weight * o
+        return np.split(mixed, np.cumsum(sizes)[:-1])
 
 
 def write_records(rows, path, columns, fmt=None, what="feed"):

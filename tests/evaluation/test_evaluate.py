@@ -146,12 +146,20 @@ def test_same_colours_solves_each_pair_once_with_the_right_distance(tmp_path, mo
     sofas = [p for p in products if p.category == "Sofa"]
     cushions = [p for p in products if p.category == "Cushion"]
     solved = []
-    real = ev.emd_one_to_many
-    monkeypatch.setattr(ev, "emd_one_to_many", lambda a, w, others, **kw: solved.append(len(others)) or real(a, w, others, **kw))
+    real = ev.emd_signatures
+    monkeypatch.setattr(ev, "emd_signatures", lambda first, others: solved.append(len(others)) or real(first, others))
     method = SameColoursMethod(palettes)
     first = method(sofas[0], cushions)
     swapped = method(cushions[2], sofas)  # (sofa 0, cushion 2) is already known
     assert solved == [len(cushions), len(sofas) - 1]
+    # Many queries at once: each new pair solved once, and the very numbers of one query at a time.
+    solved.clear()
+    asked = [(sofas[1], cushions), (cushions[0], sofas), (sofas[1], cushions[:2])]
+    together = SameColoursMethod(palettes).score_queries(asked)
+    assert sum(solved) == len(cushions) + len(sofas) - 1
+    one_by_one = SameColoursMethod(palettes)
+    for got, (product, cands) in zip(together, asked):
+        np.testing.assert_array_equal(got, one_by_one(product, cands))
     # Reference: each distance solved alone, in the direction the query asks (EMD is symmetric).
     want = [emd(palettes[sofas[0].id].jab, palettes[sofas[0].id].weights, palettes[c.id].jab, palettes[c.id].weights) for c in cushions]
     np.testing.assert_allclose(-first, want, atol=1e-7)
@@ -259,10 +267,13 @@ def test_rules_method_ranks_as_the_exact_pair_score(tmp_path):
     by_id = {p.id: p for p in products}
     query = by_id["so03"]
     cands = [p for p in products if p.category == "Cushion"]
-    got = RulesMethod(rules, palettes)(query, cands)
+    method = RulesMethod(rules, palettes)
+    got = method(query, cands)
     pair = rules.for_pair("sofa", "cushion")
     want = [pair_score(palettes["so03"], palettes[c.id], pair).raw for c in cands]
     np.testing.assert_allclose(got, want, atol=1e-9)
+    # Asked again (as the blends do), the query's scores are remembered, read-only.
+    assert method(query, cands) is got and not got.flags.writeable
 
 
 # ---- queries --------------------------------------------------------------------------------

@@ -89,6 +89,36 @@ def test_blend_method_at_weight_zero_orders_like_harmony():
     assert np.argmax(m1(SimpleNamespace(id="A"), cands)) == 5
 
 
+def _scipy_rank_normalise(values):
+    # Reference: scipy.stats.rankdata's average ranks, rescaled to [0, 1] as the module notes say.
+    values = np.asarray(values, dtype=float)
+    return np.ones(1) if values.size == 1 else (rankdata(values) - 1.0) / (values.size - 1.0)
+
+
+def test_blend_method_ranks_many_queries_at_once_as_one_at_a_time():
+    rng = np.random.default_rng(7)
+    anchors = [SimpleNamespace(id=a) for a in "ABCD"]
+    sizes = {"A": 12, "B": 1, "C": 7, "D": 9}
+    raw = {a: rng.integers(0, 4, n).astype(float) for a, n in sizes.items()}  # ties on purpose
+    cands = {a: [SimpleNamespace(id=f"{a}{i}") for i in range(n)] for a, n in sizes.items()}
+    theirs = {(a, c.id): float(rng.integers(0, 3)) for a in "ACD" for c in cands[a] if rng.random() < 0.6}
+    theirs[("C", "C0")] = 5.0
+    asked = [(x, cands[x.id]) for x in anchors]
+    method = BlendMethod(lambda anchor, cs: raw[anchor.id], theirs, 0.25)
+    together = method.score_queries(asked)
+    for got, (anchor, cs) in zip(together, asked):
+        proposed = np.array([(anchor.id, c.id) in theirs for c in cs])
+        o = np.zeros(len(cs))
+        if proposed.any():
+            o[proposed] = _scipy_rank_normalise([theirs[(anchor.id, c.id)] for c, p in zip(cs, proposed) if p])
+        want = 0.75 * _scipy_rank_normalise(raw[anchor.id]) + 0.25 * o
+        assert np.array_equal(got, want)
+        assert np.array_equal(method(anchor, cs), want)
+    s = np.concatenate(list(raw.values()))
+    assert np.array_equal(rank_normalise(s, list(sizes.values())),
+                          np.concatenate([_scipy_rank_normalise(v) for v in raw.values()]))
+
+
 @pytest.mark.parametrize(
     "text, message",
     [

@@ -1,0 +1,126 @@
+"""The demo's evaluate stage, timed as ``harmony demo`` times it, in fresh processes.
+
+The demo shop is extracted once into a temporary store; then each run is a new Python process
+that loads what a demo run has loaded before its evaluate stage (the demo, extraction, feed and
+bundle modules) and times the stage itself: reading the store, the log and the candidate list,
+every method, the metrics and the table. The modules the stage imports (the evaluation, scipy,
+POT) are imported inside the timing, once, as in a real run. The best of ``--runs`` runs counts.
+
+A row times ``import ot`` alone after the same start, the part of the stage that POT's package
+import costs whatever the evaluation does. With ``--baseline DIR`` (a checkout of another
+revision) the same stage of that code runs in the same way, between this revision's runs, and
+the two revisions' tables are compared.
+
+Prints a table and, as its last line, one JSON object with ``evaluate_s``, ``target_s`` and ``met``.
+
+    python benchmarks/evaluate_stage.py [--runs N] [--baseline DIR]
+"""
+
+import argparse
+import json
+import os
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+TARGET_S = 1.5
+
+# Run in a fresh process; argv: checkout (or ""), store, shop folder, what ("stage" or "ot").
+_CHILD = """
+import json, sys, time
+from pathlib import Path
+if sys.argv[1]:
+    sys.path.insert(0, sys.argv[1])
+import harmony.demo.run as demo
+# What a demo run has loaded by its evaluate stage (extraction, feed, bundles).
+import harmony.shop.engine, harmony.suggest.feed, harmony.suggest.bundle
+loaded = sorted(m for m in ("scipy", "sklearn", "ot") if m in sys.modules)
+shop = Path(sys.argv[3])
+t0 = time.perf_counter()
+if sys.argv[4] == "ot":
+    import ot
+    tables = None
+else:
+    tables = demo._evaluation_tables(Path(sys.argv[2]), shop / "events.csv", demo.DEFAULT_RULES, False,
+                                     shop / "candidates.csv")
+seconds = time.perf_counter() - t0
+print(json.dumps({"seconds": seconds, "module": demo.__file__, "loaded_before": loaded, "tables": tables}))
+"""
+
+
+def _child(checkout, db, shop, what):
+    argv = [sys.executable, "-c", _CHILD, os.path.abspath(checkout) if checkout else "", str(db), str(shop), what]
+    out = subprocess.run(argv, check=True, capture_output=True, text=True).stdout
+    result = json.loads(out.strip().splitlines()[-1])
+    if checkout and not result["module"].startswith(os.path.abspath(checkout)):
+        raise SystemExit(f"error: the baseline imported {result['module']}, not the code in {checkout}")
+    if result["loaded_before"]:
+        raise SystemExit(f"error: {', '.join(result['loaded_before'])} loaded before the stage; its import would not count")
+    return result
+
+
+def _load():
+    if not os.path.exists("/proc/loadavg"):
+        return "n/a"
+    with open("/proc/loadavg") as fh:
+        return " ".join(fh.read().split()[:3])
+
+
+def _store(folder):
+    """The demo shop extracted into ``folder/harmony.db``; returns (store, shop folder)."""
+    from harmony.demo.run import demo_catalogue
+    from harmony.shop.engine import run_extraction
+
+    catalogue = demo_catalogue(folder)
+    db = Path(folder) / "harmony.db"
+    run_extraction(catalogue, db)
+    return db, catalogue.parent
+
+
+def main():
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--runs", type=int, default=3, help="fresh processes per revision; the best counts")
+    parser.add_argument("--baseline", metavar="DIR", help="a checkout of the revision to compare with")
+    args = parser.parse_args()
+    with tempfile.TemporaryDirectory() as folder:
+        db, shop = _store(folder)
+        load_before = _load()
+        times = {"this": [], "baseline": [], "ot": []}
+        tables = {}
+        for _ in range(args.runs):
+            # Interleaved, so that every row sees the same machine.
+            for key, checkout, what in (("this", None, "stage"), ("baseline", args.baseline, "stage"), ("ot", None, "ot")):
+                if key == "baseline" and not args.baseline:
+                    continue
+                result = _child(checkout, db, shop, what)
+                times[key].append(result["seconds"])
+                tables[key] = result["tables"]
+        load_after = _load()
+    best = {key: min(v) for key, v in times.items() if v}
+    base = best.get("baseline")
+    print(f"{'stage':<44}{'best s':>8}{'x baseline':>12}  runs (s)")
+    rows = [("baseline: evaluate stage", "baseline"), ("this revision: evaluate stage", "this"),
+            ("  of it at least: import ot (POT) alone", "ot")]
+    for label, key in rows:
+        if key not in best:
+            continue
+        ratio = f"{best[key] / base:>12.2f}" if base else f"{'':>12}"
+        print(f"{label:<44}{best[key]:>8.3f}{ratio}  {' '.join(f'{t:.2f}' for t in times[key])}")
+    if base:
+        same = tables["this"] == tables["baseline"]
+        print(f"baseline: {args.baseline}; tables of both revisions identical: {'yes' if same else 'NO'}")
+    print(f"load average: {load_before} before, {load_after} after")
+    met = best["this"] <= TARGET_S
+    print(f"target: evaluate stage <= {TARGET_S} s; {'met' if met else 'NOT met'}")
+    summary = {"evaluate_s": round(best["this"], 3), "target_s": TARGET_S, "met": met,
+               "import_ot_s": round(best["ot"], 3), "runs": args.runs, "load": load_before}
+    if base:
+        summary.update(baseline_s=round(base, 3), ratio_to_baseline=round(best["this"] / base, 3),
+                       same_tables=tables["this"] == tables["baseline"])
+    print(json.dumps(summary))
+
+
+if __name__ == "__main__":
+    main()
