@@ -15,12 +15,22 @@ __all__ = ["RulesMethod", "SameColoursMethod", "ColourAttributeMethod", "RandomM
 # --------------------------------------------------------------------------------------------
 
 
+#: Kernel entries (query products' colours x candidates' colours) evaluated in one block.
+KERNEL_BLOCK = 250_000
+
+
 def _stack(palettes, ids):
     jab = np.concatenate([palettes[i].jab for i in ids])
     w = np.concatenate([palettes[i].weights for i in ids])
     sizes = np.array([len(palettes[i]) for i in ids])
     starts = np.r_[0, np.cumsum(sizes)[:-1]]
     return jab, w, starts
+
+
+def _columns(starts, sizes, picked):
+    """Indices of the colours of palettes ``picked`` (each palette's run, in order) in a stack."""
+    n = sizes[picked]
+    return np.repeat(starts[picked] - (np.cumsum(n) - n), n) + np.arange(int(n.sum()))
 
 
 @dataclass(frozen=True, eq=False)
@@ -39,22 +49,54 @@ class RulesMethod:
     _known: dict = field(default_factory=dict, init=False, repr=False)
 
     def __call__(self, product, candidates):
-        key = (product.id, tuple(c.id for c in candidates))
-        known = self._known.get(key)
-        if known is None:
-            known = self._known[key] = self._scores(product, candidates)
-            known.flags.writeable = False
-        return known
+        return self.score_queries([(product, candidates)])[0]
 
-    def _scores(self, product, candidates):
-        cat_a, cat_b = product.category, candidates[0].category
+    def score_queries(self, asked):
+        """Scores of many ``(product, candidates)`` queries (a list of arrays), the kernel of each
+        pair of categories evaluated in blocks over all its queries."""
+        keys = [(p.id, tuple(c.id for c in cands)) for p, cands in asked]
+        groups = {}  # (category, partner category) -> {key: query}, the queries not known yet
+        for (product, cands), key in zip(asked, keys):
+            if key not in self._known:
+                groups.setdefault((product.category, cands[0].category), {}).setdefault(key, (product, cands))
+        for (cat_a, cat_b), todo in groups.items():
+            for key, scores in zip(todo, self._score_pair(cat_a, cat_b, list(todo.values()))):
+                scores.flags.writeable = False
+                self._known[key] = scores
+        return [self._known[key] for key in keys]
+
+    def _score_pair(self, cat_a, cat_b, queries):
         if not self.rules.pairs_with(cat_a, cat_b):
-            return np.zeros(len(candidates))
+            return [np.zeros(len(cands)) for _, cands in queries]
         pair = self.rules.for_pair(cat_a, cat_b)
-        pa = self.palettes[product.id]
-        jab, w, starts = _stack(self.palettes, [c.id for c in candidates])
-        per_colour = (pa.weights @ pair.kernel(pa.jab, jab)) * w
-        return np.add.reduceat(per_colour, starts)
+        partners = list(dict.fromkeys(c.id for _, cands in queries for c in cands))
+        jab_b, w_b, starts_b = _stack(self.palettes, partners)
+        sizes_b = np.diff(np.append(starts_b, len(w_b)))
+        column = {pid: i for i, pid in enumerate(partners)}
+        blocks, rows = [[]], 0  # queries in blocks of at most KERNEL_BLOCK kernel entries (one query at least)
+        for j, (product, _) in enumerate(queries):
+            n = len(self.palettes[product.id])
+            if blocks[-1] and (rows + n) * len(w_b) > KERNEL_BLOCK:
+                blocks.append([])
+                rows = 0
+            blocks[-1].append(j)
+            rows += n
+        out = [None] * len(queries)
+        for block in blocks:
+            anchors = [self.palettes[queries[j][0].id] for j in block]
+            # The kernel is colour by colour: each query's rows and columns of the block hold the
+            # bits of that query's own kernel.
+            kernel = pair.kernel(np.concatenate([pa.jab for pa in anchors]), jab_b)
+            at = 0
+            for j, pa in zip(block, anchors):
+                picked = np.array([column[c.id] for c in queries[j][1]])
+                cols = _columns(starts_b, sizes_b, picked)
+                # C order, as a query's own kernel is: the product then sums in the same order.
+                own = np.ascontiguousarray(kernel[at : at + len(pa), cols])
+                per_colour = (pa.weights @ own) * w_b[cols]
+                out[j] = np.add.reduceat(per_colour, np.cumsum(sizes_b[picked]) - sizes_b[picked])
+                at += len(pa)
+        return out
 
 
 @dataclass(frozen=True, eq=False)

@@ -276,6 +276,40 @@ def test_rules_method_ranks_as_the_exact_pair_score(tmp_path):
     assert method(query, cands) is got and not got.flags.writeable
 
 
+@pytest.mark.parametrize("block", [1, 40, 250_000])
+def test_rules_method_many_queries_give_each_querys_own_bits(monkeypatch, block):
+    # Many queries at once, their kernel evaluated in blocks of any size, give the very bits of
+    # each query scored alone as the bilinear contract writes it (query colours x candidate colours,
+    # weighted), and the exact pair score's raw value (harmony.rules.score) to rounding.
+    from harmony.evaluation import methods as ev
+    from harmony.rules.score import pair_score
+
+    monkeypatch.setattr(ev, "KERNEL_BLOCK", block)
+    rng = np.random.default_rng(block)
+    products, palettes = [], {}
+    for i in range(30):
+        cat = ("Sofa", "Rug", "Lamp")[i % 3]
+        k = int(rng.integers(1, 9))
+        products.append(Product(id=f"p{i:02d}", category=cat, price=10.0))
+        palettes[f"p{i:02d}"] = Palette(jab=np.c_[rng.uniform(20, 90, k), rng.normal(0, 20, (k, 2))],
+                                        weights=rng.dirichlet(np.ones(k)))
+    rules = load_rules()
+    by_cat = {c: [p for p in products if p.category == c] for c in ("Sofa", "Rug", "Lamp")}
+    asked = [(p, [c for c in by_cat[cat] if rng.random() < 0.8] or by_cat[cat][:1])
+             for p in products for cat in by_cat if cat != p.category]
+    got = RulesMethod(rules, palettes).score_queries(asked)
+    for scores, (p, cands) in zip(got, asked):
+        pair = rules.for_pair(p.category, cands[0].category)
+        pa = palettes[p.id]
+        jab = np.concatenate([palettes[c.id].jab for c in cands])
+        w = np.concatenate([palettes[c.id].weights for c in cands])
+        starts = np.cumsum([0] + [len(palettes[c.id]) for c in cands[:-1]])
+        alone = np.add.reduceat((pa.weights @ pair.kernel(pa.jab, jab)) * w, starts)
+        assert np.array_equal(scores, alone)
+        raw = [pair_score(pa, palettes[c.id], pair).raw for c in cands]
+        np.testing.assert_allclose(scores, raw, atol=1e-9)
+
+
 # ---- queries --------------------------------------------------------------------------------
 
 
