@@ -192,7 +192,9 @@ def evaluate(queries, methods, products, rng, resamples=1000, level=0.95, unknow
     queries : QuerySet
     methods : sequence of callables with ``name`` and ``kind``
         ``method(query_product, candidate_products) -> ndarray`` of scores, higher first
-        (see :class:`RulesMethod` and the baselines).
+        (see :class:`RulesMethod` and the baselines). A method with
+        ``score_queries([(query_product, candidate_products), ...])`` is asked for every query in
+        that one call, which must give the same numbers as one call per query.
     products : mapping of str to Product, or iterable of Product
     rng : numpy.random.Generator
         Draws the bootstrap resamples of query products (shared by every method).

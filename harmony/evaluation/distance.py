@@ -101,7 +101,11 @@ MAX_ITERATIONS = 100_000
 
 def _solver():
     """POT's network simplex: its compiled core when present (``ot.emd2`` spends most of its
-    time for a 10 x 10 problem checking its arguments), else ``ot.emd2`` itself."""
+    time for a 10 x 10 problem checking its arguments), else ``ot.emd2`` itself.
+
+    Importing it imports all of POT, 1.4-2 s on the project's 2-core machine: POT 0.9 loads
+    scipy.stats and scipy.optimize, and scikit-learn and networkx when they are installed (as here);
+    its ``POT_BACKEND_DISABLE_*`` variables only skip torch, jax, cupy and tensorflow."""
     try:
         from ot.lp.emd_wrap import emd_c
     except ImportError:  # a POT that moved its core: the public function gives the same optimum

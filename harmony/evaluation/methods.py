@@ -152,17 +152,24 @@ class ColourAttributeMethod:
     attribute: str = "colour"
     name: str = "colour attribute"
     kind: str = field(default="baseline", init=False)
+    _words: dict = field(default_factory=dict, init=False, repr=False)  # product id -> its words
 
     def __call__(self, product, candidates):
-        mine = _colour_words(product, self.attribute)
+        mine = self._words_of(product)
         out = np.zeros(len(candidates))
         if not mine:
             return out
         for i, c in enumerate(candidates):
-            theirs = _colour_words(c, self.attribute)
+            theirs = self._words_of(c)
             if theirs:
                 out[i] = len(mine & theirs) / len(mine | theirs)
         return out
+
+    def _words_of(self, product):
+        words = self._words.get(product.id)
+        if words is None:
+            words = self._words[product.id] = _colour_words(product, self.attribute)
+        return words
 
 
 @dataclass(frozen=True, eq=False)

@@ -332,7 +332,9 @@ class BlendMethod:
     def score_queries(self, asked):
         """Scores of many ``(anchor, candidates)`` queries (a list of arrays), ranked all at once."""
         sizes = [len(cands) for _, cands in asked]
-        h = rank_normalise(np.concatenate([self.rules_method(a, cands) for a, cands in asked]), sizes)
+        many = getattr(self.rules_method, "score_queries", None)
+        own = many(asked) if many is not None else [self.rules_method(a, cands) for a, cands in asked]
+        h = rank_normalise(np.concatenate(own), sizes)
         theirs = [[self.candidates.get((a.id, c.id)) for c in cands] for a, cands in asked]
         proposed = np.array([v is not None for row in theirs for v in row], dtype=bool)
         o = np.zeros(proposed.size)
