@@ -175,6 +175,23 @@ def _why_nothing(queries, unknown, skipped):
     )
 
 
+#: Candidates scored per chunk of queries (every method, then the next chunk): memory stays bounded
+#: by the chunk, not by the log.
+CHUNK_CANDIDATES = 1_000_000
+
+
+def _chunks(sizes, budget):
+    """Consecutive ``(lo, hi)`` ranges of queries holding at most ``budget`` candidates (one query at least)."""
+    lo, total = 0, 0
+    for i, n in enumerate(sizes):
+        if i > lo and total + n > budget:
+            yield lo, i
+            lo, total = i, 0
+        total += n
+    if lo < len(sizes):
+        yield lo, len(sizes)
+
+
 def _duplicates(names):
     seen, twice = set(), []
     for name in names:
@@ -247,20 +264,22 @@ def evaluate(queries, methods, products, rng, resamples=1000, level=0.95, unknow
         from tqdm import tqdm
 
         bar = tqdm(total=len(methods) * len(queries.queries), desc="evaluate", unit="query", leave=False)
-    gains = np.concatenate([q.gains for q in queries.queries])
-    sizes = [len(q.candidates) for q in queries.queries]
-    asked = [(by_id[q.product], [by_id[c] for c in q.candidates]) for q in queries.queries]
-    values = {}
-    for method in methods:
-        many = getattr(method, "score_queries", None)
-        scores = many(asked) if many is not None else [method(product, cands) for product, cands in asked]
-        for s, n in zip(scores, sizes):
-            if np.shape(s) != (n,):
-                raise ValueError(f"{method.name}: {n} candidates need {n} scores, got shape {np.shape(s)}")
-        if bar is not None:
-            bar.update(len(sizes))
-        # Every query's metrics at once: the same numbers as auc, ndcg_at_k and hit_at_k per query.
-        values[method.name] = metric_table(np.concatenate(scores), gains, sizes, CUTOFF)
+    values = {m.name: np.empty((len(queries.queries), 3)) for m in methods}
+    for lo, hi in _chunks([len(q.candidates) for q in queries.queries], CHUNK_CANDIDATES):
+        part = queries.queries[lo:hi]
+        gains = np.concatenate([q.gains for q in part])
+        sizes = [len(q.candidates) for q in part]
+        asked = [(by_id[q.product], [by_id[c] for c in q.candidates]) for q in part]
+        for method in methods:  # in this order, so a blend finds its rules method's scores remembered
+            many = getattr(method, "score_queries", None)
+            scores = many(asked) if many is not None else [method(product, cands) for product, cands in asked]
+            for s, n in zip(scores, sizes):
+                if np.shape(s) != (n,):
+                    raise ValueError(f"{method.name}: {n} candidates need {n} scores, got shape {np.shape(s)}")
+            # The chunk's metrics at once: the same numbers as auc, ndcg_at_k and hit_at_k per query.
+            values[method.name][lo:hi] = metric_table(np.concatenate(scores), gains, sizes, CUTOFF)
+            if bar is not None:
+                bar.update(len(part))
     if bar is not None:
         bar.close()
 

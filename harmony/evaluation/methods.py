@@ -38,8 +38,9 @@ class RulesMethod:
     """Rank by the raw pair score of a rules file, the query product's category first.
 
     The raw score ``w_a @ kernel(jab_a, jab_b) @ w_b`` ranks exactly as the score in [0, 1], which
-    is strictly increasing in it. Pairs the file does not score tie. The scores of a query are
-    remembered (read-only), so methods built on this one (blends) ask for them again at no cost.
+    is strictly increasing in it. Pairs the file does not score tie. The scores of the queries of
+    the latest call are remembered (read-only), so methods built on this one (blends) asking for
+    the same queries next get them at no cost.
     """
 
     rules: object  # harmony.rules.RuleSet
@@ -59,11 +60,14 @@ class RulesMethod:
         for (product, cands), key in zip(asked, keys):
             if key not in self._known:
                 groups.setdefault((product.category, cands[0].category), {}).setdefault(key, (product, cands))
+        latest = {key: self._known[key] for key in keys if key in self._known}
         for (cat_a, cat_b), todo in groups.items():
             for key, scores in zip(todo, self._score_pair(cat_a, cat_b, list(todo.values()))):
                 scores.flags.writeable = False
-                self._known[key] = scores
-        return [self._known[key] for key in keys]
+                latest[key] = scores
+        self._known.clear()
+        self._known.update(latest)
+        return [latest[key] for key in keys]
 
     def _score_pair(self, cat_a, cat_b, queries):
         if not self.rules.pairs_with(cat_a, cat_b):

@@ -258,6 +258,28 @@ def test_bootstrap_is_reproducible_with_the_generator(tmp_path):
     assert one.results[0].auc_ci != three.results[0].auc_ci
 
 
+def test_chunks_of_queries_change_no_number(tmp_path, monkeypatch):
+    # Queries are scored in chunks of at most CHUNK_CANDIDATES candidates (every method, then the
+    # next chunk); any chunk size gives the same evaluation, bit for bit.
+    from harmony.evaluation import core
+    from harmony.suggest.blend import BlendMethod
+
+    products, palettes, log = known_relation_shop(tmp_path)
+    queries = build_queries(log, products, palettes)
+
+    def run():
+        rules = RulesMethod(load_rules(DATA / "complementary_only.toml"), palettes, name="r")
+        theirs = {(q.product, c): float(i % 3) for i, q in enumerate(queries.queries) for c in q.candidates[::2]}
+        methods = [rules, SameColoursMethod(palettes), BlendMethod(rules, theirs, 0.5, name="b"), RandomMethod()]
+        return evaluate(queries, methods, products, np.random.default_rng(1), resamples=100)
+
+    whole = run()
+    for budget in (1, 50):
+        monkeypatch.setattr(core, "CHUNK_CANDIDATES", budget)
+        assert run() == whole
+    assert list(core._chunks([3, 4, 5, 1, 9], 7)) == [(0, 2), (2, 4), (4, 5)]  # 9 alone: one query at least
+
+
 def test_rules_method_ranks_as_the_exact_pair_score(tmp_path):
     # The bilinear contract: raw score ranks exactly as harmony.rules.score.pair_score's score.
     from harmony.rules.score import pair_score
