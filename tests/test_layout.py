@@ -85,3 +85,12 @@ def test_shipped_data_is_found_through_the_package():
     assert resources.room_template("dining_corner") == resources.ROOMS_DIR / "dining_corner.toml"
     assert resources.room_template("../rules/default") is None
     assert resources.room_template("no_such_room") is None
+
+
+def test_the_package_imports_only_its_declared_dependencies():
+    # scikit-learn is a test extra (reference implementations and sample photographs): an
+    # installed harmony never imports it, and without it POT's import (the EMD baseline) is
+    # about a second shorter, since POT loads scikit-learn whenever it finds it.
+    for path, name in _modules():
+        for line, module, _ in _imports(path):
+            assert module.split(".")[0] != "sklearn", f"{path.name}:{line}: {name} imports {module}"
