@@ -358,10 +358,11 @@ def _basis(y, x):
 
 @lru_cache(maxsize=16)
 def _grid_basis(h, w):
-    """:func:`_basis` at every pixel of an (h, w) image, shape (h * w, 6), read-only."""
+    """:func:`_basis` at every pixel of an (h, w) image, transposed: shape (6, h * w), read-only
+    (one row per basis function, so the surface comes out as channel planes)."""
     y = np.linspace(-0.5, 0.5, h)[:, None] * np.ones((1, w))
     x = np.ones((h, 1)) * np.linspace(-0.5, 0.5, w)[None, :]
-    grid = _basis(y, x).reshape(-1, 6)
+    grid = np.ascontiguousarray(_basis(y, x).reshape(-1, 6).T)
     grid.setflags(write=False)
     return grid
 
@@ -377,30 +378,47 @@ def _ring_basis(h, w, width):
     return index, design
 
 
+def _median_rows(x):
+    """``np.median(x, axis=-1)`` of finite values through one partition (the same bits: the mean
+    of the middle pair is their sum, plus 0.0 as numpy's sum starts from it, halved)."""
+    n = x.shape[-1]
+    half = n // 2
+    if n % 2:
+        return np.partition(x, half, axis=-1)[..., half] + 0.0
+    part = np.partition(x, (half - 1, half), axis=-1)
+    return (part[..., half - 1] + part[..., half] + 0.0) / 2
+
+
 def _fit_surface(planes, index, design, tolerance, iterations):
     """The fit of :func:`backdrop_model` on the ring pixels ``index`` (flat) with basis rows
     ``design``; returns the surface as planes, shape (3, h, w), float like ``planes``."""
     h, w = planes.shape[1:]
-    pts = planes.reshape(3, -1)[:, index].T.astype(float)
+    pts_planes = planes.reshape(3, -1)[:, index].astype(float)
+    pts = pts_planes.T
     coef = np.zeros((6, 3))
-    coef[0] = np.median(pts, axis=0)
+    coef[0] = _median_rows(pts_planes)
+    fitted = None  # the inliers of the last full (quadratic) fit
     for it in range(iterations + 1):
         sq = pts - design @ coef
         sq *= sq
         residual = np.sqrt(sq[:, 0] + sq[:, 1] + sq[:, 2])
         # Widen the first inlier test: a sweep's ring is far from its median colour.
-        limit = tolerance if it else max(tolerance, 2.5 * float(np.median(residual)))
+        limit = tolerance if it else max(tolerance, 2.5 * float(_median_rows(residual)))
         inlier = residual <= limit
         if it == iterations or inlier.sum() < 12:
             break
+        if fitted is not None and np.array_equal(inlier, fitted):
+            break  # a fixed point: every further fit gives the same coefficients
         cols = 3 if it == 0 else 6
         rows = np.flatnonzero(inlier)
         a = design.take(rows, axis=0)[:, :cols]
         sol = np.linalg.solve(a.T @ a + 1e-9 * np.eye(cols), a.T @ pts.take(rows, axis=0))  # normal equations
         coef = np.zeros((6, 3))
         coef[:cols] = sol
+        if cols == 6:
+            fitted = inlier
     surface = np.empty((3, h * w), dtype=planes.dtype)
-    surface[...] = (_grid_basis(h, w) @ coef).T
+    surface[...] = np.dot(np.ascontiguousarray(coef.T), _grid_basis(h, w))
     return surface.reshape(3, h, w), residual, inlier
 
 
@@ -487,6 +505,25 @@ def _patch_bias(diff, width):
             medians = np.stack([np.median(p.reshape(3, -1), axis=1) for p in group])
         worst = max(worst, max(float(np.linalg.norm(m)) for m in medians))
     return worst
+
+
+def _opening(residual, cap):
+    """The opening tolerance from the ring's inlier residuals: ``OPENING_SPREAD_FACTOR`` times
+    their 95th percentile (``np.percentile``), kept within [``OPENING_MIN_DELTA_E``, ``cap``].
+
+    The percentile lies between the two order statistics it interpolates, so when both put it
+    clearly below the lower limit (or above ``cap``) the limit is the answer without it."""
+    n = residual.size
+    low = int(0.95 * (n - 1))
+    if n >= 2 and low + 1 < n:
+        lo, hi = np.partition(residual, (low, low + 1))[[low, low + 1]]
+        margin = 1.0 + 1e-9
+        if OPENING_SPREAD_FACTOR * hi * margin < OPENING_MIN_DELTA_E:
+            return OPENING_MIN_DELTA_E
+        if OPENING_SPREAD_FACTOR * lo > cap * margin and cap >= OPENING_MIN_DELTA_E:
+            return cap
+    spread = float(np.percentile(residual, 95))
+    return min(max(OPENING_SPREAD_FACTOR * spread, OPENING_MIN_DELTA_E), cap)
 
 
 def is_backdrop_colour(jab):
@@ -591,13 +628,12 @@ def foreground_mask(
     dj = diff[0]
     chroma_sq = diff[1] ** 2 + diff[2] ** 2
     d2 = chroma_sq + dj * dj
-    spread = float(np.percentile(ring_residual[inlier], 95))
-    background = np.median(flat_surface[:, _ring_basis(h, w, width)[0]], axis=1)
+    background = _median_rows(flat_surface[:, _ring_basis(h, w, width)[0]])
     # The 5 ΔE rule protects light parts on a light studio backdrop; on a dark or coloured
     # backdrop (a chart on black) ΔE is inflated by noise and the plain tolerance applies.
     light = bool(is_backdrop_colour(background))
     cap = OPENING_MAX_DELTA_E if light else tolerance
-    opening = min(max(OPENING_SPREAD_FACTOR * spread, OPENING_MIN_DELTA_E), cap) if light else tolerance
+    opening = _opening(ring_residual[inlier], cap) if light else tolerance
     near = d2 <= opening**2
     lightness = planes[0]
     coloured = (dj < 0.0) & (dj >= -shadow_depth) & (chroma_sq <= shadow_ab**2)
