@@ -265,20 +265,23 @@ def _planes(jab):
     return np.ascontiguousarray(np.moveaxis(jab, -1, 0))
 
 
-def _edge_strength(lightness, among=None):
-    """Largest absolute J' difference from the four neighbours (only neighbours where ``among``
-    holds, when given), shape (h, w)."""
-    step = np.zeros_like(lightness)
-    dx = np.abs(np.diff(lightness, axis=1))
-    dy = np.abs(np.diff(lightness, axis=0))
-    if among is not None:
-        dx *= among[:, 1:] & among[:, :-1]
-        dy *= among[1:, :] & among[:-1, :]
-    np.maximum(step[:, :-1], dx, out=step[:, :-1])
-    np.maximum(step[:, 1:], dx, out=step[:, 1:])
-    np.maximum(step[:-1, :], dy, out=step[:-1, :])
-    np.maximum(step[1:, :], dy, out=step[1:, :])
-    return step
+def _steps_below(lightness, among, limit):
+    """True where every absolute J' difference from a neighbour is below ``limit`` (finite
+    values), counting only neighbours where ``among`` holds for both pixels; shape (h, w)."""
+    if not limit > 0:
+        return np.zeros(lightness.shape, dtype=bool)
+    steep_x = np.abs(lightness[:, 1:] - lightness[:, :-1]) >= limit
+    steep_y = np.abs(lightness[1:, :] - lightness[:-1, :]) >= limit
+    steep_x &= among[:, 1:]
+    steep_x &= among[:, :-1]
+    steep_y &= among[1:, :]
+    steep_y &= among[:-1, :]
+    ok = np.ones(lightness.shape, dtype=bool)
+    ok[:, :-1] &= ~steep_x
+    ok[:, 1:] &= ~steep_x
+    ok[:-1, :] &= ~steep_y
+    ok[1:, :] &= ~steep_y
+    return ok
 
 
 def colour_step_sq(jab):
@@ -298,6 +301,11 @@ def colour_step_sq(jab):
     np.maximum(step[:-1, :], dy, out=step[:-1, :])
     np.maximum(step[1:, :], dy, out=step[1:, :])
     return step
+
+
+#: The 4-neighbour cross, ``scipy.ndimage.generate_binary_structure(2, 1)`` (the default of
+#: ``label`` and ``binary_dilation`` in two dimensions), made once.
+_CROSS = ndimage.generate_binary_structure(2, 1)
 
 
 def _dilate_cross(mask, times=1):
@@ -326,7 +334,7 @@ def _grow_within(seed, allowed, steps):
     h, w = seed.shape
     box = np.s_[max(rows[0] - 1, 0): min(rows[-1] + 2, h), max(cols[0] - 1, 0): min(cols[-1] + 2, w)]
     out = seed.copy()
-    out[box] = ndimage.binary_dilation(seed[box], iterations=steps, mask=seed[box] | allowed[box])
+    out[box] = ndimage.binary_dilation(seed[box], _CROSS, iterations=steps, mask=seed[box] | allowed[box])
     return out
 
 
@@ -339,13 +347,14 @@ def _label_box(mask):
     cols = np.flatnonzero(mask.any(axis=0))
     box = np.s_[rows[0]: rows[-1] + 1, cols[0]: cols[-1] + 1]
     labels = np.zeros(mask.shape, dtype=np.int32)
-    labels[box], n = ndimage.label(mask[box])
+    labels[box], n = ndimage.label(mask[box], _CROSS)
     return labels, n
 
 
-def _connected_to_edge(labels):
+def _connected_to_edge(labels, count):
+    """Which of the ``count`` labels touch the image edge, a lookup by label (0 never does)."""
     edge = np.concatenate([labels[0], labels[-1], labels[:, 0], labels[:, -1]])
-    keep = np.zeros(labels.max() + 1, dtype=bool)
+    keep = np.zeros(count + 1, dtype=bool)
     keep[edge] = True
     keep[0] = False
     return keep
@@ -389,12 +398,15 @@ def _median_rows(x):
     return (part[..., half - 1] + part[..., half] + 0.0) / 2
 
 
+_RIDGE = {cols: 1e-9 * np.eye(cols) for cols in (3, 6)}  # keeps the normal equations regular
+
+
 def _fit_surface(planes, index, design, tolerance, iterations):
     """The fit of :func:`backdrop_model` on the ring pixels ``index`` (flat) with basis rows
     ``design``; returns the surface as planes, shape (3, h, w), float like ``planes``."""
     h, w = planes.shape[1:]
     pts_planes = planes.reshape(3, -1)[:, index].astype(float)
-    pts = pts_planes.T
+    pts = np.ascontiguousarray(pts_planes.T)  # rows gathered below: one block each
     coef = np.zeros((6, 3))
     coef[0] = _median_rows(pts_planes)
     fitted = None  # the inliers of the last full (quadratic) fit
@@ -412,7 +424,7 @@ def _fit_surface(planes, index, design, tolerance, iterations):
         cols = 3 if it == 0 else 6
         rows = np.flatnonzero(inlier)
         a = design.take(rows, axis=0)[:, :cols]
-        sol = np.linalg.solve(a.T @ a + 1e-9 * np.eye(cols), a.T @ pts.take(rows, axis=0))  # normal equations
+        sol = np.linalg.solve(a.T @ a + _RIDGE[cols], a.T @ pts.take(rows, axis=0))  # normal equations
         coef = np.zeros((6, 3))
         coef[:cols] = sol
         if cols == 6:
@@ -499,11 +511,12 @@ def _patch_bias(diff, width):
             diff[:, h // 2 :, -width:])
     worst = 0.0
     for group in (rows, cols):
-        if len({p.shape for p in group}) == 1:  # equal halves: one median call for the four
-            medians = np.median(np.stack([p.reshape(3, -1) for p in group]), axis=2)
+        if len({p.shape for p in group}) == 1:  # equal halves: one partition for the four
+            medians = _median_rows(np.stack([p.reshape(3, -1) for p in group]))
         else:
-            medians = np.stack([np.median(p.reshape(3, -1), axis=1) for p in group])
-        worst = max(worst, max(float(np.linalg.norm(m)) for m in medians))
+            medians = np.stack([_median_rows(p.reshape(3, -1)) for p in group])
+        # What np.linalg.norm computes for a vector: the square root of its dot with itself.
+        worst = max(worst, max(float(np.sqrt(m.dot(m))) for m in medians))
     return worst
 
 
@@ -545,6 +558,8 @@ def _centre_prior(shape):
 
 
 def _scene(shape, transparent):
+    if transparent is None:
+        return Mask(_centre_prior(shape), None, 0.0, True, SCENE_CONFIDENCE)
     weights = _centre_prior(shape) * ~transparent
     return Mask(weights, None, float(transparent.mean()), True, SCENE_CONFIDENCE)
 
@@ -604,17 +619,18 @@ def foreground_mask(
     h, w = jab.shape[:2]
     # Channel planes: every pass below runs over contiguous (h, w) arrays.
     planes = _planes(jab)
-    transparent = np.zeros((h, w), dtype=bool) if opaque is None else ~np.asarray(opaque, bool)
+    # Without alpha nothing is transparent: the shares below are counts over plain areas.
+    transparent = None if opaque is None else ~np.asarray(opaque, bool)
     width = max(1, int(round(ring_fraction * min(h, w))))
     ring = border_ring((h, w), width)
 
-    if transparent[ring].mean() >= 0.5:
+    if transparent is not None and transparent[ring].mean() >= 0.5:
         weights = (~transparent).astype(float)
         return Mask(weights, None, float(transparent.mean()), False, 1.0)
 
     ring_index, design = _ring_index(h, w, width, None if opaque is None else ~transparent)
     surface, ring_residual, inlier = _fit_surface(planes, ring_index, design, tolerance, 3)
-    share = float(inlier.mean())
+    share = np.count_nonzero(inlier) / inlier.size
     if share < uniform_share:
         return _scene((h, w), transparent)
     flat_surface = surface.reshape(3, -1)
@@ -639,14 +655,17 @@ def foreground_mask(
     coloured = (dj < 0.0) & (dj >= -shadow_depth) & (chroma_sq <= shadow_ab**2)
     # Curvature against the neighbours that could be backdrop or shadow by colour only (a
     # normalised 3 x 3 mean), so that a shadow beside a dark leg is not taken for an outline.
-    # Both 3 x 3 means in one filter call (size 1 across the stacked pair).
+    # Both 3 x 3 means at once: what ``uniform_filter(..., (1, 3, 3))`` runs, axis by axis.
     like_bool = coloured | near
-    like = like_bool.astype(lightness.dtype)
-    means = ndimage.uniform_filter(np.stack([like, lightness * like]), (1, 3, 3), mode="nearest")
+    means = np.empty((2, h, w), dtype=lightness.dtype)
+    means[0] = like_bool
+    np.multiply(lightness, means[0], out=means[1])
+    means = ndimage.uniform_filter1d(means, 3, axis=1, mode="nearest")
+    ndimage.uniform_filter1d(means, 3, axis=2, output=means, mode="nearest")
     local = means[1] / np.maximum(means[0], 1e-6)
     curvature = np.abs(lightness - local)
     smooth = curvature < np.maximum(SHADOW_CURVATURE, SHADOW_RELATIVE_CURVATURE * np.abs(dj))
-    shadow = coloured & smooth & (_edge_strength(lightness, like_bool) < shadow_edge)
+    shadow = coloured & smooth & _steps_below(lightness, like_bool, shadow_edge)
     # JPEG ringing beside a strong edge moves the backdrop by several ΔE: there, within
     # ``tolerance`` of the surface is enough (a light part's own outline is no strong edge).
     if step_sq is None:
@@ -655,22 +674,29 @@ def foreground_mask(
     ringing_zone = _dilate_cross(strong, 2)
     ringing = ringing_zone & (d2 <= tolerance**2)
     candidate = near | ringing
-    labels, _ = ndimage.label(candidate)
-    back = _connected_to_edge(labels)[labels]
+    labels, count = ndimage.label(candidate, _CROSS)
+    edge_regions = _connected_to_edge(labels, count)
+    flood = edge_regions[labels]
     # Shadows lie on the floor around the product and reach only so far from the backdrop: a
     # product as dark as its own contact shadow where it stands on it is not flooded beyond the
     # shadow's width, and a flat panel inside an opening is not taken for a shadow of it.
     reach = max(2, int(round(SHADOW_REACH * min(h, w))))
-    back = _grow_within(back, shadow, reach)
+    back = _grow_within(flood, shadow, reach)
     # Enclosed regions that continue the backdrop: regions within the opening tolerance, apart
     # from the flood, whose median colour lies as close to the surface as the backdrop's own
     # patches do. Shadow-coloured pixels do not join them, so a flat light panel set into an
     # opening (a mirror, a cane seat) is not swallowed with the gap around it.
-    labels, n = _label_box(candidate & ~back)
-    if n:
+    if back is flood or not (candidate & back & ~flood).any():
+        # The shadows took no candidate pixel: the regions are the flood's leftovers as labelled
+        # (numbers with no pixel left count nothing; each region's sums run in raster order).
+        labels[flood] = 0
+        n = count
+    else:
+        labels, n = _label_box(candidate & ~back)
+    inside = np.flatnonzero(labels)
+    if inside.size:
         bias = min(max(ENCLOSED_BIAS_FACTOR * _patch_bias(diff, width), ENCLOSED_MIN_DELTA_E), cap)
         # Only the pixels of the enclosed regions (raster order, as the sums always ran).
-        inside = np.flatnonzero(labels)
         region = labels.ravel()[inside]
         in_near = near.ravel()[inside]
         in_clear = in_near & ~ringing_zone.ravel()[inside]  # away from strong edges: own colour
@@ -690,7 +716,8 @@ def foreground_mask(
         keep = np.zeros(n + 1, dtype=bool)
         keep[1:] = (n_near[1:] > 0) & (np.sqrt((off**2).sum(axis=-1)) <= limit)
         back |= keep[labels]
-    back |= transparent
+    if transparent is not None:
+        back |= transparent
     # Shadow pixels in corners (a leg meeting its shadow) have too few smooth neighbours for the
     # curvature test; take those that continue a background neighbour within a small J' step.
     close_x = np.abs(lightness[:, 1:] - lightness[:, :-1]) < SHADOW_GROW_STEP
@@ -712,26 +739,39 @@ def foreground_mask(
         speck[0] = False
         back |= speck[left_labels]
     left = ~back
-    inner = ~ring & ~transparent
-    ring_left = float(left[ring & ~transparent].mean())
-    inner_left = float(left[inner].mean()) if inner.any() else ring_left
+    n_left = np.count_nonzero(left)
+    if transparent is None:
+        # Shares of plain areas: the inner box and the ring around it.
+        inner_box = left[width: h - width, width: w - width]
+        inner_size = inner_box.size
+        inner_count = np.count_nonzero(inner_box)
+        ring_left = (n_left - inner_count) / (h * w - inner_size)
+        inner_left = inner_count / inner_size if inner_size else ring_left
+        kept = left
+    else:
+        inner = ~ring & ~transparent
+        ring_left = float(left[ring & ~transparent].mean())
+        inner_left = float(left[inner].mean()) if inner.any() else ring_left
+        kept = left & ~transparent
     even = inner_left <= EVEN_LEFTOVER_RATIO * ring_left + EVEN_LEFTOVER_SLACK
     if even and not light:
+        if transparent is None:
+            return Mask(np.ones((h, w)), None, 0.0, False, FULL_FRAME_CONFIDENCE)
         weights = (~transparent).astype(float)
         return Mask(weights, None, float(transparent.mean()), False, FULL_FRAME_CONFIDENCE)
     confidence, flags = share, []
-    kept = left & ~transparent
-    kept_share = float(kept.mean())
+    kept_share = np.count_nonzero(kept) / kept.size
     if 0.0 < kept_share < SMALL_AREA_SHARE:
         flags.append(FLAG_SMALL_AREA)
         confidence = min(confidence, SMALL_AREA_CONFIDENCE)
     # Near the backdrop, leaving out the outline (its blends are always near).
     body = kept & ~_dilate_cross(back, 1)
-    if body.any():
-        close = float((d2[body] <= NEAR_BACKDROP_DELTA_E**2).mean())
+    n_body = np.count_nonzero(body)
+    if n_body:
+        close = np.count_nonzero(body & (d2 <= NEAR_BACKDROP_DELTA_E**2)) / n_body
         if close >= NEAR_BACKDROP_SHARE:
             flags.append(FLAG_NEAR_BACKDROP)
             confidence = min(confidence, NEAR_BACKDROP_CONFIDENCE)
     weights = left.astype(float)
-    return Mask(weights, background, float(back.mean()), False, confidence, tuple(flags),
+    return Mask(weights, background, (h * w - n_left) / (h * w), False, confidence, tuple(flags),
                 np.moveaxis(surface, 0, -1))
