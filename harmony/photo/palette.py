@@ -115,7 +115,9 @@ class Palette:
             raise ValueError(f"weights must have shape ({jab.shape[0]},), got {weights.shape}")
         if jab.shape[0] == 0:
             raise ValueError("a palette needs at least one colour")
-        if np.any(weights < 0) or not np.isclose(weights.sum(), 1.0, atol=1e-9):
+        # np.isclose(total, 1, atol=1e-9) for one number: |total - 1| <= 1e-9 + 1e-5 * 1.
+        total = float(weights.sum())
+        if np.any(weights < 0) or not abs(total - 1.0) <= 1e-9 + 1e-5:
             raise ValueError(f"weights must be non-negative and sum to 1, got sum {weights.sum()!r}")
         weights.setflags(write=False)
         object.__setattr__(self, "jab", jab)
@@ -350,6 +352,7 @@ def _kmeans_once(points, weights, k, rng, max_iter):
         closest = d_cand[:, best]
     centres = points[chosen].copy()
     assignment = None
+    weighted = weights * points.T  # each coordinate times the point's weight, (d, n)
     for _ in range(max_iter):
         d2 = _sq_dist(points, centres)
         new = np.argmin(d2, axis=1)
@@ -358,10 +361,7 @@ def _kmeans_once(points, weights, k, rng, max_iter):
         assignment = new
         mass = np.bincount(assignment, weights=weights, minlength=len(centres))
         used = mass > 0
-        sums = np.stack(
-            [np.bincount(assignment, weights=weights * points[:, c], minlength=len(centres)) for c in range(points.shape[1])],
-            axis=1,
-        )
+        sums = np.stack([np.bincount(assignment, weights=wc, minlength=len(centres)) for wc in weighted], axis=1)
         centres[used] = sums[used] / mass[used, None]
     inertia = float(weights @ _sq_dist(points, centres)[np.arange(n), assignment])
     used = np.bincount(assignment, minlength=len(centres)) > 0
@@ -414,22 +414,30 @@ def weighted_kmeans(points, weights, k, rng, max_iter=100, n_init=3):
 
 
 def _merge_close(centres, masses, limit):
-    """Merge the closest pair of colours while they are closer than ``limit`` (weighted means)."""
-    centres = [c for c in centres]
+    """Merge the closest pair of colours while they are closer than ``limit`` (weighted means).
+
+    The distances are computed once; a merge recomputes only the merged colour's row (the same
+    numbers a full recomputation gives)."""
+    centres = np.array(centres, dtype=float)
     masses = [float(m) for m in masses]
-    while len(centres) > 1:
-        arr = np.array(centres)
-        d = np.sqrt(_sq_dist(arr, arr))
-        np.fill_diagonal(d, np.inf)
-        i, j = np.unravel_index(int(np.argmin(d)), d.shape)
+    d = np.sqrt(_sq_dist(centres, centres))
+    np.fill_diagonal(d, np.inf)
+    while len(masses) > 1:
+        i, j = divmod(int(np.argmin(d)), len(masses))
         if not d[i, j] < limit:
             break
         i, j = min(i, j), max(i, j)
         total = masses[i] + masses[j]
         centres[i] = (masses[i] * centres[i] + masses[j] * centres[j]) / total
         masses[i] = total
-        del centres[j], masses[j]
-    return np.array(centres), np.array(masses)
+        del masses[j]
+        centres = np.delete(centres, j, axis=0)
+        d = np.delete(np.delete(d, j, axis=0), j, axis=1)
+        row = np.sqrt(_sq_dist(centres[i: i + 1], centres))[0]
+        row[i] = np.inf
+        d[i] = row
+        d[:, i] = row
+    return centres, np.array(masses)
 
 
 #: Levels per sRGB channel of the cached CAM02-UCS table (2 sRGB levels a cell: a pixel's J'a'b'
@@ -464,13 +472,14 @@ def _fill_table(blocks):
 
 
 def _jab_planes(channels, blocks=None):
-    """J'a'b' planes, shape (3, n) float32, of pixels given as three intp channel arrays (0-255).
+    """J'a'b' planes, shape (3, n) float32, of pixels given as channel planes, shape (3, n),
+    uint8.
 
     ``blocks`` lists the table blocks the pixels fall in, when the caller knows them."""
     shift = 8 - int(np.log2(FINE_LEVELS))
     fine = int(np.log2(FINE_LEVELS))
     side = FINE_LEVELS // _BLOCK
-    r, g, b = (c >> shift for c in channels)
+    r, g, b = (channels >> shift).astype(np.intp)
     if blocks is None:
         s = int(np.log2(_BLOCK))
         block = (((r >> s) * side + (g >> s)) * side) + (b >> s)
@@ -491,25 +500,23 @@ def srgb8_to_jab(srgb8):
     """
     srgb8 = np.asarray(srgb8, dtype=np.uint8)
     rgb = srgb8.reshape(-1, 3)
-    planes = _jab_planes([rgb[:, c].astype(np.intp) for c in range(3)])
+    planes = _jab_planes(np.ascontiguousarray(rgb.T))
     return np.moveaxis(planes.reshape((3,) + srgb8.shape[:-1]), 0, -1)
 
 
 def _bin_colours(srgb8, levels):
     """Quantise pixels into ``levels``^3 bins.
 
-    Returns the bin index of every pixel (into the occupied bins), the J'a'b' of every pixel
-    (:func:`srgb8_to_jab`) as planes, shape (3, n), and a function giving, for pixel weights,
-    the occupied bins with any weight and their weighted mean J'a'b' (so a product's bins are not
-    pulled towards backdrop pixels sharing a bin). No colour is converted twice.
+    Returns the bin index of every pixel (into the occupied bins), the number of occupied bins
+    and the J'a'b' of every pixel (:func:`srgb8_to_jab`) as planes, shape (3, n). No colour is
+    converted twice.
     """
     bits = levels.bit_length() - 1
-    rgb = srgb8.reshape(-1, 3)
-    channels = [rgb[:, c].astype(np.intp) for c in range(3)]
-    r, g, b = (c >> (8 - bits) for c in channels)
+    channels = np.ascontiguousarray(srgb8.reshape(-1, 3).T)
+    r, g, b = (channels >> (8 - bits)).astype(np.intp)
     code = (r << (2 * bits)) | (g << bits) | b
     counts = np.bincount(code, minlength=levels**3)
-    occupied = np.flatnonzero(counts)
+    occupied = np.flatnonzero(counts > 0)
     blocks = None
     coarse = bits - int(np.log2(FINE_LEVELS // _BLOCK))  # table blocks are 16 levels a side
     if coarse >= 0:  # the occupied bins name the table blocks the pixels fall in
@@ -520,20 +527,40 @@ def _bin_colours(srgb8, levels):
     pixel_planes = _jab_planes(channels, blocks)
     index = np.zeros(levels**3, dtype=np.intp)
     index[occupied] = np.arange(occupied.size)
-    inverse = index[code]
-    planes64 = pixel_planes.astype(float)
+    return index[code], occupied.size, pixel_planes
 
-    def weighted_means(weights):
-        # Pixels of weight 0 add nothing to any sum (x + 0.0 == x): leave them out.
-        some = np.flatnonzero(weights)
-        inv, wts = inverse[some], weights[some]
-        mass = np.bincount(inv, weights=wts, minlength=occupied.size)
-        used = np.flatnonzero(mass > 0)
-        sums = np.stack([np.bincount(inv, weights=wts * ch[some], minlength=occupied.size)[used]
-                         for ch in planes64], axis=1)
-        return used, sums / mass[used, None]
 
-    return inverse, pixel_planes, weighted_means
+def _bin_sums(inverse, n_bins, jab_planes, product, clean, inner):
+    """The occupied bins holding product, their J'a'b' (means weighted by ``product``, so a
+    product's bins are not pulled towards backdrop pixels sharing a bin) and their masses under
+    ``clean`` and ``inner``. Pixels of weight 0 add nothing to any sum (x + 0.0 == x): only the
+    product's pixels are summed, in raster order."""
+    some = np.flatnonzero(product)
+    inv = inverse[some]
+    wts = product[some]
+    mass = np.bincount(inv, weights=wts, minlength=n_bins)
+    bins = np.flatnonzero(mass > 0)
+    weighted = jab_planes.take(some, axis=1).astype(float)
+    weighted *= wts
+    sums = np.stack([np.bincount(inv, weights=ch, minlength=n_bins)[bins] for ch in weighted], axis=1)
+    jab = sums / mass[bins, None]
+    clean_mass = np.bincount(inv, weights=clean[some], minlength=n_bins)[bins]
+    inner_mass = np.bincount(inv, weights=inner[some], minlength=n_bins)[bins]
+    return bins, jab, clean_mass, inner_mass
+
+
+def _unmix(px, back, centres):
+    """For outline pixels ``px`` (planes, shape (3, n)) against the backdrop ``back`` there: the
+    nearest colour on the lines from the backdrop through each centre, and how far along it
+    (0-1). Plane by plane, in the order of a sum over the three channels."""
+    span = [centres[:, c][None, :] - back[c][:, None] for c in range(3)]  # (n, k) each
+    rel = [(px[c] - back[c])[:, None] for c in range(3)]
+    dot = rel[0] * span[0] + rel[1] * span[1] + rel[2] * span[2]
+    norm = span[0] * span[0] + span[1] * span[1] + span[2] * span[2]
+    alpha = np.clip(dot / np.maximum(norm, 1e-9), 0.0, 1.0)
+    resid = (rel[0] - alpha * span[0]) ** 2 + (rel[1] - alpha * span[1]) ** 2 + (rel[2] - alpha * span[2]) ** 2
+    k = np.argmin(resid, axis=1)
+    return k, alpha[np.arange(k.size), k]
 
 
 def palette_from_decoded(decoded, settings=PaletteSettings()):
@@ -544,7 +571,7 @@ def palette_from_decoded(decoded, settings=PaletteSettings()):
     from harmony.photo.mask import colour_step_sq, foreground_mask
 
     h, w = decoded.srgb8.shape[:2]
-    inverse, jab_planes, weighted_means = _bin_colours(decoded.srgb8, settings.levels)
+    inverse, n_bins, jab_planes = _bin_colours(decoded.srgb8, settings.levels)
     pixel_jab = np.moveaxis(jab_planes.reshape(3, h, w), 0, -1)  # a view of the planes
     step_sq = colour_step_sq(pixel_jab)
     mask = foreground_mask(
@@ -582,10 +609,7 @@ def palette_from_decoded(decoded, settings=PaletteSettings()):
     if clean.sum() < 16:
         clean = product
     inner = np.where(outline, 0.0, product)
-    bins, jab = weighted_means(product)
-    n_bins = int(inverse.max()) + 1
-    clean_mass = np.bincount(inverse, weights=clean, minlength=n_bins)[bins]
-    inner_mass = np.bincount(inverse, weights=inner, minlength=n_bins)[bins]
+    bins, jab, clean_mass, inner_mass = _bin_sums(inverse, n_bins, jab_planes, product, clean, inner)
     fit = clean_mass > 0
     rng = np.random.default_rng(settings.seed)
     # One k-means++ start: the greedy seeding with 2 + ln k trials per centre is already close
@@ -596,20 +620,15 @@ def palette_from_decoded(decoded, settings=PaletteSettings()):
     mass = np.bincount(nearest, weights=inner_mass, minlength=len(centres))
     edge = np.flatnonzero(outline)
     if edge.size:
-        px = jab_planes[:, edge].T.astype(float)
+        px = jab_planes.take(edge, axis=1).astype(float)
         if mask.backdrop is None:
-            d2 = _sq_dist(px, centres)
+            d2 = _sq_dist(px.T, centres)
             k = np.argmin(d2, axis=1)
             pure = d2[np.arange(edge.size), k] <= (settings.edge_delta_e / 2.0) ** 2
             mass += np.bincount(k[pure], weights=product[edge][pure], minlength=len(centres))
         else:
-            back = np.moveaxis(mask.backdrop, -1, 0).reshape(3, -1)[:, edge].T
-            span = centres[None, :, :] - back[:, None, :]  # (n, k, 3)
-            rel = (px - back)[:, None, :]
-            alpha = np.clip((rel * span).sum(-1) / np.maximum((span * span).sum(-1), 1e-9), 0.0, 1.0)
-            resid = ((rel - alpha[..., None] * span) ** 2).sum(-1)
-            k = np.argmin(resid, axis=1)
-            a = alpha[np.arange(edge.size), k]
+            back = np.moveaxis(mask.backdrop, -1, 0).reshape(3, -1).take(edge, axis=1)
+            k, a = _unmix(px, back, centres)
             mass += np.bincount(k, weights=a * product[edge], minlength=len(centres))
     centres, mass = centres[mass > 0], mass[mass > 0]
     centres, mass = _merge_close(centres, mass, settings.merge_delta_e)
