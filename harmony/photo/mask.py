@@ -340,15 +340,15 @@ def _grow_within(seed, allowed, steps):
 
 def _label_box(mask):
     """``scipy.ndimage.label(mask)`` (4-connected), run on the bounding box of ``mask`` only: the
-    box keeps the raster order, so the labels are the same."""
+    box keeps the raster order, so the labels are the same. Returns the labels of the box, their
+    number and the box (slices)."""
     rows = np.flatnonzero(mask.any(axis=1))
     if rows.size == 0:
-        return np.zeros(mask.shape, dtype=np.int32), 0
+        return np.zeros((0, 0), dtype=np.int32), 0, np.s_[0:0, 0:0]
     cols = np.flatnonzero(mask.any(axis=0))
     box = np.s_[rows[0]: rows[-1] + 1, cols[0]: cols[-1] + 1]
-    labels = np.zeros(mask.shape, dtype=np.int32)
-    labels[box], n = ndimage.label(mask[box], _CROSS)
-    return labels, n
+    labels, n = ndimage.label(mask[box], _CROSS)
+    return labels, n, box
 
 
 def _connected_to_edge(labels, count):
@@ -482,19 +482,23 @@ def backdrop_model(jab, ring, usable, tolerance, iterations=3):
 
 def _ring_steps(planes, surface, width, tolerance):
     """Largest ΔE between backdrop-like points 4 px apart along the four sides of the ring
-    (``planes`` and ``surface`` shape (3, h, w))."""
+    (``planes`` and ``surface`` shape (3, h, w)).
+
+    Each side's profile is its mean across the ring's width (``mean`` as numpy takes it: the sum,
+    then one division); sides of one length are taken together."""
+    h, w = planes.shape[1:]
     worst = 0.0
-    sides = (planes[:, :width].mean(axis=1), planes[:, -width:].mean(axis=1),
-             planes[:, :, :width].mean(axis=2), planes[:, :, -width:].mean(axis=2))
-    models = (surface[:, :width].mean(axis=1), surface[:, -width:].mean(axis=1),
-              surface[:, :, :width].mean(axis=2), surface[:, :, -width:].mean(axis=2))
-    for profile, model in zip(sides, models):
-        if profile.shape[1] < 6:
+    for across, length in ((1, w), (2, h)):  # top and bottom rows, then left and right columns
+        if length < 6:
             continue
-        ok = np.sqrt(((profile - model) ** 2).sum(axis=0)) <= tolerance
-        both = ok[4:] & ok[:-4]
+        ends = (np.s_[:, :width], np.s_[:, -width:]) if across == 1 else (np.s_[:, :, :width], np.s_[:, :, -width:])
+        count = planes[ends[0]].shape[across]
+        profile = np.stack([np.add.reduce(planes[end], axis=across) for end in ends]) / count
+        model = np.stack([np.add.reduce(surface[end], axis=across) for end in ends]) / count
+        ok = np.sqrt(((profile - model) ** 2).sum(axis=1)) <= tolerance
+        both = ok[:, 4:] & ok[:, :-4]
         if both.any():
-            step = ((profile[:, 4:] - profile[:, :-4]) ** 2).sum(axis=0)
+            step = ((profile[:, :, 4:] - profile[:, :, :-4]) ** 2).sum(axis=1)
             worst = max(worst, float(np.sqrt(step[both].max())))
     return worst
 
@@ -689,13 +693,16 @@ def foreground_mask(
     if back is flood or not (candidate & back & ~flood).any():
         # The shadows took no candidate pixel: the regions are the flood's leftovers as labelled
         # (numbers with no pixel left count nothing; each region's sums run in raster order).
-        labels[flood] = 0
+        relabel = np.arange(count + 1, dtype=labels.dtype)
+        relabel[edge_regions] = 0
+        labels = relabel[labels]
         n = count
     else:
-        labels, n = _label_box(candidate & ~back)
-    inside = np.flatnonzero(labels)
+        box_labels, n, box = _label_box(candidate & ~back)
+        labels = np.zeros((h, w), dtype=np.int32)
+        labels[box] = box_labels
+    inside = np.flatnonzero(labels != 0)
     if inside.size:
-        bias = min(max(ENCLOSED_BIAS_FACTOR * _patch_bias(diff, width), ENCLOSED_MIN_DELTA_E), cap)
         # Only the pixels of the enclosed regions (raster order, as the sums always ran).
         region = labels.ravel()[inside]
         in_near = near.ravel()[inside]
@@ -712,7 +719,10 @@ def foreground_mask(
                              for c in range(3)], axis=-1)[1:] / np.maximum(n_near[1:, None], 1)
         wide = n_clear[1:] >= ENCLOSED_CLEAR_PIXELS
         off = np.where(wide[:, None], off_clear, off_near)
-        limit = np.where(wide, bias, opening)
+        limit = opening
+        if wide.any():  # judged by their own colour against the backdrop's unevenness
+            bias = min(max(ENCLOSED_BIAS_FACTOR * _patch_bias(diff, width), ENCLOSED_MIN_DELTA_E), cap)
+            limit = np.where(wide, bias, opening)
         keep = np.zeros(n + 1, dtype=bool)
         keep[1:] = (n_near[1:] > 0) & (np.sqrt((off**2).sum(axis=-1)) <= limit)
         back |= keep[labels]
@@ -733,11 +743,11 @@ def foreground_mask(
             break
         back |= grow
     # Specks the flood went round (noise on a shadow failing the smoothness test) are background.
-    left_labels, m = _label_box(~back)
+    left_labels, m, box = _label_box(~back)
     if m:
         speck = np.bincount(left_labels.ravel(), minlength=m + 1) < max(3, int(0.0003 * h * w))
         speck[0] = False
-        back |= speck[left_labels]
+        back[box] |= speck[left_labels]
     left = ~back
     n_left = np.count_nonzero(left)
     if transparent is None:

@@ -417,12 +417,14 @@ def _merge_close(centres, masses, limit):
     """Merge the closest pair of colours while they are closer than ``limit`` (weighted means).
 
     The distances are computed once; a merge recomputes only the merged colour's row (the same
-    numbers a full recomputation gives)."""
+    numbers a full recomputation gives) and retires the other colour's row and column, so the
+    search runs over the live colours in their order."""
     centres = np.array(centres, dtype=float)
-    masses = [float(m) for m in masses]
+    masses = np.array(masses, dtype=float)
+    live = np.ones(len(masses), dtype=bool)
     d = np.sqrt(_sq_dist(centres, centres))
     np.fill_diagonal(d, np.inf)
-    while len(masses) > 1:
+    for _ in range(len(masses) - 1):
         i, j = divmod(int(np.argmin(d)), len(masses))
         if not d[i, j] < limit:
             break
@@ -430,14 +432,15 @@ def _merge_close(centres, masses, limit):
         total = masses[i] + masses[j]
         centres[i] = (masses[i] * centres[i] + masses[j] * centres[j]) / total
         masses[i] = total
-        del masses[j]
-        centres = np.delete(centres, j, axis=0)
-        d = np.delete(np.delete(d, j, axis=0), j, axis=1)
+        live[j] = False
         row = np.sqrt(_sq_dist(centres[i: i + 1], centres))[0]
         row[i] = np.inf
+        row[~live] = np.inf
         d[i] = row
         d[:, i] = row
-    return centres, np.array(masses)
+        d[j] = np.inf
+        d[:, j] = np.inf
+    return centres[live], masses[live]
 
 
 #: Levels per sRGB channel of the cached CAM02-UCS table (2 sRGB levels a cell: a pixel's J'a'b'
@@ -535,7 +538,7 @@ def _bin_sums(inverse, n_bins, jab_planes, product, clean, inner):
     product's bins are not pulled towards backdrop pixels sharing a bin) and their masses under
     ``clean`` and ``inner``. Pixels of weight 0 add nothing to any sum (x + 0.0 == x): only the
     product's pixels are summed, in raster order."""
-    some = np.flatnonzero(product)
+    some = np.flatnonzero(product != 0)
     inv = inverse[some]
     wts = product[some]
     mass = np.bincount(inv, weights=wts, minlength=n_bins)
