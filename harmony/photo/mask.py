@@ -265,6 +265,45 @@ def _planes(jab):
     return np.ascontiguousarray(np.moveaxis(jab, -1, 0))
 
 
+def _shadow(lightness, dj, coloured, like, flood, shadow_edge):
+    """Shadow pixels: shadow-coloured, smooth and without a step of ``shadow_edge`` to a
+    neighbour; decided only where it matters, outside the ``flood`` (elsewhere False).
+
+    Curvature is taken against the neighbours that could be backdrop or shadow by colour only
+    (``like``; a normalised 3 x 3 mean), so that a shadow beside a dark leg is not taken for an
+    outline. Both 3 x 3 means are what ``uniform_filter(..., (1, 3, 3))`` runs, axis by axis,
+    on the box around the pixels that matter. scipy keeps a running sum along each line (since
+    scipy 1.0); for J' from 1 to 128 in float32 (the palette's pixel table) every such sum is
+    exact in double, so a line started at the box gives the same bits as one started at the
+    image edge. Other input is filtered whole."""
+    h, w = lightness.shape
+    rows = np.flatnonzero((coloured & ~flood).any(axis=1))
+    shadow = np.zeros((h, w), dtype=bool)
+    if rows.size == 0:
+        return shadow
+    cols = np.flatnonzero((coloured & ~flood).any(axis=0))
+    inner = np.s_[rows[0]: rows[-1] + 1, cols[0]: cols[-1] + 1]
+    box = np.s_[max(rows[0] - 1, 0): rows[-1] + 2, max(cols[0] - 1, 0): cols[-1] + 2]
+    exact = lightness.dtype == np.float32 and 1.0 <= lightness.min() and lightness.max() < 128.0
+    if not exact:
+        box = np.s_[0:h, 0:w]
+    # ``inner`` as seen from inside ``box``
+    part = np.s_[inner[0].start - box[0].start: inner[0].stop - box[0].start,
+                 inner[1].start - box[1].start: inner[1].stop - box[1].start]
+    light, like_box = lightness[box], like[box]
+    means = np.empty((2,) + light.shape, dtype=light.dtype)
+    means[0] = like_box
+    np.multiply(light, means[0], out=means[1])
+    means = ndimage.uniform_filter1d(means, 3, axis=1, mode="nearest")
+    ndimage.uniform_filter1d(means, 3, axis=2, output=means, mode="nearest")
+    local = means[1] / np.maximum(means[0], 1e-6)
+    curvature = np.abs(light - local)
+    smooth = curvature < np.maximum(SHADOW_CURVATURE, SHADOW_RELATIVE_CURVATURE * np.abs(dj[box]))
+    found = coloured[box] & smooth & _steps_below(light, like_box, shadow_edge)
+    shadow[inner] = found[part]
+    return shadow
+
+
 def _steps_below(lightness, among, limit):
     """True where every absolute J' difference from a neighbour is below ``limit`` (finite
     values), counting only neighbours where ``among`` holds for both pixels; shape (h, w)."""
@@ -657,19 +696,6 @@ def foreground_mask(
     near = d2 <= opening**2
     lightness = planes[0]
     coloured = (dj < 0.0) & (dj >= -shadow_depth) & (chroma_sq <= shadow_ab**2)
-    # Curvature against the neighbours that could be backdrop or shadow by colour only (a
-    # normalised 3 x 3 mean), so that a shadow beside a dark leg is not taken for an outline.
-    # Both 3 x 3 means at once: what ``uniform_filter(..., (1, 3, 3))`` runs, axis by axis.
-    like_bool = coloured | near
-    means = np.empty((2, h, w), dtype=lightness.dtype)
-    means[0] = like_bool
-    np.multiply(lightness, means[0], out=means[1])
-    means = ndimage.uniform_filter1d(means, 3, axis=1, mode="nearest")
-    ndimage.uniform_filter1d(means, 3, axis=2, output=means, mode="nearest")
-    local = means[1] / np.maximum(means[0], 1e-6)
-    curvature = np.abs(lightness - local)
-    smooth = curvature < np.maximum(SHADOW_CURVATURE, SHADOW_RELATIVE_CURVATURE * np.abs(dj))
-    shadow = coloured & smooth & _steps_below(lightness, like_bool, shadow_edge)
     # JPEG ringing beside a strong edge moves the backdrop by several ΔE: there, within
     # ``tolerance`` of the surface is enough (a light part's own outline is no strong edge).
     if step_sq is None:
@@ -681,6 +707,7 @@ def foreground_mask(
     labels, count = ndimage.label(candidate, _CROSS)
     edge_regions = _connected_to_edge(labels, count)
     flood = edge_regions[labels]
+    shadow = _shadow(lightness, dj, coloured, coloured | near, flood, shadow_edge)
     # Shadows lie on the floor around the product and reach only so far from the backdrop: a
     # product as dark as its own contact shadow where it stands on it is not flooded beyond the
     # shadow's width, and a flat panel inside an opening is not taken for a shadow of it.
