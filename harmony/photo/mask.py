@@ -574,6 +574,42 @@ def _patch_bias(diff, width):
     return worst
 
 
+def _enclosed_backdrop(labels, n, near, ringing_zone, diff, opening, bias):
+    """Which of the ``n`` enclosed regions (``labels``) continue the backdrop: a lookup by label,
+    or None when no region has a pixel within the opening tolerance.
+
+    A region wide enough away from strong edges (:data:`ENCLOSED_CLEAR_PIXELS`) is judged by the
+    mean offset from the surface of those pixels, against ``bias()`` (the backdrop's own patch
+    unevenness, computed only then); a narrower one by the mean offset of its pixels within the
+    opening tolerance, against ``opening``. Means come from bincount (fast with many small
+    regions), over the pixels in raster order; the pixels are already within the opening
+    tolerance, so no outlier can pull a mean far."""
+    enclosed_near = (labels != 0) & near
+    pick_near = np.flatnonzero(enclosed_near)
+    if pick_near.size == 0:
+        return None
+    pick_clear = np.flatnonzero(enclosed_near & ~ringing_zone)  # away from strong edges: own colour
+    flat_labels, flat_diff = labels.ravel(), diff.reshape(3, -1)
+
+    def region_means(pick):
+        region = flat_labels[pick]
+        count = np.bincount(region, minlength=n + 1)
+        offsets = flat_diff[:, pick]
+        sums = np.stack([np.bincount(region, weights=offsets[c], minlength=n + 1) for c in range(3)], axis=-1)
+        return count[1:], sums[1:] / np.maximum(count[1:, None], 1)
+
+    n_near, off = region_means(pick_near)
+    n_clear = np.bincount(flat_labels[pick_clear], minlength=n + 1)[1:]
+    wide = n_clear >= ENCLOSED_CLEAR_PIXELS
+    limit = opening
+    if wide.any():  # judged by their own colour against the backdrop's unevenness
+        off = np.where(wide[:, None], region_means(pick_clear)[1], off)
+        limit = np.where(wide, bias(), opening)
+    keep = np.zeros(n + 1, dtype=bool)
+    keep[1:] = (n_near > 0) & (np.sqrt((off**2).sum(axis=-1)) <= limit)
+    return keep
+
+
 def _opening(residual, cap):
     """The opening tolerance from the ring's inlier residuals: ``OPENING_SPREAD_FACTOR`` times
     their 95th percentile (``np.percentile``), kept within [``OPENING_MIN_DELTA_E``, ``cap``].
@@ -739,30 +775,10 @@ def foreground_mask(
         box_labels, n, box = _label_box(candidate & ~back)
         labels = np.zeros((h, w), dtype=np.int32)
         labels[box] = box_labels
-    inside = np.flatnonzero(labels != 0)
-    if inside.size:
-        # Only the pixels of the enclosed regions (raster order, as the sums always ran).
-        region = labels.ravel()[inside]
-        in_near = near.ravel()[inside]
-        in_clear = in_near & ~ringing_zone.ravel()[inside]  # away from strong edges: own colour
-        offsets = diff.reshape(3, -1)[:, inside]
-        n_clear = np.bincount(region[in_clear], minlength=n + 1)
-        n_near = np.bincount(region[in_near], minlength=n + 1)
-        # Mean offsets (bincount: fast with many small regions); the pixels are already
-        # within the opening tolerance, so no outlier can pull a mean far.
-        sel_c, sel_n = region[in_clear], region[in_near]
-        off_clear = np.stack([np.bincount(sel_c, weights=offsets[c][in_clear], minlength=n + 1)
-                              for c in range(3)], axis=-1)[1:] / np.maximum(n_clear[1:, None], 1)
-        off_near = np.stack([np.bincount(sel_n, weights=offsets[c][in_near], minlength=n + 1)
-                             for c in range(3)], axis=-1)[1:] / np.maximum(n_near[1:, None], 1)
-        wide = n_clear[1:] >= ENCLOSED_CLEAR_PIXELS
-        off = np.where(wide[:, None], off_clear, off_near)
-        limit = opening
-        if wide.any():  # judged by their own colour against the backdrop's unevenness
-            bias = min(max(ENCLOSED_BIAS_FACTOR * _patch_bias(diff, width), ENCLOSED_MIN_DELTA_E), cap)
-            limit = np.where(wide, bias, opening)
-        keep = np.zeros(n + 1, dtype=bool)
-        keep[1:] = (n_near[1:] > 0) & (np.sqrt((off**2).sum(axis=-1)) <= limit)
+    keep = _enclosed_backdrop(labels, n, near, ringing_zone, diff, opening,
+                              lambda: min(max(ENCLOSED_BIAS_FACTOR * _patch_bias(diff, width),
+                                              ENCLOSED_MIN_DELTA_E), cap))
+    if keep is not None:
         back |= keep[labels]
     if transparent is not None:
         back |= transparent
