@@ -5,6 +5,7 @@ A :class:`Palette` is what every later stage (scores, screen, sets, feeds, repor
 
 import json
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 
@@ -447,6 +448,8 @@ def _merge_close(centres, masses, limit):
 #: is that of its cell's centre, within about 0.4 ΔE of its own).
 FINE_LEVELS = 128
 _BLOCK = 8  # cells per block side: the table is filled a block of 8 x 8 x 8 cells at a time
+#: The table: one row of J'a'b' per cell, block by block (row ``block * 512 + cell in block``),
+#: so the few blocks a photo touches lie together in memory.
 _TABLE = None
 _DONE = None
 
@@ -457,8 +460,7 @@ def _fill_table(blocks):
     shift = 8 - int(np.log2(FINE_LEVELS))
     side = FINE_LEVELS // _BLOCK
     if _TABLE is None:
-        # Channel-first, so that a lookup yields three contiguous planes.
-        _TABLE = np.empty((3, FINE_LEVELS**3), dtype=np.float32)
+        _TABLE = np.empty((FINE_LEVELS**3, 3), dtype=np.float32)
         _DONE = np.zeros(side**3, dtype=bool)
     missing = blocks[~_DONE[blocks]]
     if len(missing):
@@ -469,27 +471,49 @@ def _fill_table(blocks):
             b1, b2 = divmod(rest, side)
             cells = local + np.array([b0, b1, b2]) * _BLOCK
             centre = (cells * (1 << shift) + ((1 << shift) - 1) / 2.0) / 255.0
-            codes = (cells[:, 0] * FINE_LEVELS + cells[:, 1]) * FINE_LEVELS + cells[:, 2]
-            _TABLE[:, codes] = colour.srgb1_to_jab(centre).T
+            start = int(b) * _BLOCK**3
+            _TABLE[start: start + _BLOCK**3] = colour.srgb1_to_jab(centre)
             _DONE[b] = True
 
 
-def _jab_planes(channels, blocks=None):
-    """J'a'b' planes, shape (3, n) float32, of pixels given as channel planes, shape (3, n),
-    uint8.
+@lru_cache(maxsize=8)
+def _channel_codes(levels):
+    """Per 8-bit channel value (rows: red, green, blue; 256 columns), its part of a pixel's
+    table row (in the high bits, from bit 24) and of its bin at ``levels`` per channel (the low
+    bits): a pixel's codes are the sum of its three channels' parts."""
+    value = np.arange(256)
+    fine = value >> (8 - int(np.log2(FINE_LEVELS)))
+    block, cell = fine // _BLOCK, fine % _BLOCK
+    side = FINE_LEVELS // _BLOCK
+    bits = levels.bit_length() - 1
+    coarse = value >> (8 - bits)
+    parts = []
+    for axis in range(3):
+        up = 2 - axis  # red is the most significant
+        row = (block * side**up * _BLOCK**3 + cell * _BLOCK**up) << 24
+        parts.append(row + (coarse << (bits * up)))
+    parts = np.array(parts)
+    parts.setflags(write=False)
+    return parts
+
+
+def _pixel_codes(channels, levels):
+    """Table rows and bins (``levels`` per channel) of pixels given as channel planes, shape
+    (3, n), uint8."""
+    parts = _channel_codes(levels)
+    both = parts[0].take(channels[0]) + parts[1].take(channels[1]) + parts[2].take(channels[2])
+    return both >> 24, both & ((1 << 24) - 1)
+
+
+def _jab_planes(rows, blocks=None):
+    """J'a'b' planes, shape (3, n) float32, of pixels given by their table rows.
 
     ``blocks`` lists the table blocks the pixels fall in, when the caller knows them."""
-    shift = 8 - int(np.log2(FINE_LEVELS))
-    fine = int(np.log2(FINE_LEVELS))
-    side = FINE_LEVELS // _BLOCK
-    r, g, b = (channels >> shift).astype(np.intp)
     if blocks is None:
-        s = int(np.log2(_BLOCK))
-        block = (((r >> s) * side + (g >> s)) * side) + (b >> s)
-        blocks = np.flatnonzero(np.bincount(block, minlength=side**3))
+        side = FINE_LEVELS // _BLOCK
+        blocks = np.flatnonzero(np.bincount(rows // _BLOCK**3, minlength=side**3))
     _fill_table(blocks)
-    code = (r << (2 * fine)) | (g << fine) | b
-    return _TABLE.take(code, axis=1)
+    return np.ascontiguousarray(_TABLE.take(rows, axis=0).T)
 
 
 def srgb8_to_jab(srgb8):
@@ -503,7 +527,8 @@ def srgb8_to_jab(srgb8):
     """
     srgb8 = np.asarray(srgb8, dtype=np.uint8)
     rgb = srgb8.reshape(-1, 3)
-    planes = _jab_planes(np.ascontiguousarray(rgb.T))
+    rows, _ = _pixel_codes(np.ascontiguousarray(rgb.T), 8)
+    planes = _jab_planes(rows)
     return np.moveaxis(planes.reshape((3,) + srgb8.shape[:-1]), 0, -1)
 
 
@@ -515,9 +540,7 @@ def _bin_colours(srgb8, levels):
     converted twice.
     """
     bits = levels.bit_length() - 1
-    channels = np.ascontiguousarray(srgb8.reshape(-1, 3).T)
-    r, g, b = (channels >> (8 - bits)).astype(np.intp)
-    code = (r << (2 * bits)) | (g << bits) | b
+    rows, code = _pixel_codes(np.ascontiguousarray(srgb8.reshape(-1, 3).T), levels)
     counts = np.bincount(code, minlength=levels**3)
     occupied = np.flatnonzero(counts > 0)
     blocks = None
@@ -527,7 +550,7 @@ def _bin_colours(srgb8, levels):
         br, bg, bb = (occupied >> (2 * bits)) >> coarse, ((occupied >> bits) & (levels - 1)) >> coarse, \
             (occupied & (levels - 1)) >> coarse
         blocks = np.unique((br * side + bg) * side + bb)
-    pixel_planes = _jab_planes(channels, blocks)
+    pixel_planes = _jab_planes(rows, blocks)
     index = np.zeros(levels**3, dtype=np.intp)
     index[occupied] = np.arange(occupied.size)
     return index[code], occupied.size, pixel_planes
