@@ -471,21 +471,29 @@ _RIDGE = {cols: 1e-9 * np.eye(cols) for cols in (3, 6)}  # keeps the normal equa
 
 def _fit_surface(planes, index, design, tolerance, iterations):
     """The fit of :func:`backdrop_model` on the ring pixels ``index`` (flat) with basis rows
-    ``design``; returns the surface as planes, shape (3, h, w), float like ``planes``."""
+    ``design``; returns the surface as planes, shape (3, h, w), float like ``planes``.
+
+    The fitted ring colours come from the same matrix products in either orientation (one
+    product per element, the same bits), here as planes; the median start is the constant
+    itself (``design @ coef`` with only the first row gives it exactly)."""
     h, w = planes.shape[1:]
-    pts_planes = planes.reshape(3, -1)[:, index].astype(float)
-    pts = np.ascontiguousarray(pts_planes.T)  # rows gathered below: one block each
+    pts = np.ascontiguousarray(planes.reshape(3, -1)[:, index].astype(float).T)  # rows, for the solves
+    pts_planes = np.ascontiguousarray(pts.T)
+    design_planes = np.ascontiguousarray(design.T)
     coef = np.zeros((6, 3))
     coef[0] = _median_rows(pts_planes)
     fitted = None  # the inliers of the last full (quadratic) fit
     for it in range(iterations + 1):
-        sq = pts - design @ coef
+        if it == 0:
+            sq = pts_planes - coef[0][:, None]
+        else:
+            sq = pts_planes - np.ascontiguousarray(coef.T) @ design_planes
         sq *= sq
-        residual = np.sqrt(sq[:, 0] + sq[:, 1] + sq[:, 2])
+        residual = np.sqrt(sq[0] + sq[1] + sq[2])
         # Widen the first inlier test: a sweep's ring is far from its median colour.
         limit = tolerance if it else max(tolerance, 2.5 * float(_median_rows(residual)))
         inlier = residual <= limit
-        if it == iterations or inlier.sum() < 12:
+        if it == iterations or np.count_nonzero(inlier) < 12:
             break
         if fitted is not None and np.array_equal(inlier, fitted):
             break  # a fixed point: every further fit gives the same coefficients
