@@ -370,6 +370,32 @@ def _kmeans_once(points, weights, k, rng, max_iter):
     return inertia, centres[used], remap[assignment]
 
 
+class _SeededDraws:
+    """The uniform draws of ``numpy.random.default_rng(seed).random`` in order, one or a few at a
+    time, which is all :func:`weighted_kmeans` asks of its generator (one start of ``k``
+    centres). The run is made once per seed and k and kept: a fresh generator costs more than the
+    k-means on a small photo."""
+
+    def __init__(self, seed, k):
+        self._values = _uniform_run(seed, 1 + (k - 1) * (2 + int(np.log(k))))
+        self._at = 0
+
+    def random(self, size=None):
+        at = self._at
+        if size is None:
+            self._at = at + 1
+            return float(self._values[at])
+        self._at = at + size
+        return self._values[at: at + size].copy()
+
+
+@lru_cache(maxsize=16)
+def _uniform_run(seed, count):
+    values = np.random.default_rng(seed).random(count)
+    values.setflags(write=False)
+    return values
+
+
 def weighted_kmeans(points, weights, k, rng, max_iter=100, n_init=3):
     """Lloyd's k-means with point weights and a greedy k-means++ start; best of ``n_init`` starts.
 
@@ -421,27 +447,29 @@ def _merge_close(centres, masses, limit):
     numbers a full recomputation gives) and retires the other colour's row and column, so the
     search runs over the live colours in their order."""
     centres = np.array(centres, dtype=float)
-    masses = np.array(masses, dtype=float)
-    live = np.ones(len(masses), dtype=bool)
+    masses = [float(m) for m in masses]
+    m = len(masses)
+    retired = np.zeros(m)  # 0 for a live colour, inf for a merged one
     d = np.sqrt(_sq_dist(centres, centres))
     np.fill_diagonal(d, np.inf)
-    for _ in range(len(masses) - 1):
-        i, j = divmod(int(np.argmin(d)), len(masses))
+    for _ in range(m - 1):
+        i, j = divmod(int(d.argmin()), m)
         if not d[i, j] < limit:
             break
         i, j = min(i, j), max(i, j)
-        total = masses[i] + masses[j]
-        centres[i] = (masses[i] * centres[i] + masses[j] * centres[j]) / total
+        mi, mj = masses[i], masses[j]
+        total = mi + mj
+        centres[i] = [(mi * a + mj * b) / total for a, b in zip(centres[i].tolist(), centres[j].tolist())]
         masses[i] = total
-        live[j] = False
-        row = np.sqrt(_sq_dist(centres[i: i + 1], centres))[0]
+        retired[j] = np.inf
+        row = np.sqrt(_sq_dist(centres[i: i + 1], centres))[0] + retired
         row[i] = np.inf
-        row[~live] = np.inf
         d[i] = row
         d[:, i] = row
         d[j] = np.inf
         d[:, j] = np.inf
-    return centres[live], masses[live]
+    live = retired == 0
+    return centres[live], np.array(masses)[live]
 
 
 #: Levels per sRGB channel of the cached CAM02-UCS table (2 sRGB levels a cell: a pixel's J'a'b'
@@ -560,19 +588,22 @@ def _bin_sums(inverse, n_bins, jab_planes, product, clean, inner):
     """The occupied bins holding product, their J'a'b' (means weighted by ``product``, so a
     product's bins are not pulled towards backdrop pixels sharing a bin) and their masses under
     ``clean`` and ``inner``. Pixels of weight 0 add nothing to any sum (x + 0.0 == x): only the
-    product's pixels are summed, in raster order."""
+    product's pixels are summed, in raster order, all six sums by one bincount (each bin's sum
+    still runs over its pixels in order)."""
     some = np.flatnonzero(product != 0)
     inv = inverse[some]
-    wts = product[some]
-    mass = np.bincount(inv, weights=wts, minlength=n_bins)
+    values = np.empty((6, some.size))
+    values[0] = product[some]
+    values[1:4] = jab_planes.take(some, axis=1)
+    values[1:4] *= values[0]
+    values[4] = clean[some]
+    values[5] = inner[some]
+    where = inv + (n_bins * np.arange(6))[:, None]
+    sums = np.bincount(where.ravel(), weights=values.ravel(), minlength=6 * n_bins).reshape(6, n_bins)
+    mass = sums[0]
     bins = np.flatnonzero(mass > 0)
-    weighted = jab_planes.take(some, axis=1).astype(float)
-    weighted *= wts
-    sums = np.stack([np.bincount(inv, weights=ch, minlength=n_bins)[bins] for ch in weighted], axis=1)
-    jab = sums / mass[bins, None]
-    clean_mass = np.bincount(inv, weights=clean[some], minlength=n_bins)[bins]
-    inner_mass = np.bincount(inv, weights=inner[some], minlength=n_bins)[bins]
-    return bins, jab, clean_mass, inner_mass
+    jab = sums[1:4, bins].T / mass[bins, None]
+    return bins, jab, sums[4, bins], sums[5, bins]
 
 
 def _unmix(px, back, centres):
@@ -637,7 +668,7 @@ def palette_from_decoded(decoded, settings=PaletteSettings()):
     inner = np.where(outline, 0.0, product)
     bins, jab, clean_mass, inner_mass = _bin_sums(inverse, n_bins, jab_planes, product, clean, inner)
     fit = clean_mass > 0
-    rng = np.random.default_rng(settings.seed)
+    rng = _SeededDraws(settings.seed, settings.colours)
     # One k-means++ start: the greedy seeding with 2 + ln k trials per centre is already close
     # to the best of several starts on these few thousand bins (the ColorChecker chart at k = 24
     # comes out the same with 1 to 6 starts), and each start costs as much as the rest.
