@@ -590,25 +590,38 @@ def _ring_steps(planes, surface, width, tolerance):
     return worst
 
 
+@lru_cache(maxsize=16)
+def _patch_index(h, w, width):
+    """Flat pixel indices of the eight border patches of :func:`_patch_bias`, shape (8, m) (rows
+    of the top and bottom halves first, then the columns' halves), or None when the patches
+    differ in size."""
+    flat = np.arange(h * w).reshape(h, w)
+    patches = [flat[:width, : w // 2], flat[:width, w // 2:], flat[-width:, : w // 2], flat[-width:, w // 2:],
+               flat[: h // 2, :width], flat[h // 2:, :width], flat[: h // 2, -width:], flat[h // 2:, -width:]]
+    if len({p.size for p in patches}) != 1:
+        return None
+    index = np.stack([p.ravel() for p in patches])
+    index.setflags(write=False)
+    return index
+
+
 def _patch_bias(diff, width):
     """Largest ΔE of a border patch's median colour from the surface: the backdrop's own unevenness.
 
     The ring is cut into eight patches (each side in two halves); ``diff`` is J'a'b' minus the
-    fitted surface as planes, shape (3, h, w)."""
+    fitted surface as planes, shape (3, h, w). A median does not depend on the order of the
+    pixels, so patches of one size are gathered and partitioned together."""
     h, w = diff.shape[1:]
-    rows = (diff[:, :width, : w // 2], diff[:, :width, w // 2 :], diff[:, -width:, : w // 2],
-            diff[:, -width:, w // 2 :])
-    cols = (diff[:, : h // 2, :width], diff[:, h // 2 :, :width], diff[:, : h // 2, -width:],
-            diff[:, h // 2 :, -width:])
-    worst = 0.0
-    for group in (rows, cols):
-        if len({p.shape for p in group}) == 1:  # equal halves: one partition for the four
-            medians = _median_rows(np.stack([p.reshape(3, -1) for p in group]))
-        else:
-            medians = np.stack([_median_rows(p.reshape(3, -1)) for p in group])
-        # What np.linalg.norm computes for a vector: the square root of its dot with itself.
-        worst = max(worst, max(float(np.sqrt(m.dot(m))) for m in medians))
-    return worst
+    index = _patch_index(h, w, width)
+    if index is not None:
+        medians = np.ascontiguousarray(_median_rows(diff.reshape(3, -1)[:, index]).T)  # (8, 3)
+    else:
+        patches = (diff[:, :width, : w // 2], diff[:, :width, w // 2 :], diff[:, -width:, : w // 2],
+                   diff[:, -width:, w // 2 :], diff[:, : h // 2, :width], diff[:, h // 2 :, :width],
+                   diff[:, : h // 2, -width:], diff[:, h // 2 :, -width:])
+        medians = np.stack([_median_rows(p.reshape(3, -1)) for p in patches])
+    # What np.linalg.norm computes for a vector: the square root of its dot with itself.
+    return max(0.0, max(float(np.sqrt(m.dot(m))) for m in medians))
 
 
 def _enclosed_backdrop(labels, n, near, ringing_zone, diff, opening, bias):
