@@ -291,10 +291,13 @@ def _shadow(lightness, dj, coloured, like, flood, shadow_edge):
     part = np.s_[inner[0].start - box[0].start: inner[0].stop - box[0].start,
                  inner[1].start - box[1].start: inner[1].stop - box[1].start]
     light, like_box = lightness[box], like[box]
-    means = np.empty((2,) + light.shape, dtype=light.dtype)
-    means[0] = like_box
-    np.multiply(light, means[0], out=means[1])
-    means = ndimage.uniform_filter1d(means, 3, axis=1, mode="nearest")
+    # The first pass runs down the columns: on a transposed copy, each column is one contiguous
+    # line (the same values in the same order, so the same sums), which scipy runs far faster.
+    across = np.empty((2,) + light.shape[::-1], dtype=light.dtype)
+    across[0] = like_box.T
+    np.multiply(light.T, across[0], out=across[1])
+    across = ndimage.uniform_filter1d(across, 3, axis=2, mode="nearest")
+    means = np.ascontiguousarray(across.transpose(0, 2, 1))
     ndimage.uniform_filter1d(means, 3, axis=2, output=means, mode="nearest")
     local = means[1] / np.maximum(means[0], 1e-6)
     curvature = np.abs(light - local)
@@ -309,17 +312,15 @@ def _steps_below(lightness, among, limit):
     values), counting only neighbours where ``among`` holds for both pixels; shape (h, w)."""
     if not limit > 0:
         return np.zeros(lightness.shape, dtype=bool)
-    steep_x = np.abs(lightness[:, 1:] - lightness[:, :-1]) >= limit
-    steep_y = np.abs(lightness[1:, :] - lightness[:-1, :]) >= limit
-    steep_x &= among[:, 1:]
-    steep_x &= among[:, :-1]
-    steep_y &= among[1:, :]
-    steep_y &= among[:-1, :]
+    calm_x = np.abs(lightness[:, 1:] - lightness[:, :-1]) < limit
+    calm_x |= ~(among[:, 1:] & among[:, :-1])
+    calm_y = np.abs(lightness[1:, :] - lightness[:-1, :]) < limit
+    calm_y |= ~(among[1:, :] & among[:-1, :])
     ok = np.ones(lightness.shape, dtype=bool)
-    ok[:, :-1] &= ~steep_x
-    ok[:, 1:] &= ~steep_x
-    ok[:-1, :] &= ~steep_y
-    ok[1:, :] &= ~steep_y
+    ok[:, :-1] &= calm_x
+    ok[:, 1:] &= calm_x
+    ok[:-1, :] &= calm_y
+    ok[1:, :] &= calm_y
     return ok
 
 
