@@ -407,6 +407,28 @@ def _grow_within(seed, allowed, steps):
     return out
 
 
+def _grow_corners(back, coloured, lightness, steps):
+    """``steps`` rounds of adding the ``coloured`` pixels beside ``back`` whose J' differs from
+    that neighbour's by less than :data:`SHADOW_GROW_STEP`, as bit operations (:func:`_bits`):
+    a neighbour pair is kept at the pixel with the smaller index."""
+    h, w = back.shape
+    stride = w + 1
+    close = np.zeros((2, h, w), dtype=bool)
+    close[0, :, :-1] = np.abs(lightness[:, 1:] - lightness[:, :-1]) < SHADOW_GROW_STEP
+    close[1, :-1, :] = np.abs(lightness[1:, :] - lightness[:-1, :]) < SHADOW_GROW_STEP
+    close_x, close_y = _bits(close[0], stride), _bits(close[1], stride)
+    start = grown = _bits(back, stride)
+    free = _bits(coloured & ~back, stride)
+    for _ in range(steps):
+        reached = ((grown & close_y) << stride | (grown >> stride) & close_y
+                   | (grown & close_x) << 1 | (grown >> 1) & close_x)
+        new = reached & free & ~grown
+        if not new:
+            break
+        grown |= new
+    return back if grown == start else _unbits(grown, (h, w), stride)
+
+
 def _label_box(mask):
     """``scipy.ndimage.label(mask)`` (4-connected), run on the bounding box of ``mask`` only: the
     box keeps the raster order, so the labels are the same. Returns the labels of the box, their
@@ -835,18 +857,7 @@ def foreground_mask(
         back |= transparent
     # Shadow pixels in corners (a leg meeting its shadow) have too few smooth neighbours for the
     # curvature test; take those that continue a background neighbour within a small J' step.
-    close_x = np.abs(lightness[:, 1:] - lightness[:, :-1]) < SHADOW_GROW_STEP
-    close_y = np.abs(lightness[1:, :] - lightness[:-1, :]) < SHADOW_GROW_STEP
-    for _ in range(2):
-        reached = np.zeros((h, w), dtype=bool)
-        reached[1:] |= back[:-1] & close_y
-        reached[:-1] |= back[1:] & close_y
-        reached[:, 1:] |= back[:, :-1] & close_x
-        reached[:, :-1] |= back[:, 1:] & close_x
-        grow = coloured & ~back & reached
-        if not grow.any():
-            break
-        back |= grow
+    back = _grow_corners(back, coloured, lightness, 2)
     # Specks the flood went round (noise on a shadow failing the smoothness test) are background.
     left_labels, m, box = _label_box(~back)
     if m:
