@@ -330,16 +330,16 @@ def colour_step_sq(jab):
     ``jab`` has shape (h, w, 3); the sums run over J', a', b' in that order."""
     planes = _planes(np.asarray(jab))
     h, w = planes.shape[1:]
-    dx = np.zeros((h, w - 1), dtype=planes.dtype)
-    dy = np.zeros((h - 1, w), dtype=planes.dtype)
-    for plane in planes:
-        dx += (plane[:, 1:] - plane[:, :-1]) ** 2
-        dy += (plane[1:, :] - plane[:-1, :]) ** 2
     step = np.zeros((h, w), dtype=planes.dtype)
-    np.maximum(step[:, :-1], dx, out=step[:, :-1])
-    np.maximum(step[:, 1:], dx, out=step[:, 1:])
-    np.maximum(step[:-1, :], dy, out=step[:-1, :])
-    np.maximum(step[1:, :], dy, out=step[1:, :])
+    for axis in (2, 1):  # across, then down
+        d = np.diff(planes, axis=axis)
+        d *= d
+        sq = d[0] + d[1]
+        sq += d[2]
+        lead = (slice(None), slice(None, -1)) if axis == 2 else (slice(None, -1), slice(None))
+        trail = (slice(None), slice(1, None)) if axis == 2 else (slice(1, None), slice(None))
+        np.maximum(step[lead], sq, out=step[lead])
+        np.maximum(step[trail], sq, out=step[trail])
     return step
 
 
