@@ -68,6 +68,9 @@ from functools import lru_cache
 import numpy as np
 from scipy import ndimage
 
+from harmony.photo.regions import CROSS, connected_to_edge, dilate_cross, grow_along, grow_within, label_box
+from harmony.photo.surface import basis, border_ring, fit_surface, median_rows, ring_basis, ring_index
+
 __all__ = [
     "Mask",
     "SCENE_CONFIDENCE",
@@ -250,15 +253,6 @@ class Mask:
     backdrop: np.ndarray | None = None
 
 
-def border_ring(shape, width):
-    """Boolean mask of the pixels within ``width`` of the image edge, shape ``shape`` (h, w)."""
-    h, w = shape
-    ring = np.zeros((h, w), dtype=bool)
-    ring[:width, :] = ring[-width:, :] = True
-    ring[:, :width] = ring[:, -width:] = True
-    return ring
-
-
 def _planes(jab):
     """J'a'b' as three contiguous (h, w) planes, shape (3, h, w); no copy when ``jab`` is a view
     of channel-first memory (as :func:`harmony.photo.palette.srgb8_to_jab` returns)."""
@@ -343,204 +337,6 @@ def colour_step_sq(jab):
     return step
 
 
-#: The 4-neighbour cross, ``scipy.ndimage.generate_binary_structure(2, 1)`` (the default of
-#: ``label`` and ``binary_dilation`` in two dimensions), made once.
-_CROSS = ndimage.generate_binary_structure(2, 1)
-
-
-def _dilate_cross(mask, times=1):
-    """``scipy.ndimage.binary_dilation(mask, iterations=times)`` with its default cross (4-neighbour)
-    structure and a False border: the pixels within city-block distance ``times`` of ``mask``."""
-    out = mask
-    for _ in range(times):
-        grown = out.copy()
-        grown[1:] |= out[:-1]
-        grown[:-1] |= out[1:]
-        grown[:, 1:] |= out[:, :-1]
-        grown[:, :-1] |= out[:, 1:]
-        out = grown
-    return out
-
-
-def _bits(mask, stride):
-    """A boolean (h, w) array as one integer, bit ``r * stride + c`` for pixel (r, c); columns
-    from ``w`` to ``stride - 1`` are zero (a guard, so that shifts by one do not wrap rows)."""
-    h, w = mask.shape
-    padded = np.zeros((h, stride), dtype=bool)
-    padded[:, :w] = mask
-    return int.from_bytes(np.packbits(padded, axis=None, bitorder="little").tobytes(), "little")
-
-
-def _unbits(value, shape, stride):
-    """The inverse of :func:`_bits`."""
-    h, w = shape
-    raw = np.frombuffer(value.to_bytes((h * stride + 7) // 8, "little"), dtype=np.uint8)
-    return np.unpackbits(raw, count=h * stride, bitorder="little").reshape(h, stride)[:, :w].astype(bool)
-
-
-def _grow_within(seed, allowed, steps):
-    """``scipy.ndimage.binary_dilation(seed, iterations=steps, mask=seed | allowed)`` (the 4-neighbour
-    cross, nothing beyond the edge), run only on the bounding box of the pixels it may add (plus
-    one pixel): every path of the growth runs through those pixels, so the result is the same.
-
-    The box is grown as one integer, a bit per pixel (:func:`_bits`): each step is a handful of
-    shifts, or-s and one and over the whole box, where ``binary_dilation`` visits pixel by
-    pixel."""
-    free = allowed & ~seed
-    rows = np.flatnonzero(free.any(axis=1))
-    if rows.size == 0:
-        return seed
-    cols = np.flatnonzero(free.any(axis=0))
-    h, w = seed.shape
-    box = np.s_[max(rows[0] - 1, 0): min(rows[-1] + 2, h), max(cols[0] - 1, 0): min(cols[-1] + 2, w)]
-    inside = seed[box]
-    stride = inside.shape[1] + 1
-    grown = _bits(inside, stride)
-    within = _bits(inside | allowed[box], stride)
-    for _ in range(steps):
-        step = (grown | grown << 1 | grown >> 1 | grown << stride | grown >> stride) & within
-        if step == grown:
-            break
-        grown = step
-    out = seed.copy()
-    out[box] = _unbits(grown, inside.shape, stride)
-    return out
-
-
-def _grow_corners(back, coloured, lightness, steps):
-    """``steps`` rounds of adding the ``coloured`` pixels beside ``back`` whose J' differs from
-    that neighbour's by less than :data:`SHADOW_GROW_STEP`, as bit operations (:func:`_bits`):
-    a neighbour pair is kept at the pixel with the smaller index."""
-    h, w = back.shape
-    stride = w + 1
-    close = np.zeros((2, h, w), dtype=bool)
-    close[0, :, :-1] = np.abs(lightness[:, 1:] - lightness[:, :-1]) < SHADOW_GROW_STEP
-    close[1, :-1, :] = np.abs(lightness[1:, :] - lightness[:-1, :]) < SHADOW_GROW_STEP
-    close_x, close_y = _bits(close[0], stride), _bits(close[1], stride)
-    start = grown = _bits(back, stride)
-    free = _bits(coloured & ~back, stride)
-    for _ in range(steps):
-        reached = ((grown & close_y) << stride | (grown >> stride) & close_y
-                   | (grown & close_x) << 1 | (grown >> 1) & close_x)
-        new = reached & free & ~grown
-        if not new:
-            break
-        grown |= new
-    return back if grown == start else _unbits(grown, (h, w), stride)
-
-
-def _label_box(mask):
-    """``scipy.ndimage.label(mask)`` (4-connected), run on the bounding box of ``mask`` only: the
-    box keeps the raster order, so the labels are the same. Returns the labels of the box, their
-    number and the box (slices)."""
-    rows = np.flatnonzero(mask.any(axis=1))
-    if rows.size == 0:
-        return np.zeros((0, 0), dtype=np.int32), 0, np.s_[0:0, 0:0]
-    cols = np.flatnonzero(mask.any(axis=0))
-    box = np.s_[rows[0]: rows[-1] + 1, cols[0]: cols[-1] + 1]
-    labels, n = ndimage.label(mask[box], _CROSS)
-    return labels, n, box
-
-
-def _connected_to_edge(labels, count):
-    """Which of the ``count`` labels touch the image edge, a lookup by label (0 never does)."""
-    edge = np.concatenate([labels[0], labels[-1], labels[:, 0], labels[:, -1]])
-    keep = np.zeros(count + 1, dtype=bool)
-    keep[edge] = True
-    keep[0] = False
-    return keep
-
-
-def _basis(y, x):
-    """Quadratic basis in normalised coordinates, shape (..., 6)."""
-    return np.stack([np.ones_like(y), x, y, x * x, x * y, y * y], axis=-1)
-
-
-@lru_cache(maxsize=16)
-def _grid_basis(h, w):
-    """:func:`_basis` at every pixel of an (h, w) image, transposed: shape (6, h * w), read-only
-    (one row per basis function, so the surface comes out as channel planes)."""
-    y = np.linspace(-0.5, 0.5, h)[:, None] * np.ones((1, w))
-    x = np.ones((h, 1)) * np.linspace(-0.5, 0.5, w)[None, :]
-    grid = np.ascontiguousarray(_basis(y, x).reshape(-1, 6).T)
-    grid.setflags(write=False)
-    return grid
-
-
-@lru_cache(maxsize=16)
-def _ring_basis(h, w, width):
-    """Flat indices of the ring pixels (raster order) and their :func:`_basis` rows, read-only."""
-    index = np.flatnonzero(border_ring((h, w), width))
-    ys, xs = np.divmod(index, w)
-    design = _basis(ys / max(h - 1, 1) - 0.5, xs / max(w - 1, 1) - 0.5)
-    index.setflags(write=False)
-    design.setflags(write=False)
-    return index, design
-
-
-def _median_rows(x):
-    """``np.median(x, axis=-1)`` of finite values through one partition (the same bits: the mean
-    of the middle pair is their sum, plus 0.0 as numpy's sum starts from it, halved)."""
-    n = x.shape[-1]
-    half = n // 2
-    if n % 2:
-        return np.partition(x, half, axis=-1)[..., half] + 0.0
-    part = np.partition(x, (half - 1, half), axis=-1)
-    return (part[..., half - 1] + part[..., half] + 0.0) / 2
-
-
-_RIDGE = {cols: 1e-9 * np.eye(cols) for cols in (3, 6)}  # keeps the normal equations regular
-
-
-def _fit_surface(planes, index, design, tolerance, iterations):
-    """The fit of :func:`backdrop_model` on the ring pixels ``index`` (flat) with basis rows
-    ``design``; returns the surface as planes, shape (3, h, w), float like ``planes``.
-
-    The fitted ring colours come from the same matrix products in either orientation (one
-    product per element, the same bits), here as planes; the median start is the constant
-    itself (``design @ coef`` with only the first row gives it exactly)."""
-    h, w = planes.shape[1:]
-    pts = np.ascontiguousarray(planes.reshape(3, -1)[:, index].astype(float).T)  # rows, for the solves
-    pts_planes = np.ascontiguousarray(pts.T)
-    design_planes = np.ascontiguousarray(design.T)
-    coef = np.zeros((6, 3))
-    coef[0] = _median_rows(pts_planes)
-    fitted = None  # the inliers of the last full (quadratic) fit
-    for it in range(iterations + 1):
-        if it == 0:
-            sq = pts_planes - coef[0][:, None]
-        else:
-            sq = pts_planes - np.ascontiguousarray(coef.T) @ design_planes
-        sq *= sq
-        residual = np.sqrt(sq[0] + sq[1] + sq[2])
-        # Widen the first inlier test: a sweep's ring is far from its median colour.
-        limit = tolerance if it else max(tolerance, 2.5 * float(_median_rows(residual)))
-        inlier = residual <= limit
-        if it == iterations or np.count_nonzero(inlier) < 12:
-            break
-        if fitted is not None and np.array_equal(inlier, fitted):
-            break  # a fixed point: every further fit gives the same coefficients
-        cols = 3 if it == 0 else 6
-        rows = np.flatnonzero(inlier)
-        a = design.take(rows, axis=0)[:, :cols]
-        sol = np.linalg.solve(a.T @ a + _RIDGE[cols], a.T @ pts.take(rows, axis=0))  # normal equations
-        coef = np.zeros((6, 3))
-        coef[:cols] = sol
-        if cols == 6:
-            fitted = inlier
-    surface = np.empty((3, h * w), dtype=planes.dtype)
-    surface[...] = np.dot(np.ascontiguousarray(coef.T), _grid_basis(h, w))
-    return surface.reshape(3, h, w), residual, inlier
-
-
-def _ring_index(h, w, width, usable):
-    index, design = _ring_basis(h, w, width)
-    if usable is not None:
-        ok = usable.ravel()[index]
-        index, design = index[ok], design[ok]
-    return index, design
-
-
 def backdrop_model(jab, ring, usable, tolerance, iterations=3):
     """Fit a smooth backdrop surface to the border ring.
 
@@ -574,8 +370,8 @@ def backdrop_model(jab, ring, usable, tolerance, iterations=3):
     h, w = jab.shape[:2]
     index = np.flatnonzero(np.asarray(ring, bool) & np.asarray(usable, bool))
     ys, xs = np.divmod(index, w)
-    design = _basis(ys / max(h - 1, 1) - 0.5, xs / max(w - 1, 1) - 0.5)
-    surface, residual, inlier = _fit_surface(_planes(jab), index, design, tolerance, iterations)
+    design = basis(ys / max(h - 1, 1) - 0.5, xs / max(w - 1, 1) - 0.5)
+    surface, residual, inlier = fit_surface(_planes(jab), index, design, tolerance, iterations)
     return np.moveaxis(surface, 0, -1), residual, inlier
 
 
@@ -637,12 +433,12 @@ def _patch_bias(diff, width):
     h, w = diff.shape[1:]
     index = _patch_index(h, w, width)
     if index is not None:
-        medians = np.ascontiguousarray(_median_rows(diff.reshape(3, -1)[:, index]).T)  # (8, 3)
+        medians = np.ascontiguousarray(median_rows(diff.reshape(3, -1)[:, index]).T)  # (8, 3)
     else:
         patches = (diff[:, :width, : w // 2], diff[:, :width, w // 2 :], diff[:, -width:, : w // 2],
                    diff[:, -width:, w // 2 :], diff[:, : h // 2, :width], diff[:, h // 2 :, :width],
                    diff[:, : h // 2, -width:], diff[:, h // 2 :, -width:])
-        medians = np.stack([_median_rows(p.reshape(3, -1)) for p in patches])
+        medians = np.stack([median_rows(p.reshape(3, -1)) for p in patches])
     # What np.linalg.norm computes for a vector: the square root of its dot with itself.
     return max(0.0, max(float(np.sqrt(m.dot(m))) for m in medians))
 
@@ -791,8 +587,8 @@ def foreground_mask(
         weights = (~transparent).astype(float)
         return Mask(weights, None, float(transparent.mean()), False, 1.0)
 
-    ring_index, design = _ring_index(h, w, width, None if opaque is None else ~transparent)
-    surface, ring_residual, inlier = _fit_surface(planes, ring_index, design, tolerance, 3)
+    ring_pixels, design = ring_index(h, w, width, None if opaque is None else ~transparent)
+    surface, ring_residual, inlier = fit_surface(planes, ring_pixels, design, tolerance, 3)
     share = np.count_nonzero(inlier) / inlier.size
     if share < uniform_share:
         return _scene((h, w), transparent)
@@ -807,7 +603,7 @@ def foreground_mask(
     dj = diff[0]
     chroma_sq = diff[1] ** 2 + diff[2] ** 2
     d2 = chroma_sq + dj * dj
-    background = _median_rows(flat_surface[:, _ring_basis(h, w, width)[0]])
+    background = median_rows(flat_surface[:, ring_basis(h, w, width)[0]])
     # The 5 ΔE rule protects light parts on a light studio backdrop; on a dark or coloured
     # backdrop (a chart on black) ΔE is inflated by noise and the plain tolerance applies.
     light = bool(is_backdrop_colour(background))
@@ -821,18 +617,18 @@ def foreground_mask(
     if step_sq is None:
         step_sq = colour_step_sq(jab)
     strong = step_sq > (RINGING_EDGE_FACTOR * tolerance) ** 2
-    ringing_zone = _dilate_cross(strong, 2)
+    ringing_zone = dilate_cross(strong, 2)
     ringing = ringing_zone & (d2 <= tolerance**2)
     candidate = near | ringing
-    labels, count = ndimage.label(candidate, _CROSS)
-    edge_regions = _connected_to_edge(labels, count)
+    labels, count = ndimage.label(candidate, CROSS)
+    edge_regions = connected_to_edge(labels, count)
     flood = edge_regions[labels]
     shadow = _shadow(lightness, dj, coloured, coloured | near, flood, shadow_edge)
     # Shadows lie on the floor around the product and reach only so far from the backdrop: a
     # product as dark as its own contact shadow where it stands on it is not flooded beyond the
     # shadow's width, and a flat panel inside an opening is not taken for a shadow of it.
     reach = max(2, int(round(SHADOW_REACH * min(h, w))))
-    back = _grow_within(flood, shadow, reach)
+    back = grow_within(flood, shadow, reach)
     # Enclosed regions that continue the backdrop: regions within the opening tolerance, apart
     # from the flood, whose median colour lies as close to the surface as the backdrop's own
     # patches do. Shadow-coloured pixels do not join them, so a flat light panel set into an
@@ -845,7 +641,7 @@ def foreground_mask(
         labels = relabel[labels]
         n = count
     else:
-        box_labels, n, box = _label_box(candidate & ~back)
+        box_labels, n, box = label_box(candidate & ~back)
         labels = np.zeros((h, w), dtype=np.int32)
         labels[box] = box_labels
     keep = _enclosed_backdrop(labels, n, near, ringing_zone, diff, opening,
@@ -857,9 +653,11 @@ def foreground_mask(
         back |= transparent
     # Shadow pixels in corners (a leg meeting its shadow) have too few smooth neighbours for the
     # curvature test; take those that continue a background neighbour within a small J' step.
-    back = _grow_corners(back, coloured, lightness, 2)
+    close_x = np.abs(lightness[:, 1:] - lightness[:, :-1]) < SHADOW_GROW_STEP
+    close_y = np.abs(lightness[1:, :] - lightness[:-1, :]) < SHADOW_GROW_STEP
+    back = grow_along(back, coloured & ~back, close_x, close_y, 2)
     # Specks the flood went round (noise on a shadow failing the smoothness test) are background.
-    left_labels, m, box = _label_box(~back)
+    left_labels, m, box = label_box(~back)
     if m:
         speck = np.bincount(left_labels.ravel(), minlength=m + 1) < max(3, int(0.0003 * h * w))
         speck[0] = False
@@ -891,7 +689,7 @@ def foreground_mask(
         flags.append(FLAG_SMALL_AREA)
         confidence = min(confidence, SMALL_AREA_CONFIDENCE)
     # Near the backdrop, leaving out the outline (its blends are always near).
-    body = kept & ~_dilate_cross(back, 1)
+    body = kept & ~dilate_cross(back, 1)
     n_body = np.count_nonzero(body)
     if n_body:
         close = np.count_nonzero(body & (d2 <= NEAR_BACKDROP_DELTA_E**2)) / n_body

@@ -1,0 +1,181 @@
+"""The shortcuts of the masking and palette steps against the numpy and scipy calls they stand
+for, bit for bit. Inputs are random arrays from seeded generators (test inputs, not check
+values); every reference is numpy's or scipy's own result."""
+
+import numpy as np
+from scipy import ndimage
+
+from harmony.photo import mask as mask_module
+from harmony.photo import palette as palette_module
+from harmony.photo.surface import basis, grid_basis, median_rows, ring_basis
+
+
+def test_median_rows_is_numpys_median():
+    # numpy.median, including ties, odd and even lengths and signed zeros.
+    rng = np.random.default_rng(1)
+    for n in range(1, 40):
+        for dtype in (np.float32, np.float64):
+            x = rng.normal(size=(3, n)).astype(dtype)
+            x[0] = np.round(x[0])
+            x[1, : n // 2] = -0.0
+            want = np.median(x, axis=-1)
+            got = median_rows(x)
+            assert np.array_equal(got, want) and np.array_equal(np.signbit(got), np.signbit(want))
+
+
+def test_surface_in_either_orientation_is_the_same_product():
+    # numpy (BLAS) matrix products: the grid basis times the coefficients, as rows or as planes.
+    rng = np.random.default_rng(2)
+    for h, w in [(128, 128), (97, 128), (17, 200)]:
+        rows = grid_basis(h, w).T
+        y = np.linspace(-0.5, 0.5, h)[:, None] * np.ones((1, w))
+        x = np.ones((h, 1)) * np.linspace(-0.5, 0.5, w)[None, :]
+        assert np.array_equal(rows, basis(y, x).reshape(-1, 6))
+        index, design = ring_basis(h, w, 4)
+        for _ in range(20):
+            coef = rng.normal(size=(6, 3)) * np.array([[50], [5], [5], [3], [3], [3]])
+            assert np.array_equal((rows @ coef).T, np.ascontiguousarray(coef.T) @ grid_basis(h, w))
+            assert np.array_equal((design @ coef).T, np.ascontiguousarray(coef.T) @ np.ascontiguousarray(design.T))
+        coef = np.zeros((6, 3))
+        coef[0] = rng.normal(size=3)
+        assert np.array_equal(design @ coef, np.broadcast_to(coef[0], (len(index), 3)))
+
+
+def test_opening_is_the_clipped_percentile():
+    # numpy.percentile(residual, 95), scaled and clipped as the module docstring says.
+    rng = np.random.default_rng(3)
+    for _ in range(2000):
+        n = int(rng.integers(1, 60))
+        residual = rng.random(n) * rng.choice([0.5, 1.2, 1.45, 1.55, 3.0])
+        cap = mask_module.OPENING_MAX_DELTA_E
+        spread = float(np.percentile(residual, 95))
+        want = min(max(mask_module.OPENING_SPREAD_FACTOR * spread, mask_module.OPENING_MIN_DELTA_E), cap)
+        assert mask_module._opening(residual, cap) == want
+
+
+def test_strip_sums_are_numpys_sums():
+    # numpy.add.reduce over a strip of the ring, as mean() takes it.
+    rng = np.random.default_rng(4)
+    for width in range(1, 12):
+        x = (rng.normal(size=(3, 37, 41)) * 100).astype(np.float32)
+        for axis, strip in ((1, x[:, :width]), (2, x[:, :, :width]), (2, x[:, :, -width:])):
+            assert np.array_equal(mask_module._strip_sum(strip, axis), np.add.reduce(strip, axis=axis))
+
+
+def test_shadow_box_filter_matches_the_whole_image_filter():
+    # scipy.ndimage.uniform_filter over the whole frame, (1, 3, 3), mode "nearest", for float32
+    # J' in the pixel table's range: the box gives the same bits inside it.
+    rng = np.random.default_rng(5)
+    for _ in range(300):
+        h, w = (int(v) for v in rng.integers(5, 60, 2))
+        lightness = (rng.random((h, w)) * 98.7 + 1.28).astype(np.float32)
+        like = rng.random((h, w)) < rng.random()
+        stack = np.stack([like, lightness * like]).astype(np.float32)
+        whole = ndimage.uniform_filter(stack, (1, 3, 3), mode="nearest")
+        r0, c0 = int(rng.integers(1, h - 2)), int(rng.integers(1, w - 2))
+        r1, c1 = int(rng.integers(r0 + 1, h)), int(rng.integers(c0 + 1, w))
+        box = ndimage.uniform_filter(stack[:, r0 - 1: r1 + 1, c0 - 1: c1 + 1], (1, 3, 3), mode="nearest")
+        assert np.array_equal(box[:, 1:-1, 1:-1], whole[:, r0:r1, c0:c1])
+
+
+def test_shadow_test_matches_the_whole_frame_version():
+    # The shadow test written out over the whole frame with scipy.ndimage.uniform_filter.
+    rng = np.random.default_rng(6)
+    for trial in range(300):
+        h, w = (int(v) for v in rng.integers(3, 50, 2))
+        dtype = np.float32 if trial % 3 else np.float64
+        lightness = (rng.random((h, w)) * 98.7 + 1.28).astype(dtype)
+        dj = (rng.normal(size=(h, w)) * 3).astype(dtype)
+        coloured = rng.random((h, w)) < 0.5
+        like = coloured | (rng.random((h, w)) < 0.3)
+        flood = rng.random((h, w)) < rng.random()
+        weights = like.astype(dtype)
+        means = ndimage.uniform_filter(np.stack([weights, lightness * weights]), (1, 3, 3), mode="nearest")
+        curvature = np.abs(lightness - means[1] / np.maximum(means[0], 1e-6))
+        smooth = curvature < np.maximum(mask_module.SHADOW_CURVATURE, mask_module.SHADOW_RELATIVE_CURVATURE * np.abs(dj))
+        steep = np.zeros((h, w))
+        dx = np.abs(np.diff(lightness, axis=1)) * (like[:, 1:] & like[:, :-1])
+        dy = np.abs(np.diff(lightness, axis=0)) * (like[1:] & like[:-1])
+        for target, value in ((steep[:, :-1], dx), (steep[:, 1:], dx), (steep[:-1], dy), (steep[1:], dy)):
+            np.maximum(target, value, out=target)
+        want = coloured & smooth & (steep < 6.0) & ~flood
+        got = mask_module._shadow(lightness, dj, coloured, like, flood, 6.0) & ~flood
+        assert np.array_equal(got, want)
+
+
+def test_patch_bias_is_the_largest_patch_median_norm():
+    # numpy.median of each of the eight border patches, then numpy.linalg.norm.
+    rng = np.random.default_rng(7)
+    for _ in range(200):
+        h, w = (int(v) for v in rng.integers(8, 90, 2))
+        width = int(rng.integers(1, 5))
+        diff = (rng.normal(size=(3, h, w)) * rng.choice([0.1, 2.0])).astype(np.float32)
+        patches = (diff[:, :width, : w // 2], diff[:, :width, w // 2:], diff[:, -width:, : w // 2],
+                   diff[:, -width:, w // 2:], diff[:, : h // 2, :width], diff[:, h // 2:, :width],
+                   diff[:, : h // 2, -width:], diff[:, h // 2:, -width:])
+        want = max(float(np.linalg.norm(np.median(p.reshape(3, -1), axis=1))) for p in patches)
+        assert mask_module._patch_bias(diff, width) == want
+
+
+def test_colour_steps():
+    # numpy: the largest squared ΔE to a 4-neighbour, summed over J', a', b' in that order.
+    rng = np.random.default_rng(8)
+    jab = (rng.normal(size=(20, 30, 3)) * 10).astype(np.float32)
+    dx = np.zeros((20, 29), np.float32)
+    dy = np.zeros((19, 30), np.float32)
+    for c in range(3):
+        dx += np.diff(jab[..., c], axis=1) ** 2
+        dy += np.diff(jab[..., c], axis=0) ** 2
+    want = np.zeros((20, 30), np.float32)
+    for target, value in ((want[:, :-1], dx), (want[:, 1:], dx), (want[:-1], dy), (want[1:], dy)):
+        np.maximum(target, value, out=target)
+    assert np.array_equal(mask_module.colour_step_sq(jab), want)
+
+
+def test_seeded_draws_are_the_generators_draws():
+    # numpy.random.default_rng(seed).random, one number or a few at a time.
+    for seed in (0, 3):
+        for k in (1, 2, 10, 64):
+            draws = palette_module._SeededDraws(seed, k)
+            rng = np.random.default_rng(seed)
+            trials = 2 + int(np.log(k))
+            assert draws.random() == rng.random()
+            for _ in range(k - 1):
+                assert np.array_equal(draws.random(trials), rng.random(trials))
+
+
+def test_merge_close_matches_recomputing_every_distance():
+    # Reference: the closest pair by numpy.argmin over all distances, recomputed after each merge.
+    rng = np.random.default_rng(9)
+    for _ in range(300):
+        m = int(rng.integers(1, 20))
+        centres = rng.normal(size=(m, 3)) * rng.choice([1.0, 3.0])
+        masses = rng.random(m) * 10
+        limit = float(rng.choice([0.5, 2.3, 5.0]))
+        want_c, want_m = [c for c in centres], [float(v) for v in masses]
+        while len(want_c) > 1:
+            arr = np.array(want_c)
+            d = np.sqrt(palette_module._sq_dist(arr, arr))
+            np.fill_diagonal(d, np.inf)
+            i, j = np.unravel_index(int(np.argmin(d)), d.shape)
+            if not d[i, j] < limit:
+                break
+            i, j = min(i, j), max(i, j)
+            total = want_m[i] + want_m[j]
+            want_c[i] = (want_m[i] * want_c[i] + want_m[j] * want_c[j]) / total
+            want_m[i] = total
+            del want_c[j], want_m[j]
+        got_c, got_m = palette_module._merge_close(centres, masses, limit)
+        assert np.array_equal(got_c, np.array(want_c)) and np.array_equal(got_m, np.array(want_m))
+
+
+def test_pixel_table_matches_colorspacious_at_cell_centres():
+    # The table holds colour.srgb1_to_jab (colorspacious) of each cell's centre, cast to float32.
+    from harmony import colour
+
+    rng = np.random.default_rng(10)
+    srgb8 = rng.integers(0, 256, size=(40, 50, 3), dtype=np.uint8)
+    shift = 8 - int(np.log2(palette_module.FINE_LEVELS))
+    centre = ((srgb8.astype(float) // (1 << shift)) * (1 << shift) + ((1 << shift) - 1) / 2.0) / 255.0
+    want = colour.srgb1_to_jab(centre.reshape(-1, 3)).astype(np.float32).reshape(40, 50, 3)
+    assert np.array_equal(palette_module.srgb8_to_jab(srgb8), want)
