@@ -335,39 +335,44 @@ def _sq_dist(points, centres):
     return np.einsum("nkc,nkc->nk", d, d)
 
 
-def _kmeans_once(points, weights, k, rng, max_iter):
+def _kmeans_once(points, weights, k, rng, max_iter, inertia=True):
     n = points.shape[0]
     cum = np.cumsum(weights)
     chosen = [min(int(np.searchsorted(cum, rng.random() * cum[-1], side="right")), n - 1)]
     closest = _sq_dist(points, points[chosen])[:, 0]
     trials = 2 + int(np.log(k))
     for _ in range(1, k):
-        potential = weights * closest
-        cum = np.cumsum(potential)
-        if not cum[-1] > 0.0:
+        cum = np.cumsum(weights * closest)
+        total = cum[-1]
+        if not total > 0.0:
             break
-        cand = np.minimum(np.searchsorted(cum, rng.random(trials) * cum[-1], side="right"), n - 1)
+        cand = np.minimum(np.searchsorted(cum, rng.random(trials) * total, side="right"), n - 1)
         d_cand = np.minimum(closest[:, None], _sq_dist(points, points[cand]))
         best = int(np.argmin(weights @ d_cand))
         chosen.append(int(cand[best]))
         closest = d_cand[:, best]
     centres = points[chosen].copy()
+    m, d = centres.shape
     assignment = None
-    weighted = weights * points.T  # each coordinate times the point's weight, (d, n)
+    # The mass and the weighted coordinates of each cluster by one bincount: row r of the sums
+    # collects row r of ``weighted`` (the weight, then each coordinate times it), point by point.
+    weighted = np.concatenate([weights[None, :], weights * points.T])
+    shift = (m * np.arange(d + 1))[:, None]
     for _ in range(max_iter):
         d2 = _sq_dist(points, centres)
         new = np.argmin(d2, axis=1)
         if assignment is not None and np.array_equal(new, assignment):
             break
         assignment = new
-        mass = np.bincount(assignment, weights=weights, minlength=len(centres))
+        sums = np.bincount((assignment + shift).ravel(), weights=weighted.ravel(), minlength=(d + 1) * m)
+        sums = sums.reshape(d + 1, m)
+        mass = sums[0]
         used = mass > 0
-        sums = np.stack([np.bincount(assignment, weights=wc, minlength=len(centres)) for wc in weighted], axis=1)
-        centres[used] = sums[used] / mass[used, None]
-    inertia = float(weights @ _sq_dist(points, centres)[np.arange(n), assignment])
-    used = np.bincount(assignment, minlength=len(centres)) > 0
+        centres[used] = sums[1:, used].T / mass[used, None]
+    score = float(weights @ _sq_dist(points, centres)[np.arange(n), assignment]) if inertia else 0.0
+    used = np.bincount(assignment, minlength=m) > 0
     remap = np.cumsum(used) - 1
-    return inertia, centres[used], remap[assignment]
+    return score, centres[used], remap[assignment]
 
 
 class _SeededDraws:
@@ -434,7 +439,7 @@ def weighted_kmeans(points, weights, k, rng, max_iter=100, n_init=3):
         return points.copy(), np.arange(points.shape[0])
     best = None
     for _ in range(max(1, n_init)):
-        run = _kmeans_once(points, weights, k, rng, max_iter)
+        run = _kmeans_once(points, weights, k, rng, max_iter, inertia=n_init > 1)
         if best is None or run[0] < best[0]:
             best = run
     return best[1], best[2]
