@@ -18,12 +18,12 @@ Prints a table and, as its last line, one JSON object with ``evaluate_s``, ``tar
 
 import argparse
 import json
-import os
-import subprocess
 import sys
 import tempfile
 import time
 from pathlib import Path
+
+from _revision import load_average, run_child
 
 TARGET_S = 1.5
 
@@ -51,21 +51,10 @@ print(json.dumps({"seconds": seconds, "cpu": cpu, "module": demo.__file__, "load
 
 
 def _child(checkout, db, shop, what):
-    argv = [sys.executable, "-c", _CHILD, os.path.abspath(checkout) if checkout else "", str(db), str(shop), what]
-    out = subprocess.run(argv, check=True, capture_output=True, text=True).stdout
-    result = json.loads(out.strip().splitlines()[-1])
-    if checkout and not result["module"].startswith(os.path.abspath(checkout)):
-        raise SystemExit(f"error: the baseline imported {result['module']}, not the code in {checkout}")
+    result = run_child(_CHILD, checkout, [db, shop, what])
     if result["loaded_before"]:
         raise SystemExit(f"error: {', '.join(result['loaded_before'])} loaded before the stage; its import would not count")
     return result
-
-
-def _load():
-    if not os.path.exists("/proc/loadavg"):
-        return "n/a"
-    with open("/proc/loadavg") as fh:
-        return " ".join(fh.read().split()[:3])
 
 
 def _store(folder):
@@ -86,7 +75,7 @@ def main():
     args = parser.parse_args()
     with tempfile.TemporaryDirectory() as folder:
         db, shop = _store(folder)
-        load_before = _load()
+        load_before = load_average()
         times = {"this": [], "baseline": [], "ot": []}
         cpus = {"this": [], "baseline": [], "ot": []}
         tables = {}
@@ -99,7 +88,7 @@ def main():
                 times[key].append(result["seconds"])
                 cpus[key].append(result["cpu"])
                 tables[key] = result["tables"]
-        load_after = _load()
+        load_after = load_average()
     best = {key: min(v) for key, v in times.items() if v}
     base = best.get("baseline")
     print(f"{'stage':<44}{'best s':>8}{'cpu s':>8}{'x baseline':>12}  runs (s)")

@@ -17,7 +17,6 @@ import argparse
 import io
 import json
 import os
-import subprocess
 import sys
 import tempfile
 import time
@@ -28,6 +27,7 @@ import numpy as np  # noqa: E402
 from PIL import Image  # noqa: E402
 from threadpoolctl import threadpool_limits  # noqa: E402
 
+from _revision import load_average, run_child  # noqa: E402
 from harmony.demo.synthetic import encode_jpeg, studio_shot  # noqa: E402
 from harmony.photo.image import decode_image  # noqa: E402
 from harmony.photo.palette import PaletteSettings, extract_palette  # noqa: E402
@@ -75,20 +75,7 @@ def _baseline(checkout, jpegs, repeats):
         for i, data in enumerate(jpegs):
             with open(os.path.join(folder, f"{i:04d}.jpg"), "wb") as fh:
                 fh.write(data)
-        env = dict(os.environ, OMP_NUM_THREADS="1")
-        out = subprocess.run([sys.executable, "-c", _CHILD, os.path.abspath(checkout), folder, str(repeats)],
-                             check=True, capture_output=True, text=True, env=env).stdout
-    result = json.loads(out.strip().splitlines()[-1])
-    if not result["module"].startswith(os.path.abspath(checkout)):
-        raise SystemExit(f"error: the baseline imported {result['module']}, not the code in {checkout}")
-    return result
-
-
-def _load():
-    if not os.path.exists("/proc/loadavg"):
-        return "n/a"
-    with open("/proc/loadavg") as fh:
-        return " ".join(fh.read().split()[:3])
+        return run_child(_CHILD, checkout, [folder, repeats], env=dict(os.environ, OMP_NUM_THREADS="1"))
 
 
 def main():
@@ -108,7 +95,7 @@ def main():
     def decode_draft(data):
         decode_image(data, max_side=settings.max_side, max_pixels=settings.max_pixels)
 
-    load_before = _load()
+    load_before = load_average()
     with threadpool_limits(limits=1):
         decode_s = _best_of(decode_full, jpegs, args.repeats)
         draft_s = _best_of(decode_draft, jpegs, args.repeats)
@@ -130,7 +117,7 @@ def main():
     if base:
         print(f"baseline: {args.baseline} ({base['key']}); this revision takes "
               f"{extract_s / base['extract_s']:.2f}x its time")
-    print(f"load average: {load_before} before, {_load()} after")
+    print(f"load average: {load_before} before, {load_average()} after")
     print(f"targets: >= {TARGET_IMAGES_PER_S:.0f} images/s, <= {TARGET_RATIO:.0f}x draft decode; "
           f"{'met' if rate >= TARGET_IMAGES_PER_S and ratio_draft <= TARGET_RATIO else 'NOT met'}")
     summary = {

@@ -19,13 +19,13 @@ import argparse
 import json
 import os
 import resource
-import subprocess
 import sys
 import tempfile
 import time
 
 import numpy as np
 
+from _revision import load_average, run_child
 from harmony import colour
 from harmony.rules import load_rules
 from harmony.rules.screen import PaletteStack, _prepare, exact_top_k, screen_top_k, top_k_blocked
@@ -90,11 +90,7 @@ def baseline_run(checkout, a, b, workers, block, repeats):
     with tempfile.TemporaryDirectory() as folder:
         path = os.path.join(folder, "palettes.npz")
         np.savez(path, a_jab=a.jab, a_w=a.weights, b_jab=b.jab, b_w=b.weights)
-        out = subprocess.run([sys.executable, "-c", _CHILD, os.path.abspath(checkout), path, str(workers),
-                              str(block), str(repeats)], check=True, capture_output=True, text=True).stdout
-        result = json.loads(out.strip().splitlines()[-1])
-        if not result["module"].startswith(os.path.abspath(checkout)):
-            raise SystemExit(f"error: the baseline imported {result['module']}, not the code in {checkout}")
+        result = run_child(_CHILD, checkout, [path, workers, block, repeats])
         return result["seconds"], np.load(path + ".indices.npy")
 
 
@@ -114,6 +110,7 @@ def main(argv=None):
     ap.add_argument("--baseline", metavar="DIR", help="a checkout of the revision to compare with")
     args = ap.parse_args(argv)
 
+    load_before = load_average()
     rng = np.random.default_rng(args.seed)
     pair = load_rules().for_pair("sofa", "rug")
     sofas = synthetic_palettes(args.n, rng)
@@ -178,7 +175,7 @@ def main(argv=None):
     if base:
         print(f"baseline: {args.baseline}; this revision takes {screen_s / base[0]:.2f}x its time; "
               f"same partners: {base[1]}")
-    print(f"load average: {os.getloadavg()[0]:.2f} {os.getloadavg()[1]:.2f} at the end")
+    print(f"load average: {load_before} before, {load_average()} after")
     out = {"seconds": round(screen_s, 4), "speedup_vs_exact": round(exact_s / screen_s, 1),
            "recall_at_10": round(recall, 4), "pairs": args.n * args.n,
            "selection_speedup": round(partition_s / select_s, 2), "same_candidates": same,
