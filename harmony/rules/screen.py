@@ -567,40 +567,11 @@ def _best_of_rows(r, c, v, n_rows, k):
     return out
 
 
-#: Colour pairs per kernel call of the re-rank on several threads when the processor's level 2
-#: cache size is unknown. Each float64 temporary of a call should take at most a quarter of the
-#: core's L2, or the threads' calls spill to memory and contend for it. Measured on the screen
-#: benchmark (2 cores, 5,000 x 15 candidates, best of 3): with a 512 kB L2, 1 << 14 took
-#: 0.51-0.54 s and 1 << 17 0.87 s; on an earlier machine 1 << 17 was the fastest (0.20-0.24 s
-#: against 0.30 s for 1 << 15). The chunk changes only how many products share a call.
-THREAD_RERANK_CHUNK = 1 << 14
-
-
-def _level2_cache_bytes():
-    """The first CPU's level 2 cache size in bytes from Linux's sysfs, or None."""
-    from pathlib import Path
-
-    for index in sorted(Path("/sys/devices/system/cpu/cpu0/cache").glob("index*")):
-        try:
-            if (index / "level").read_text().strip() != "2":
-                continue
-            size = (index / "size").read_text().strip().upper()
-        except OSError:
-            continue
-        scale = {"K": 1 << 10, "M": 1 << 20}.get(size[-1:], 1)
-        digits = size.rstrip("KMB")
-        if digits.isdigit():
-            return int(digits) * scale
-    return None
-
-
-def thread_rerank_chunk():
-    """Colour pairs per re-rank call on several threads: a quarter of the L2 per float64
-    temporary (between 1 << 14 and 1 << 17), or :data:`THREAD_RERANK_CHUNK`."""
-    size = _level2_cache_bytes()
-    if not size:
-        return THREAD_RERANK_CHUNK
-    return int(min(max(size // 32, 1 << 14), 1 << 17))
+#: Colour pairs per kernel call of the re-rank when it runs on several threads. Measured on the
+#: screen benchmark (2 cores): with :data:`RERANK_CHUNK` the threads wait on each other for the
+#: interpreter between the many small calls (0.30 s on 2 threads against 0.43 s on one); four
+#: times larger calls take 0.20-0.24 s. The chunk changes only how many products share a call.
+THREAD_RERANK_CHUNK = 1 << 17
 
 
 def _select_and_rerank_threads(q, side_a, prep, c, kernel, block, workers):
@@ -613,12 +584,11 @@ def _select_and_rerank_threads(q, side_a, prep, c, kernel, block, workers):
     n_a = len(side_a)
     cand = np.empty((n_a, min(c, prep.hb.shape[1])), dtype=np.int64)
     raw = np.empty(cand.shape)
-    chunk = thread_rerank_chunk()
 
     def run(lo, hi):
         cand[lo:hi] = top_k_blocked(q[lo:hi], prep.hb, c, block=block)
         part = PaletteStack(side_a.jab[lo:hi], side_a.weights[lo:hi])
-        raw[lo:hi] = exact_raw_candidates(part, prep.stack_b, cand[lo:hi], kernel, chunk=chunk)
+        raw[lo:hi] = exact_raw_candidates(part, prep.stack_b, cand[lo:hi], kernel, chunk=THREAD_RERANK_CHUNK)
 
     bounds = np.linspace(0, n_a, workers + 1).astype(int)
     with threadpool_limits(limits=1), ThreadPoolExecutor(max_workers=workers) as pool:

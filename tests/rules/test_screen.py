@@ -335,11 +335,3 @@ def test_screen_on_two_threads_gives_the_same_bits_as_one(n_a, sofa_rug):
     assert (two.rank, two.truncation_bound) == (one.rank, one.truncation_bound)
     # Both equal the exact top-10 (kernel evaluated pair by pair, no screen).
     np.testing.assert_array_equal(two.indices, sc.exact_top_k(a, b, sofa_rug.kernel, k=10).indices)
-
-
-@pytest.mark.parametrize("l2,want", [(None, 1 << 14), (256 << 10, 1 << 14), (512 << 10, 1 << 14),
-                                     (1 << 20, 1 << 15), (32 << 20, 1 << 17)])
-def test_thread_rerank_chunk_follows_the_level2_cache(monkeypatch, l2, want):
-    # A quarter of the L2 per float64 temporary (l2 / 4 / 8 colour pairs), within [2^14, 2^17].
-    monkeypatch.setattr(sc, "_level2_cache_bytes", lambda: l2)
-    assert sc.thread_rerank_chunk() == want
