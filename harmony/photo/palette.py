@@ -382,16 +382,19 @@ class _SeededDraws:
     k-means on a small photo."""
 
     def __init__(self, seed, k):
+        self._seed = seed
         self._values = _uniform_run(seed, 1 + (k - 1) * (2 + int(np.log(k))))
         self._at = 0
 
     def random(self, size=None):
         at = self._at
+        end = at + (1 if size is None else int(size))
+        if end > len(self._values):  # more than one start asks for: a longer run of the same draws
+            self._values = _uniform_run(self._seed, 2 * end)
+        self._at = end
         if size is None:
-            self._at = at + 1
             return float(self._values[at])
-        self._at = at + size
-        return self._values[at: at + size].copy()
+        return self._values[at:end].copy()
 
 
 @lru_cache(maxsize=16)
