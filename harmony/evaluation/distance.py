@@ -89,7 +89,7 @@ def emd_signatures(first, others):
     at = 0
     for t, s in enumerate(others):
         m = s.jab.shape[0]
-        wb = s.balanced if total == 1.0 else s.balanced * total  # times 1.0 changes no bit
+        wb = s.balanced * total
         out[t] = solve(wa, wb, np.ascontiguousarray(cost[:, at : at + m]))
         at += m
     return out
