@@ -42,7 +42,9 @@ def serve(db, rules_path, rooms_dir, host, port, room_time_limit, access_log, cu
 
     With --curation, partners are pinned, blocked and cut as 'harmony feed --curation' does.
     The store is opened read-only and watched: products a later 'harmony extract' adds are
-    answered within about a second of its commit, without a restart. The API is described at
+    answered within about a second of its commit, without a restart. Edits to the rules and
+    curation files are taken up the same way; an edit that does not load leaves the last good
+    version in force and is named under "reload_errors" in /v1/health. The API is described at
     /openapi.json. Stop with Ctrl-C (or SIGTERM).
     """
     import logging
@@ -52,6 +54,7 @@ def serve(db, rules_path, rooms_dir, host, port, room_time_limit, access_log, cu
     from harmony.rules import load_rules
     from harmony.serve.app import create_app
     from harmony.serve.snapshot import LiveStore
+    from harmony.shop.store import Store
 
     try:
         loopback = ipaddress.ip_address(host).is_loopback
@@ -60,17 +63,13 @@ def serve(db, rules_path, rooms_dir, host, port, room_time_limit, access_log, cu
     if not loopback:
         warn(f"listening on {host}, not on loopback: put a reverse proxy with access control in front")
     rules = load_rules(rules_path)
-    live = LiveStore(db, rules)
-    if len(live.snapshot) == 0:
-        live.close()
-        raise HarmonyError(f"{db}: the store holds no products (run 'harmony extract' first)")
-    try:
-        curation = load_curation_for(curation_path, live.snapshot)
-    except HarmonyError:
-        live.close()
-        raise
+    with Store(db, read_only=True) as store:
+        if not store.products():
+            raise HarmonyError(f"{db}: the store holds no products (run 'harmony extract' first)")
+        curation = load_curation_for(curation_path, store)
+    live = LiveStore(db, rules, rules_path=rules_path, curation=curation, curation_path=curation_path)
     logging.basicConfig(level=logging.INFO, format="%(levelname)s: %(name)s: %(message)s")
-    app = create_app(live, rules_path=rules_path, curation=curation, rooms_dir=rooms_dir, room_time_limit=room_time_limit)
+    app = create_app(live, rules_path=rules_path, rooms_dir=rooms_dir, room_time_limit=room_time_limit)
     click.echo(f"serving {len(live.snapshot)} products of {db} on http://{host}:{port} (API: /openapi.json)", err=True)
     uvicorn.run(app, host=host, port=port, access_log=access_log, log_level="info", server_header=False,
                 timeout_keep_alive=KEEP_ALIVE_SECONDS, limit_concurrency=512, h11_max_incomplete_event_size=16 * 1024)

@@ -7,7 +7,6 @@ body, with a bounded path and query (:data:`MAX_PATH_BYTES`, :data:`MAX_QUERY_BY
 """
 
 import contextlib
-import hashlib
 import json
 import logging
 import math
@@ -26,6 +25,7 @@ from harmony.serve import engine
 from harmony.serve.openapi import openapi_document
 from harmony.shop.catalogue import normalise_category
 from harmony.suggest.curation import category_pair_allowed
+from harmony.suggest.provenance import file_sha256
 
 __all__ = [
     "ApiError",
@@ -36,7 +36,6 @@ __all__ = [
     "MAX_QUERY_BYTES",
     "MAX_BUDGET",
     "ROOM_TIME_LIMIT",
-    "file_sha256",
 ]
 
 log = logging.getLogger("harmony.serve")
@@ -63,13 +62,6 @@ class ApiError(Exception):
         super().__init__(message)
         self.status = int(status)
         self.message = str(message)
-
-
-def file_sha256(path):
-    """SHA-256 (hex) of a file's bytes, or None without a file."""
-    if path is None:
-        return None
-    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
 
 
 def _json(payload, status=200):
@@ -186,18 +178,17 @@ def _category(snap, name):
     raise ApiError(404, f"unknown category '{name[:60]}'{hint}.")
 
 
-def create_app(live, *, rules_path=None, curation=None, rooms_dir=ROOMS_DIR, room_time_limit=ROOM_TIME_LIMIT,
-               watch=True):
+def create_app(live, *, rules_path=None, rooms_dir=ROOMS_DIR, room_time_limit=ROOM_TIME_LIMIT, watch=True):
     """The Starlette application answering from ``live`` (a :class:`harmony.serve.snapshot.LiveStore`).
 
     Parameters
     ----------
     live : LiveStore
+        Its snapshot's rules, and its curation (pins, blocks, category pairs, score floors and the
+        partner-category limit, applied as ``harmony feed --curation`` applies them), answer each
+        request; edits to their files reach new requests (see ``LiveStore``).
     rules_path : path, optional
-        The rules file, for its hash in ``/v1/health``.
-    curation : harmony.suggest.curation.Curation, optional
-        Pins, blocks, category pairs, score floors and the partner-category limit applied to
-        partners as ``harmony feed --curation`` applies them; its hash is in ``/v1/health``.
+        The rules file, named in ``/v1/health`` (its hash there is that of the version in force).
     rooms_dir : path
         Folder of the room templates ``/v1/rooms/{template}/sets`` may name.
     room_time_limit : float
@@ -205,9 +196,7 @@ def create_app(live, *, rules_path=None, curation=None, rooms_dir=ROOMS_DIR, roo
     watch : bool
         Start the store watcher with the application (and stop it at shutdown).
     """
-    rules = live.rules
-    rules_hash = file_sha256(rules_path)
-    curation_hash = None if curation is None else curation.sha256
+    fixed_rules_hash = None if live.rules_file is not None or rules_path is None else file_sha256(rules_path)
     rooms_dir = Path(rooms_dir)
     document = openapi_document(MAX_TOP, MAX_ROOM_SETS, float(room_time_limit))
 
@@ -225,8 +214,9 @@ def create_app(live, *, rules_path=None, curation=None, rooms_dir=ROOMS_DIR, roo
             "categories": len(snap.category_data),
             "warming_up": live.warming,
             "rules": None if rules_path is None else Path(rules_path).name,
-            "rules_sha256": rules_hash,
-            "curation_sha256": curation_hash,
+            "rules_sha256": live.rules_sha256 or fixed_rules_hash,
+            "curation_sha256": None if snap.curation is None else snap.curation.sha256,
+            "reload_errors": live.reload_errors,
         })
 
     async def categories(request):
@@ -240,7 +230,7 @@ def create_app(live, *, rules_path=None, curation=None, rooms_dir=ROOMS_DIR, roo
                 "products": len(data.products),
                 "with_palette": len(data.ids),
                 "partners_in_stock": len(data.partner_ids),
-                "pairs_with": [c for c in snap.categories() if rules.pairs_with(key, c)],
+                "pairs_with": [c for c in snap.categories() if snap.rules.pairs_with(key, c)],
             })
         return _json({"categories": out})
 
@@ -255,8 +245,8 @@ def create_app(live, *, rules_path=None, curation=None, rooms_dir=ROOMS_DIR, roo
         })
 
     def compute_partners(snap, product, pal, cats, only, top, diversity, min_score):
-        found = engine.product_partners(product, pal, cats, rules, snap.category_data, top, diversity, snap.screen,
-                                        curation)
+        found = engine.product_partners(product, pal, cats, snap.rules, snap.category_data, top, diversity,
+                                        snap.screen, snap.curation)
         # A pin is kept whatever its score, as in the curated feed; min_score filters the rest.
         rows = [{"partner": r.partner, "category": r.partner_category, "rank": r.rank, "score": r.score,
                  "reason": r.reason, "pinned": r.pinned}
@@ -272,7 +262,7 @@ def create_app(live, *, rules_path=None, curation=None, rooms_dir=ROOMS_DIR, roo
         top = _int(params, "top", 10, 1, MAX_TOP)
         diversity = _float(params, "diversity", 0.0, 0.0, 1.0)
         min_score = _float(params, "min_score", 0.0, 0.0, 1.0)
-        own = product.category_key
+        own, rules, curation = product.category_key, snap.rules, snap.curation
         paired = [c for c in snap.categories() if c != own and rules.pairs_with(own, c)
                   and category_pair_allowed(curation, own, c)]
         category, only = params.get("category"), None
@@ -329,9 +319,9 @@ def create_app(live, *, rules_path=None, curation=None, rooms_dir=ROOMS_DIR, roo
         a = _product(snap, _required(params, "a"))
         b = _product(snap, _required(params, "b"))
         pal_a, pal_b = _palette_or_409(snap, a), _palette_or_409(snap, b)
-        pr = rules.for_pair(a.category_key, b.category_key)
+        pr = snap.rules.for_pair(a.category_key, b.category_key)
         ps = engine.score_pair(pal_a, pal_b, pr)
-        return _json({"a": a.id, "b": b.id, "paired": rules.pairs_with(a.category_key, b.category_key),
+        return _json({"a": a.id, "b": b.id, "paired": snap.rules.pairs_with(a.category_key, b.category_key),
                       **ps.to_dict()})
 
     def templates():
@@ -358,8 +348,8 @@ def create_app(live, *, rules_path=None, curation=None, rooms_dir=ROOMS_DIR, roo
         if cached is not None:
             return cached
         try:
-            result = await run_in_threadpool(engine.room_sets, snap, rooms_dir / f"{name}.toml", rules, budget,
-                                             anchor, top, limit, curation=curation)
+            result = await run_in_threadpool(engine.room_sets, snap, rooms_dir / f"{name}.toml", snap.rules,
+                                             budget, anchor, top, limit, curation=snap.curation)
         except StoreError as exc:
             raise ApiError(404, f"{exc}.") from None
         except HarmonyError as exc:

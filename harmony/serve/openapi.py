@@ -63,7 +63,7 @@ def openapi_document(max_top, max_sets, time_limit):
         },
         "paths": {
             "/v1/health": {"get": {
-                "summary": "Store version, product count and the hashes of the rules in use.",
+                "summary": "Store version, product count, the hashes of the rules and curation in force, and edits that did not load.",
                 "responses": {"200": _ok("Health.", {"type": "object"})},
             }},
             "/v1/categories": {"get": {

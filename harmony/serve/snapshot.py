@@ -26,6 +26,7 @@ import numpy as np
 from harmony.errors import StoreError
 from harmony.rules.screen import PaletteStack
 from harmony.serve.engine import category_histograms, grid_for, pair_screen
+from harmony.serve.watched import WatchedFile
 from harmony.shop.catalogue import normalise_category
 from harmony.shop.store import SCHEMA_VERSION, Store
 
@@ -111,13 +112,15 @@ class Snapshot:
 
     Offers the reading methods of :class:`harmony.shop.store.Store` that the suggestion stages use
     (``product``, ``products``, ``palette``, ``palettes``, ``categories``), so the room search runs
-    on it unchanged; its errors never name a file of the server's machine.
+    on it unchanged; its errors never name a file of the server's machine. The rules and the
+    curation it answers under belong to it, so one answer never mixes two versions of either.
     """
 
     def __init__(self, *, name, generation, products, palettes, images, settings_key, categories, rules,
-                 screens=None):
+                 screens=None, curation=None):
         self.path = name  # the store's file name only: error messages reach HTTP clients
         self.generation = int(generation)
+        self.curation = curation
         self.loaded_at = time.time()
         self._products = products
         self._palettes = palettes
@@ -138,6 +141,16 @@ class Snapshot:
             digest.update(f"\x1e{pid}\x1f{p.category_key}\x1f{p.price!r}\x1f{p.stock}\x1f"
                           f"{'' if pal is None else pal.sha256}".encode())
         self.version = digest.hexdigest()[:16]
+
+    def with_curation(self, curation, generation):
+        """The same store data, rules and screens under another curation, with empty answer caches."""
+        new = object.__new__(Snapshot)
+        new.__dict__.update(self.__dict__)
+        new.generation, new.curation, new.loaded_at = int(generation), curation, time.time()
+        new._screens = dict(self._screens)
+        new._screen_lock = threading.Lock()
+        new.cache, new.answers = _Lru(CACHE_ENTRIES), _Lru(CACHE_ENTRIES)
+        return new
 
     # -- the Store reading interface ----------------------------------------------------------
 
@@ -216,11 +229,11 @@ def _grids(rules):
     return grids
 
 
-def load_snapshot(path, rules, previous=None, generation=0):
+def load_snapshot(path, rules, previous=None, generation=0, curation=None):
     """Read the store at ``path`` (read-only) into a :class:`Snapshot`.
 
     Categories whose fingerprint equals the one in ``previous`` are taken over as they are, with
-    their histograms and the screens between two such categories.
+    their histograms, and so are the screens between two such categories when the rules are the same.
 
     Raises
     ------
@@ -261,7 +274,7 @@ def load_snapshot(path, rules, previous=None, generation=0):
             histograms=hist,
             fingerprint=fingerprint,
         )
-    screens = None if previous is None else previous.screens_to_keep(categories)
+    screens = None if previous is None or previous.rules is not rules else previous.screens_to_keep(categories)
     return Snapshot(
         name=os.path.basename(str(path)),
         generation=generation,
@@ -272,11 +285,12 @@ def load_snapshot(path, rules, previous=None, generation=0):
         categories=categories,
         rules=rules,
         screens=screens,
+        curation=curation,
     )
 
 
 class LiveStore:
-    """The current snapshot of a store, replaced when the store changes.
+    """The current snapshot of a store, replaced when the store, the rules file or the curation file changes.
 
     Parameters
     ----------
@@ -284,26 +298,68 @@ class LiveStore:
     rules : harmony.rules.RuleSet
     poll_seconds : float
         How often the watcher thread (:meth:`start`) looks for a change.
+    rules_path : str or pathlib.Path, optional
+        The file ``rules`` was read from; edits to it are loaded while the server runs (a new
+        snapshot with the new rules; the store's data is taken over, the screens are made again).
+    curation : harmony.suggest.curation.Curation, optional
+    curation_path : str or pathlib.Path, optional
+        The file ``curation`` was read from; edits to it are loaded while the server runs (a new
+        snapshot with the same data and screens, and empty answer caches).
 
     Attributes
     ----------
     snapshot : Snapshot
         Read it once per request; assignment of a new one is atomic.
+    last_error : str or None
+        Why the store's last change could not be loaded.
     """
 
-    def __init__(self, path, rules, poll_seconds=POLL_SECONDS):
+    def __init__(self, path, rules, poll_seconds=POLL_SECONDS, *, rules_path=None, curation=None,
+                 curation_path=None):
+        from harmony.rules import load_rules
+
         self.path = os.fspath(path)
-        self.rules = rules
         self.poll_seconds = float(poll_seconds)
         self._probe = Store(self.path, read_only=True)
         self._inode = self._stat()
         self._seen = self._version()
-        self.snapshot = load_snapshot(self.path, rules)
+        self.snapshot = load_snapshot(self.path, rules, curation=curation)
+        self.rules_file = None if rules_path is None else WatchedFile(rules_path, "rules file", load_rules, rules)
+        self.curation_file = (None if curation_path is None
+                              else WatchedFile(curation_path, "curation file", self._read_curation, curation))
         self.reloads = 0
         self.last_error = None
         self._stop = threading.Event()
         self._thread = None
         self._warmer = None
+
+    def _read_curation(self, path):
+        """An edited curation file, its unknown product ids logged (as the command warns of them)."""
+        from harmony.suggest.curation import load_curation, unknown_product_warnings
+
+        curation = load_curation(path)
+        snap = self.snapshot
+        for message in unknown_product_warnings(curation, list(snap._products), snap.categories()):
+            log.warning("%s", message.replace(str(path), os.path.basename(str(path))))
+        return curation
+
+    @property
+    def rules(self):
+        """The rules in force."""
+        return self.snapshot.rules
+
+    @property
+    def rules_sha256(self):
+        """Hex SHA-256 of the rules file in force (None when the rules did not come from a watched file)."""
+        return None if self.rules_file is None else self.rules_file.sha256
+
+    @property
+    def reload_errors(self):
+        """One line for each watched file whose current version is not in force, and for the store."""
+        out = [f.error for f in (self.rules_file, self.curation_file) if f is not None and f.error]
+        if self.last_error:
+            out.append(f"{self.snapshot.path}: " + self.last_error.replace(self.path, self.snapshot.path))
+        return out
 
     def _stat(self):
         st = os.stat(self.path)
@@ -319,16 +375,28 @@ class LiveStore:
         return inode + (self._probe.data_version(),)
 
     def check(self):
-        """Look once; reload when the store changed. Returns whether a new snapshot was swapped in.
+        """Look once at the store and the watched files; swap in a new snapshot when one changed.
+        Returns whether a new snapshot was swapped in.
 
-        A failed reload keeps the last good snapshot and is tried again at the next look.
+        A failed reload keeps the last good snapshot (or file) and is tried again at the next look
+        (at the next edit, for a file).
         """
+        old = self.snapshot
+        for watched in (self.rules_file, self.curation_file):
+            if watched is not None:
+                watched.poll()
+        # What the files hold now; a snapshot that does not answer under it is replaced.
+        rules = old.rules if self.rules_file is None else self.rules_file.value
+        curation = old.curation if self.curation_file is None else self.curation_file.value
         try:
             version = self._version()
-            if version == self._seen:
+            if version != self._seen or rules is not old.rules:
+                fresh = load_snapshot(self.path, rules, previous=old, generation=old.generation + 1,
+                                      curation=curation)
+            elif curation is not old.curation:
+                fresh = old.with_curation(curation, old.generation + 1)
+            else:
                 return False
-            fresh = load_snapshot(self.path, self.rules, previous=self.snapshot,
-                                  generation=self.snapshot.generation + 1)
         except Exception as exc:  # StoreError, OSError, sqlite3 errors of a file replaced mid-read
             if str(exc) != self.last_error:
                 log.warning("store not reloaded: %s", exc)
@@ -339,7 +407,7 @@ class LiveStore:
         self.snapshot = fresh
         self.reloads += 1
         self._warm_up()
-        log.info("store reloaded: %d products, version %s", len(fresh), fresh.version)
+        log.info("snapshot %d: %d products, version %s", fresh.generation, len(fresh), fresh.version)
         return True
 
     def _warm(self, snap):
@@ -351,10 +419,10 @@ class LiveStore:
             for target in snap.categories():
                 if self._stop.is_set() or self.snapshot is not snap:
                     return
-                if own == target or not self.rules.pairs_with(own, target):
+                if own == target or not snap.rules.pairs_with(own, target):
                     continue
                 if len(snap.category_data[target].partner_ids) > EXACT_ROW and snap.category_data[own].ids:
-                    snap.screen(own, target, self.rules.for_pair(own, target))
+                    snap.screen(own, target, snap.rules.for_pair(own, target))
 
     @property
     def warming(self):

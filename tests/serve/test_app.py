@@ -325,6 +325,55 @@ def test_curated_server_reports_the_file_and_refuses_blocked_pairs(curated_serve
     assert one["partners"][0]["partner"] == "RUG-003" and one["partners"][0]["pinned"] is True
 
 
+def _wait_for_health(srv, key, value, seconds=60):
+    """/v1/health once its ``key`` equals ``value`` (the watcher looks every half second)."""
+    deadline = time.monotonic() + seconds
+    while True:
+        health = srv.get("/v1/health").json()
+        if health[key] == value:
+            return health
+        assert time.monotonic() < deadline, f"{key} did not become {value!r} within {seconds} s: {health}"
+        time.sleep(0.25)
+
+
+def test_a_stylists_edit_reaches_the_running_server(full_db, tmp_path):
+    """The curation file is edited while the server runs: a broken edit is named in /v1/health and
+    changes nothing; a good one is answered without a restart, cached answers included."""
+    cur = tmp_path / "curation.toml"
+    shutil.copy(DEMO_CURATION, cur)
+    srv = Server(full_db, "--curation", str(cur))
+    try:
+        ask = {"category": "rug", "top": 3}
+        first = [srv.get("/v1/products/SOF-001/partners", params=ask) for _ in range(2)]
+        assert first[0].content == first[1].content  # the second is a cached answer
+        assert first[0].json()["partners"][0]["partner"] == "RUG-003"
+        text = cur.read_text(encoding="utf-8")
+        broken = cur.with_name("broken.toml")
+        broken.write_text(text.replace('partner = "RUG-003"', 'partner = "RUG-003"\nrank = "first"'), encoding="utf-8")
+        broken.replace(cur)
+        health = srv.get("/v1/health").json()
+        deadline = time.monotonic() + 60
+        while not health["reload_errors"]:
+            assert time.monotonic() < deadline, health
+            time.sleep(0.25)
+            health = srv.get("/v1/health").json()
+        assert len(health["reload_errors"]) == 1 and health["reload_errors"][0].startswith("curation.toml:")
+        assert health["curation_sha256"] == hashlib.sha256(DEMO_CURATION.read_bytes()).hexdigest()
+        assert srv.get("/v1/products/SOF-001/partners", params=ask).content == first[0].content
+        # The stylist moves the pin to another rug.
+        edited = text.replace('partner = "RUG-003"', 'partner = "RUG-005"')
+        cur.write_text(edited, encoding="utf-8")
+        health = _wait_for_health(srv, "curation_sha256", hashlib.sha256(edited.encode()).hexdigest())
+        assert health["reload_errors"] == []
+        now = srv.get("/v1/products/SOF-001/partners", params=ask).json()["partners"]
+        assert now[0]["partner"] == "RUG-005" and now[0]["pinned"] is True
+        assert "RUG-003" not in [p["partner"] for p in now if p["pinned"]]
+    finally:
+        log = srv.stop()
+    assert "Traceback" not in log
+    assert "curation file not reloaded" in log and "curation file reloaded" in log
+
+
 def test_uncurated_health_has_no_curation_hash(server):
     assert server.get("/v1/health").json()["curation_sha256"] is None
 

@@ -1,0 +1,93 @@
+"""Files a running server reads again when they are edited: the rules file and the curation file.
+
+A :class:`WatchedFile` notices an edit by the file's device, inode, modification time and size
+(an editor saves in place or writes a new file and renames it) and then compares the SHA-256 of the
+bytes with the version in force, so a file touched but not changed is not loaded again. A version
+that fails to load leaves the last good one in force; its one-line error is logged once and kept
+in :attr:`WatchedFile.error` until a later edit loads.
+"""
+
+import hashlib
+import logging
+import os
+from pathlib import Path
+
+from harmony.errors import HarmonyError
+
+__all__ = ["WatchedFile"]
+
+log = logging.getLogger("harmony.serve")
+
+
+class WatchedFile:
+    """One file, its loaded value and what became of its last edit.
+
+    Parameters
+    ----------
+    path : str or pathlib.Path
+    kind : str
+        What the file is, for messages ("rules file").
+    load : callable
+        ``load(path) -> value``; raises :class:`harmony.errors.HarmonyError` on a bad file.
+    value : object
+        The version in force (already loaded by the caller, who reported its problems).
+
+    Attributes
+    ----------
+    value : object
+    sha256 : str
+        Hex SHA-256 of the bytes of the version in force.
+    error : str or None
+        Why the file's current bytes are not in force, naming the file by its name only (the
+        message may reach HTTP clients); None when they are.
+    """
+
+    def __init__(self, path, kind, load, value):
+        self.path = Path(path)
+        self.kind = kind
+        self._load = load
+        self.value = value
+        self.error = None
+        self._token = self._stat()
+        self.sha256 = self._digest()
+
+    def _stat(self):
+        try:
+            st = os.stat(self.path)
+        except OSError as exc:
+            return ("unreadable", exc.errno)
+        return st.st_dev, st.st_ino, st.st_mtime_ns, st.st_size
+
+    def _digest(self):
+        try:
+            return hashlib.sha256(self.path.read_bytes()).hexdigest()
+        except OSError:
+            return None
+
+    def _fail(self, message):
+        message = message.replace(str(self.path), self.path.name)
+        if message != self.error:
+            log.warning("%s not reloaded, the last good version stays in force: %s", self.kind, message)
+        self.error = message
+
+    def poll(self):
+        """Look once. Returns True when an edit was loaded and is now :attr:`value`."""
+        token = self._stat()
+        if token == self._token:
+            return False
+        self._token = token
+        digest = self._digest()
+        if digest is None:
+            self._fail(f"{self.path}: cannot read the {self.kind}")
+            return False
+        if digest == self.sha256:
+            self.error = None
+            return False
+        try:
+            value = self._load(self.path)
+        except HarmonyError as exc:
+            self._fail(str(exc))
+            return False
+        self.value, self.sha256, self.error = value, digest, None
+        log.info("%s reloaded: %s (sha256 %s)", self.kind, self.path.name, digest[:12])
+        return True
