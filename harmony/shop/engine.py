@@ -20,7 +20,9 @@ reports, exports) take no lock and read the last committed state.
 Worker processes of the local engine never outlive the run: each asks the kernel to kill it when
 its parent dies (``PR_SET_PDEATHSIG`` on Linux; elsewhere a thread that watches the parent), does
 not keep the parent's lock file open, and ignores SIGINT and SIGTERM, which the parent handles:
-an interrupted run kills its workers, keeps every chunk it has stored, and re-raises.
+an interrupted run kills its workers, keeps every chunk it has stored, and re-raises. The worker
+processes of a Dask LocalCluster end when the main process dies too: distributed's child processes
+exit when their parent's end of a pipe closes (tests/faults/test_kills.py kills one mid-chunk).
 
 A run refuses to remove more than ``max_removal`` (default :data:`MAX_REMOVAL`) of the store's
 products: a cut-short catalogue export is far likelier than a real clear-out.

@@ -135,3 +135,44 @@ def test_the_lock_follows_the_file_through_a_symlink(tmp_path):
         os.killpg(child.pid, signal.SIGKILL)
         child.wait(timeout=60)
     assert link.is_symlink() and stored_palettes(db) == 2
+
+
+_DASK_CHILD = """
+import sys
+sys.path.insert(0, {tests!r})
+from test_engine import GateSettings, gated_extract
+from harmony.shop.engine import run_extraction
+run_extraction({csv!r}, {db!r}, workers=1, chunk_size=1, progress=False, engine="dask",
+               settings=GateSettings(free={free}, gate={gate!r}), extractor=gated_extract)
+"""
+
+
+def test_sigkill_of_the_main_process_ends_its_dask_workers(tmp_path):
+    """A LocalCluster's worker process holds a chunk at the gate when the main process is killed
+    alone: the worker must not live on (distributed ends a worker whose parent's pipe closes)."""
+    import subprocess
+    import sys
+
+    from test_engine import TESTS
+
+    pytest.importorskip("distributed")
+    csv = _shop(tmp_path, n=6, rng=np.random.default_rng(11))
+    db = tmp_path / "s.db"
+    gate = tmp_path / "gate"
+    gate.mkdir()
+    code = _DASK_CHILD.format(tests=str(TESTS), csv=str(csv), db=str(db), free=2, gate=str(gate))
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(TESTS), os.environ.get("PYTHONPATH", "")]))
+    child = subprocess.Popen([sys.executable, "-c", code], start_new_session=True, env=env)
+    try:
+        wait_for(lambda: (gate / "blocked").exists() and stored_palettes(db) == 2, child, limit=180)
+        worker = int((gate / "blocked").read_text())
+        assert worker != child.pid  # the chunk is held in a worker process, not in the main one
+        os.kill(child.pid, signal.SIGKILL)
+        child.wait(timeout=60)
+        wait_for(lambda: process_gone(worker), limit=60)
+        wait_for(lambda: not group_alive(child.pid), limit=60)  # nothing else of the run either
+    finally:
+        if child.poll() is None or group_alive(child.pid):
+            os.killpg(child.pid, signal.SIGKILL)
+            child.wait(timeout=60)
+    assert not (gate / "open").exists() and stored_palettes(db) == 2
