@@ -120,8 +120,13 @@ def _embedding_gram(jab_a, w_a, jab_b, w_b, sigma):
     """<mu_a, mu_b> for stacks: jab (n, k, 3), w (n, k) against (m, l, 3), (m, l) -> (n, m)."""
     n, k = w_a.shape
     m, l = w_b.shape
-    diff = jab_a.reshape(-1, 1, 3) - jab_b.reshape(1, -1, 3)
-    g = np.exp(-np.einsum("ijc,ijc->ij", diff, diff) / (2.0 * sigma * sigma)).reshape(n, k, m, l)
+    a, b = jab_a.reshape(-1, 3), jab_b.reshape(-1, 3)
+    # Squared distances a channel at a time: long loops instead of a trailing axis of 3.
+    d2 = None
+    for c in range(3):
+        d = np.subtract.outer(a[:, c], b[:, c])
+        d2 = d * d if d2 is None else np.add(d2, np.multiply(d, d, out=d), out=d2)
+    g = np.exp(d2 * (-0.5 / (sigma * sigma)), out=d2).reshape(n, k, m, l)
     return np.einsum("ik,ikjl,jl->ij", w_a, g, w_b)
 
 
