@@ -4,6 +4,7 @@ A :class:`Palette` is what every later stage (scores, screen, sets, feeds, repor
 """
 
 import json
+import math
 from dataclasses import dataclass
 from functools import lru_cache
 
@@ -452,32 +453,57 @@ def _merge_close(centres, masses, limit):
     """Merge the closest pair of colours while they are closer than ``limit`` (weighted means).
 
     The distances are computed once; a merge recomputes only the merged colour's row (the same
-    numbers a full recomputation gives) and retires the other colour's row and column, so the
-    search runs over the live colours in their order."""
-    centres = np.array(centres, dtype=float)
+    numbers a full recomputation gives) and retires the other colour's row and column. The
+    matrix is kept as Python lists with each row's minimum, so the closest pair is the one
+    ``argmin`` over the whole matrix finds (the first in row-major order) without a pass over
+    every distance per merge."""
+    inf = math.inf
+    points = np.array(centres, dtype=float)
     masses = [float(m) for m in masses]
     m = len(masses)
-    retired = np.zeros(m)  # 0 for a live colour, inf for a merged one
-    d = np.sqrt(_sq_dist(centres, centres))
-    np.fill_diagonal(d, np.inf)
+    d = np.sqrt(_sq_dist(points, points))
+    np.fill_diagonal(d, inf)
+    d = d.tolist()
+    points = points.tolist()
+    live = [True] * m
+    row_min = [min(row) for row in d]
     for _ in range(m - 1):
-        i, j = divmod(int(d.argmin()), m)
-        if not d[i, j] < limit:
+        best = min(row_min)
+        if not best < limit:
             break
+        i = row_min.index(best)
+        j = d[i].index(best)
         i, j = min(i, j), max(i, j)
         mi, mj = masses[i], masses[j]
         total = mi + mj
-        centres[i] = [(mi * a + mj * b) / total for a, b in zip(centres[i].tolist(), centres[j].tolist())]
+        points[i] = [(mi * a + mj * b) / total for a, b in zip(points[i], points[j])]
         masses[i] = total
-        retired[j] = np.inf
-        row = np.sqrt(_sq_dist(centres[i: i + 1], centres))[0] + retired
-        row[i] = np.inf
+        live[j] = False
+        d[j] = [inf] * m
+        row_min[j] = inf
+        row = [_distance(points[i], p) if ok else inf for p, ok in zip(points, live)]
+        row[i] = inf
         d[i] = row
-        d[:, i] = row
-        d[j] = np.inf
-        d[:, j] = np.inf
-    live = retired == 0
-    return centres[live], np.array(masses)[live]
+        row_min[i] = min(row)
+        for r in range(m):
+            if r == i or not live[r]:
+                continue
+            dr = d[r]
+            was = dr[i], dr[j]
+            dr[i], dr[j] = row[r], inf
+            if row_min[r] in was:
+                row_min[r] = min(dr)
+            elif row[r] < row_min[r]:
+                row_min[r] = row[r]
+    keep = np.flatnonzero(live)
+    return np.array(points, dtype=float).reshape(np.shape(centres))[keep], np.array(masses)[keep]
+
+
+def _distance(a, b):
+    """Euclidean distance of two J'a'b' triples, with the products added in the order
+    :func:`_sq_dist` (numpy's einsum) adds them: J', b', then a'."""
+    dj, da, db = a[0] - b[0], a[1] - b[1], a[2] - b[2]
+    return math.sqrt(dj * dj + db * db + da * da)
 
 
 #: Levels per sRGB channel of the cached CAM02-UCS table (2 sRGB levels a cell: a pixel's J'a'b'

@@ -62,6 +62,31 @@ def test_strip_sums_are_numpys_sums():
             assert np.array_equal(mask_module._strip_sum(strip, axis), np.add.reduce(strip, axis=axis))
 
 
+def test_ring_steps_match_the_side_by_side_means():
+    # numpy.mean of each side's strip across the ring, side by side; ΔE as numpy's norm of the
+    # channel differences.
+    rng = np.random.default_rng(10)
+    for trial in range(400):
+        h, w = (int(v) for v in rng.integers(3, 70, 2))
+        width = min(int(rng.integers(1, 12)), h, w)
+        dtype = np.float32 if trial % 2 else np.float64
+        planes = (rng.normal(size=(3, h, w)) * rng.choice([0.3, 2.0, 10.0]) + 50).astype(dtype)
+        surface = (planes + rng.normal(size=(3, h, w)) * 0.5).astype(dtype)
+        want = 0.0
+        for axis, sides in ((1, (planes[:, :width], planes[:, -width:])), (2, (planes[:, :, :width], planes[:, :, -width:]))):
+            model_sides = (surface[:, :width], surface[:, -width:]) if axis == 1 else (surface[:, :, :width], surface[:, :, -width:])
+            for side, model_side in zip(sides, model_sides):
+                if side.shape[3 - axis] < 6:
+                    continue
+                profile, model = side.mean(axis=axis), model_side.mean(axis=axis)
+                ok = np.sqrt(((profile - model) ** 2).sum(axis=0)) <= 2.0
+                both = ok[4:] & ok[:-4]
+                if both.any():
+                    step = np.sqrt(((profile[:, 4:] - profile[:, :-4]) ** 2).sum(axis=0))
+                    want = max(want, float(step[both].max()))
+        assert mask_module._ring_steps(planes, surface, width, 2.0) == want
+
+
 def test_shadow_box_filter_matches_the_whole_image_filter():
     # scipy.ndimage.uniform_filter over the whole frame, (1, 3, 3), mode "nearest", for float32
     # J' in the pixel table's range: the box gives the same bits inside it.
@@ -167,6 +192,15 @@ def test_merge_close_matches_recomputing_every_distance():
             del want_c[j], want_m[j]
         got_c, got_m = palette_module._merge_close(centres, masses, limit)
         assert np.array_equal(got_c, np.array(want_c)) and np.array_equal(got_m, np.array(want_m))
+
+
+def test_distance_is_the_square_root_of_numpys_einsum():
+    # numpy.sqrt of numpy.einsum's sum of squared differences, bit for bit.
+    rng = np.random.default_rng(11)
+    points = rng.normal(size=(400, 3)) * rng.choice([0.1, 3.0, 30.0], size=(400, 1))
+    want = np.sqrt(palette_module._sq_dist(points[:200], points[200:]))
+    got = [[palette_module._distance(a, b) for b in points[200:].tolist()] for a in points[:200].tolist()]
+    assert np.array_equal(np.array(got), want)
 
 
 def test_pixel_table_matches_colorspacious_at_cell_centres():
