@@ -433,7 +433,7 @@ def _patch_bias(diff, width):
     h, w = diff.shape[1:]
     index = _patch_index(h, w, width)
     if index is not None:
-        medians = np.ascontiguousarray(median_rows(diff.reshape(3, -1)[:, index]).T)  # (8, 3)
+        medians = np.ascontiguousarray(median_rows(diff.reshape(3, -1).take(index, axis=1)).T)  # (8, 3)
     else:
         patches = (diff[:, :width, : w // 2], diff[:, :width, w // 2 :], diff[:, -width:, : w // 2],
                    diff[:, -width:, w // 2 :], diff[:, : h // 2, :width], diff[:, h // 2 :, :width],
@@ -463,7 +463,7 @@ def _enclosed_backdrop(labels, n, near, ringing_zone, diff, opening, bias):
     def region_means(pick):
         region = flat_labels[pick]
         count = np.bincount(region, minlength=n + 1)
-        offsets = flat_diff[:, pick]
+        offsets = flat_diff.take(pick, axis=1)
         sums = np.stack([np.bincount(region, weights=offsets[c], minlength=n + 1) for c in range(3)], axis=-1)
         return count[1:], sums[1:] / np.maximum(count[1:, None], 1)
 
@@ -603,7 +603,7 @@ def foreground_mask(
     dj = diff[0]
     chroma_sq = diff[1] ** 2 + diff[2] ** 2
     d2 = chroma_sq + dj * dj
-    background = median_rows(flat_surface[:, ring_basis(h, w, width)[0]])
+    background = median_rows(flat_surface.take(ring_basis(h, w, width)[0], axis=1))
     # The 5 ΔE rule protects light parts on a light studio backdrop; on a dark or coloured
     # backdrop (a chart on black) ΔE is inflated by noise and the plain tolerance applies.
     light = bool(is_backdrop_colour(background))

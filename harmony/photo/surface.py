@@ -74,8 +74,8 @@ def fit_surface(planes, index, design, tolerance, iterations):
     product per element, the same bits), here as planes; the median start is the constant
     itself (``design @ coef`` with only the first row gives it exactly)."""
     h, w = planes.shape[1:]
-    pts = np.ascontiguousarray(planes.reshape(3, -1)[:, index].astype(float).T)  # rows, for the solves
-    pts_planes = np.ascontiguousarray(pts.T)
+    pts_planes = planes.reshape(3, -1).take(index, axis=1).astype(float)
+    pts = np.ascontiguousarray(pts_planes.T)  # rows, for the solves
     design_planes = np.ascontiguousarray(design.T)
     coef = np.zeros((6, 3))
     coef[0] = median_rows(pts_planes)
