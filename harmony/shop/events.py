@@ -172,6 +172,8 @@ def _parse_timestamp(value):
         if not text:
             return None
         try:
+            if ":" in text:  # never a number; spares the exception of float()
+                raise ValueError
             out = float(text)
         except ValueError:
             try:
@@ -186,22 +188,35 @@ def _parse_timestamp(value):
     return out
 
 
+#: The columns a row is read from, in the order of the tuples of :func:`_csv_rows` and :func:`_jsonl_rows`.
+_FIELDS = ("session", "user", "product", "event", "timestamp")
+
+
 def _csv_rows(path):
+    """``(line, (session, user, product, event, timestamp))`` of each non-blank row, as text
+    stripped at both ends ("" for a missing field; of a column named twice, the last counts), or
+    ``(line, error)``."""
     with open(path, newline="", encoding="utf-8-sig") as handle:
-        reader = csv.DictReader(handle)
-        if reader.fieldnames is None:
+        reader = csv.reader(handle)
+        first = next(reader, None)
+        if first is None:
             raise EventsError(f"{path}: empty file, expected a header row")
-        header = [str(h).strip().casefold() for h in reader.fieldnames]
-        reader.fieldnames = header
+        header = [str(h).strip().casefold() for h in first]
         _check_header(path, header)
+        column = {name: i for i, name in enumerate(header)}
+        at = tuple(column.get(name, -1) for name in _FIELDS)
+        width = len(header)
         for row in reader:
-            if None in row:
-                yield reader.line_num, {"__error__": "more fields than the header has"}
-                continue
-            yield reader.line_num, row
+            if len(row) == width:
+                yield reader.line_num, tuple(row[i].strip() if i >= 0 else "" for i in at)
+            elif len(row) > width:
+                yield reader.line_num, "more fields than the header has"
+            elif row:
+                yield reader.line_num, tuple(row[i].strip() if 0 <= i < len(row) else "" for i in at)
 
 
 def _jsonl_rows(path):
+    """:func:`_csv_rows` of a JSONL log (keys compared without case); the timestamp as given."""
     with open(path, encoding="utf-8-sig") as handle:
         for number, text in enumerate(handle, start=1):
             if not text.strip():
@@ -209,12 +224,13 @@ def _jsonl_rows(path):
             try:
                 obj = json.loads(text)
             except json.JSONDecodeError as exc:
-                yield number, {"__error__": f"not JSON: {exc.msg}"}
+                yield number, f"not JSON: {exc.msg}"
                 continue
             if not isinstance(obj, dict):
-                yield number, {"__error__": "expected a JSON object"}
+                yield number, "expected a JSON object"
                 continue
-            yield number, {str(k).casefold(): v for k, v in obj.items()}
+            obj = {str(k).casefold(): v for k, v in obj.items()}
+            yield number, (*(_text(obj.get(name)) for name in _FIELDS[:-1]), obj.get("timestamp"))
 
 
 def _check_header(path, header):
@@ -280,12 +296,12 @@ def read_events(path, weights=None, known_products=None):
     try:
         for line, row in rows:
             n_rows += 1
-            if "__error__" in row:
-                problems.append(f"line {line}: {row['__error__']}")
+            if isinstance(row, str):
+                problems.append(f"line {line}: {row}")
                 continue
-            session = _text(row.get("session")) or _text(row.get("user"))
-            product = _text(row.get("product"))
-            kind = _text(row.get("event")).casefold()
+            session, user, product, kind, stamp = row
+            session = session or user
+            kind = kind.casefold()
             if not session:
                 problems.append(f"line {line}: empty session (or user)")
                 continue
@@ -296,7 +312,7 @@ def read_events(path, weights=None, known_products=None):
                 problems.append(f"line {line}: empty event")
                 continue
             try:
-                stamp = _parse_timestamp(row.get("timestamp"))
+                stamp = _parse_timestamp(stamp)
             except ValueError as exc:
                 problems.append(f"line {line}: {exc}")
                 continue

@@ -28,6 +28,7 @@ M. Montague, J. A. Aslam (2001). Relevance score normalization for metasearch. C
 import csv
 import io
 import json
+import math
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
@@ -104,57 +105,89 @@ def read_candidates(path):
         Unreadable file, missing column, or bad rows (each named ``FILE:LINE: key: reason``, the
         first five listed), a pair given twice, or no rows.
     """
+    return [Candidate(*row) for row in _candidate_rows(path)]
+
+
+def _candidate_rows(path):
+    """The checked rows of a candidate list as ``(product, partner, score, partner_category, line)``
+    tuples, the fields of :class:`Candidate` (see :func:`read_candidates`)."""
     path = Path(path)
     try:
         text = path.read_text(encoding="utf-8")
     except (OSError, UnicodeDecodeError) as exc:
         raise HarmonyError(f"{path}: cannot read the candidate list: {getattr(exc, 'strerror', None) or exc}") from None
-    records = []
     problems = []
     if path.suffix.lower() in (".jsonl", ".ndjson"):
-        for line, raw in enumerate(text.splitlines(), start=1):
-            if not raw.strip():
-                continue
-            try:
-                obj = json.loads(raw)
-            except json.JSONDecodeError as exc:
-                problems.append(f"{path}:{line}: not JSON: {exc.msg}")
-                continue
-            if not isinstance(obj, dict):
-                problems.append(f"{path}:{line}: not a JSON object")
-                continue
-            records.append((line, obj))
+        fields = _jsonl_fields(path, text, problems)
     else:
-        reader = csv.DictReader(io.StringIO(text))
-        missing = [c for c in CANDIDATE_COLUMNS if c not in (reader.fieldnames or ())]
-        if missing:
-            raise HarmonyError(f"{path}:1: missing column(s) {', '.join(missing)} (need {','.join(CANDIDATE_COLUMNS)})")
-        records = [(reader.line_num, row) for row in reader]
-    out, seen = [], {}
-    for line, rec in records:
-        values = {k: str(rec.get(k) if rec.get(k) is not None else "").strip() for k in (*CANDIDATE_COLUMNS, "partner_category")}
-        bad = next((k for k in CANDIDATE_COLUMNS if not values[k]), None)
+        fields = _csv_fields(path, text)
+    out, seen, categories = [], {}, {}
+    for line, product, partner, score_text, category in fields:
+        bad = "product" if not product else "partner" if not partner else "score" if not score_text else None
         if bad:
             problems.append(f"{path}:{line}: {bad}: missing")
             continue
         try:
-            score = float(values["score"])
-            if not np.isfinite(score):
-                raise ValueError
+            score = float(score_text)
         except ValueError:
-            problems.append(f"{path}:{line}: score: not a finite number: {values['score']!r}")
+            score = math.nan
+        if not math.isfinite(score):
+            problems.append(f"{path}:{line}: score: not a finite number: {score_text!r}")
             continue
-        first = seen.setdefault((values["product"], values["partner"]), line)
+        first = seen.setdefault((product, partner), line)
         if first != line:
-            problems.append(f"{path}:{line}: partner: '{values['partner']}' is given twice for '{values['product']}' (line {first})")
+            problems.append(f"{path}:{line}: partner: '{partner}' is given twice for '{product}' (line {first})")
             continue
-        out.append(Candidate(values["product"], values["partner"], score,
-                             normalise_category(values["partner_category"]) if values["partner_category"] else "", line))
+        if category:
+            category = categories.get(category) or categories.setdefault(category, normalise_category(category))
+        out.append((product, partner, score, category, line))
     if problems:
         more = f" (and {len(problems) - _SHOWN} more)" if len(problems) > _SHOWN else ""
         raise HarmonyError(f"{len(problems)} bad row(s): " + "; ".join(problems[:_SHOWN]) + more)
     if not out:
         raise HarmonyError(f"{path}: the candidate list has no rows")
+    return out
+
+
+def _csv_fields(path, text):
+    """``(line, product, partner, score, partner_category)`` of each non-blank CSV row, stripped
+    ("" for a missing field; of a column named twice, the last counts), as a list."""
+    reader = csv.reader(io.StringIO(text))
+    try:
+        column = {name: i for i, name in enumerate(next(reader, None) or ())}
+        missing = [c for c in CANDIDATE_COLUMNS if c not in column]
+        if missing:
+            raise HarmonyError(f"{path}:1: missing column(s) {', '.join(missing)} (need {','.join(CANDIDATE_COLUMNS)})")
+        at = (*(column[c] for c in CANDIDATE_COLUMNS), column.get("partner_category", -1))
+        product, partner, score, category = at
+        longest, out = max(at), []
+        for row in reader:
+            if len(row) > longest:  # every column present
+                out.append((reader.line_num, row[product].strip(), row[partner].strip(), row[score].strip(),
+                            row[category].strip() if category >= 0 else ""))
+            elif row:
+                out.append((reader.line_num, *(row[i].strip() if 0 <= i < len(row) else "" for i in at)))
+    except csv.Error as exc:
+        raise HarmonyError(f"{path}:{reader.line_num}: not a readable CSV row: {exc}") from None
+    return out
+
+
+def _jsonl_fields(path, text, problems):
+    """:func:`_csv_fields` of a JSONL candidate list; lines that are not JSON objects go to ``problems``."""
+    out = []
+    for line, raw in enumerate(text.splitlines(), start=1):
+        if not raw.strip():
+            continue
+        try:
+            obj = json.loads(raw)
+        except json.JSONDecodeError as exc:
+            problems.append(f"{path}:{line}: not JSON: {exc.msg}")
+            continue
+        if not isinstance(obj, dict):
+            problems.append(f"{path}:{line}: not a JSON object")
+            continue
+        out.append((line, *(str(obj[k] if obj.get(k) is not None else "").strip()
+                            for k in (*CANDIDATE_COLUMNS, "partner_category"))))
     return out
 
 
@@ -388,7 +421,7 @@ def parse_weights(text):
 def blend_methods_factory(path, weights_text):
     """For ``run_evaluation(extra_methods=...)``: one :class:`BlendMethod` per weight, blending the
     first rules method with the candidate list at ``path``."""
-    candidates = {(c.product, c.partner): c.score for c in read_candidates(path)}
+    candidates = {(product, partner): score for product, partner, score, _, _ in _candidate_rows(path)}
     weights = parse_weights(weights_text)
 
     def make(methods, palettes, products):
