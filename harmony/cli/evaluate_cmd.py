@@ -65,18 +65,19 @@ def evaluate_command(db, events, rules_files, as_json, out, weights, seed, resam
     distance, the catalogue's colour attribute): AUC, NDCG@10 and hit@10 with bootstrap intervals.
     """
     from harmony.evaluation import write_html
-    from harmony.evaluation.run import run_evaluation
+    from harmony.evaluation.run import collection_paused, run_evaluation
     if out is not None and is_stdout(out) and as_json:
         raise HarmonyError("--out - and --json both write to standard output; give --out a file name")
     echo = functools.partial(click.echo, err=out is not None and is_stdout(out))
     rules_files = rules_files or (str(DEFAULT_RULES),)
     extra = None
-    if blend is not None:  # issue 18
-        from harmony.suggest.blend import blend_methods_factory
+    with collection_paused():
+        if blend is not None:  # issue 18
+            from harmony.suggest.blend import blend_methods_factory
 
-        extra = blend_methods_factory(blend, blend_weights)
-    result, inputs = run_evaluation(db, events, rules_files, weights, seed, resamples, attribute, progress,
-                                    extra_methods=extra)
+            extra = blend_methods_factory(blend, blend_weights)
+        result, inputs = run_evaluation(db, events, rules_files, weights, seed, resamples, attribute, progress,
+                                        extra_methods=extra)
     if out is not None:
         write_html(result, out, inputs=inputs)
     if as_json:

@@ -76,15 +76,16 @@ def _bundle_json(store, rules, room_path, curation=None):
 
 def _evaluation_tables(db_path, events_path, rules_path, progress, candidates_path=None):
     from harmony.evaluation import result_table
-    from harmony.evaluation.run import run_evaluation
+    from harmony.evaluation.run import collection_paused, run_evaluation
 
     extra = None
-    if candidates_path is not None:
-        from harmony.suggest.blend import blend_methods_factory
+    with collection_paused():
+        if candidates_path is not None:
+            from harmony.suggest.blend import blend_methods_factory
 
-        extra = blend_methods_factory(candidates_path, BLEND_WEIGHTS)
-    result, _inputs = run_evaluation(db_path, events_path, [str(rules_path)], resamples=EVAL_RESAMPLES,
-                                     progress=progress, extra_methods=extra)
+            extra = blend_methods_factory(candidates_path, BLEND_WEIGHTS)
+        result, _inputs = run_evaluation(db_path, events_path, [str(rules_path)], resamples=EVAL_RESAMPLES,
+                                         progress=progress, extra_methods=extra)
     header, rows = result_table(result)
     heading = (f"Ranking real partners of the demo shoppers' log: {result.events} events, "
                f"{result.query_products} query products")

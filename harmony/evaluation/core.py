@@ -53,7 +53,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from harmony.errors import EventsError, HarmonyError
-from harmony.evaluation.metrics import CUTOFF, metric_table
+from harmony.evaluation.metrics import CUTOFF, ideal_dcgs, metric_table
 
 __all__ = ["MethodResult", "Evaluation", "evaluate"]
 
@@ -269,7 +269,8 @@ def evaluate(queries, methods, products, rng, resamples=1000, level=0.95, unknow
         part = queries.queries[lo:hi]
         gains = np.concatenate([q.gains for q in part])
         sizes = [len(q.candidates) for q in part]
-        asked = [(by_id[q.product], [by_id[c] for c in q.candidates]) for q in part]
+        ideal = ideal_dcgs(gains, sizes, CUTOFF)  # the same for every method
+        asked = [(by_id[q.product], list(map(by_id.__getitem__, q.candidates))) for q in part]
         for method in methods:  # in this order, so a blend finds its rules method's scores remembered
             many = getattr(method, "score_queries", None)
             scores = many(asked) if many is not None else [method(product, cands) for product, cands in asked]
@@ -277,7 +278,7 @@ def evaluate(queries, methods, products, rng, resamples=1000, level=0.95, unknow
                 if np.shape(s) != (n,):
                     raise ValueError(f"{method.name}: {n} candidates need {n} scores, got shape {np.shape(s)}")
             # The chunk's metrics at once: the same numbers as auc, ndcg_at_k and hit_at_k per query.
-            values[method.name][lo:hi] = metric_table(np.concatenate(scores), gains, sizes, CUTOFF)
+            values[method.name][lo:hi] = metric_table(np.concatenate(scores), gains, sizes, CUTOFF, ideal)
             if bar is not None:
                 bar.update(len(part))
     if bar is not None:

@@ -83,14 +83,16 @@ def emd_signatures(first, others):
         return out
     solve = _solver()
     a, wa = first.jab, first.weights
-    every = np.concatenate([s.jab for s in others])
-    cost = np.sqrt(((a[:, None, :] - every[None, :, :]) ** 2).sum(axis=-1))
-    total = wa.sum()
+    every = np.concatenate([s.jab for s in others]).T.copy()
+    # The ground distances to every colour at once, sqrt((d0**2 + d1**2) + d2**2): the order in
+    # which a sum over an axis of three adds, so the same bits as that sum.
+    d0, d1, d2 = (a[:, k, None] - every[k] for k in range(3))
+    cost = np.sqrt((d0 * d0 + d1 * d1) + d2 * d2)
+    wb = np.concatenate([s.balanced for s in others]) * wa.sum()
     at = 0
     for t, s in enumerate(others):
         m = s.jab.shape[0]
-        wb = s.balanced * total
-        out[t] = solve(wa, wb, np.ascontiguousarray(cost[:, at : at + m]))
+        out[t] = solve(wa, wb[at : at + m], np.ascontiguousarray(cost[:, at : at + m]))
         at += m
     return out
 

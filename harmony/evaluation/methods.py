@@ -1,6 +1,7 @@
 """Ranking methods: each scores the candidates of a query, higher is ranked earlier."""
 
 from dataclasses import dataclass, field
+from operator import attrgetter
 from pathlib import Path
 
 import numpy as np
@@ -17,6 +18,8 @@ __all__ = ["RulesMethod", "SameColoursMethod", "ColourAttributeMethod", "RandomM
 
 #: Kernel entries (query products' colours x candidates' colours) evaluated in one block.
 KERNEL_BLOCK = 250_000
+
+_ID = attrgetter("id")
 
 
 def _stack(palettes, ids):
@@ -55,7 +58,7 @@ class RulesMethod:
     def score_queries(self, asked):
         """Scores of many ``(product, candidates)`` queries (a list of arrays), the kernel of each
         pair of categories evaluated in blocks over all its queries."""
-        keys = [(p.id, tuple(c.id for c in cands)) for p, cands in asked]
+        keys = [(p.id, tuple(map(_ID, cands))) for p, cands in asked]
         groups = {}  # (category, partner category) -> {key: query}, the queries not known yet
         for (product, cands), key in zip(asked, keys):
             if key not in self._known:
@@ -124,17 +127,22 @@ class SameColoursMethod:
 
     def score_queries(self, asked):
         """Scores of many ``(product, candidates)`` queries: a list of arrays."""
-        keys = [[(min(p.id, c.id), max(p.id, c.id)) for c in cands] for p, cands in asked]
-        todo, new = {}, set()  # first palette -> partners whose pair is new, in the order asked
-        for (product, cands), row in zip(asked, keys):
-            for key, c in zip(row, cands):
-                if key not in self._known and key not in new:
-                    new.add(key)
-                    todo.setdefault(product.id, []).append((key, c.id))
-        for first, pairs in todo.items():
-            distances = emd_signatures(self._signature(first), [self._signature(cid) for _, cid in pairs])
-            self._known.update(zip([key for key, _ in pairs], distances.tolist()))
-        return [-np.array([self._known[key] for key in row]) for row in keys]
+        known = self._known  # product id -> {partner id: distance}, each pair under both ids
+        ids = [(p.id, list(map(_ID, cands))) for p, cands in asked]
+        todo, new = {}, {}  # first palette -> partners whose pair is new, in the order asked; new pairs both ways
+        for a, partners in ids:
+            mine = known.get(a, {})
+            for b in [b for b in partners if b not in mine]:
+                if b not in new.get(a, ()):
+                    new.setdefault(a, set()).add(b)
+                    new.setdefault(b, set()).add(a)
+                    todo.setdefault(a, []).append(b)
+        for a, partners in todo.items():
+            distances = emd_signatures(self._signature(a), [self._signature(b) for b in partners])
+            for b, d in zip(partners, distances.tolist()):
+                known.setdefault(a, {})[b] = known.setdefault(b, {})[a] = d
+        return [-np.array(list(map(known[a].__getitem__, partners))) if partners else -np.array([])
+                for a, partners in ids]
 
     def _signature(self, pid):
         sig = self._signatures.get(pid)

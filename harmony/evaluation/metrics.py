@@ -9,7 +9,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["CUTOFF", "auc", "ndcg_at_k", "hit_at_k", "metric_table", "auc_table"]
+__all__ = ["CUTOFF", "auc", "ndcg_at_k", "hit_at_k", "metric_table", "ideal_dcgs", "auc_table"]
 
 CUTOFF = 10
 
@@ -82,13 +82,26 @@ def _discounts(sizes, k):
     return out
 
 
-def _ndcgs(t, g, k):
+def _ideal(g, sizes, owner, discount):
+    """The DCG of each list in its ideal order (its gains sorted, best first), as a list."""
+    bounds = np.append(0, np.cumsum(sizes)).tolist()
+    best = g[np.lexsort((g, owner))]
+    return [best[a:b][::-1] @ discount[a:b] if b > a else 0.0 for a, b in zip(bounds[:-1], bounds[1:])]
+
+
+def ideal_dcgs(gains, sizes, k=CUTOFF):
+    """The ideal DCG@k of many lists laid end to end (as in :func:`metric_table`), which every
+    ranking of the same lists shares: pass it to :func:`metric_table` as ``ideal``."""
+    g = np.asarray(gains, dtype=float)
+    sizes = np.asarray(sizes, dtype=np.int64).reshape(-1)
+    return _ideal(g, sizes, np.repeat(np.arange(sizes.size), sizes), _discounts(sizes, k))
+
+
+def _ndcgs(t, g, k, ideal=None):
     """DCG@k with tied gains averaged (McSherry & Najork 2008) / the ideal DCG@k, per list."""
     discount = _discounts(t.sizes, k)
-    bounds = np.append(0, np.cumsum(t.sizes)).tolist()
-    # The ideal order of each list: its gains sorted, best first.
-    best = g[np.lexsort((g, t.owner))]
-    ideal = [best[a:b][::-1] @ discount[a:b] if b > a else 0.0 for a, b in zip(bounds[:-1], bounds[1:])]
+    if ideal is None:
+        ideal = _ideal(g, t.sizes, t.owner, discount)
     group_gain = np.add.reduceat(g[t.order], t.starts) / t.counts if t.starts.size else np.zeros(0)
     group_discount = np.add.reduceat(discount, t.starts) if t.starts.size else np.zeros(0)
     groups = t.first_group.tolist()
@@ -115,7 +128,7 @@ def _hits(t, pos, k):
     return out
 
 
-def metric_table(scores, gains, sizes, k=CUTOFF):
+def metric_table(scores, gains, sizes, k=CUTOFF, ideal=None):
     """AUC, NDCG@k and hit@k of many ranked lists at once, each as :func:`auc`,
     :func:`ndcg_at_k` and :func:`hit_at_k` give it (to the last bit).
 
@@ -129,6 +142,8 @@ def metric_table(scores, gains, sizes, k=CUTOFF):
         Items per list, summing to N.
     k : int
         Rank cutoff of NDCG and hit.
+    ideal : list of float, optional
+        :func:`ideal_dcgs` of ``gains``, ``sizes`` and ``k``, when known already.
 
     Returns
     -------
@@ -140,7 +155,7 @@ def metric_table(scores, gains, sizes, k=CUTOFF):
     _check_cutoff(k)
     t = _ties(s, sizes)
     pos = g > 0
-    return np.stack([_aucs(t, pos), _ndcgs(t, g, k), _hits(t, pos, k)], axis=1)
+    return np.stack([_aucs(t, pos), _ndcgs(t, g, k, ideal), _hits(t, pos, k)], axis=1)
 
 
 def auc_table(scores, labels, sizes):

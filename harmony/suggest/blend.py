@@ -30,6 +30,7 @@ import io
 import json
 import math
 from dataclasses import asdict, dataclass, field
+from operator import attrgetter
 from pathlib import Path
 
 import numpy as np
@@ -48,6 +49,7 @@ __all__ = [
     "blend_group",
     "blend_feed",
     "blend_from_store",
+    "BlendRanks",
     "BlendMethod",
     "write_records",
     "parse_weights",
@@ -60,6 +62,7 @@ CANDIDATE_COLUMNS = ("product", "partner", "score")
 BLEND_COLUMNS = ("product", "category", "partner", "partner_category", "rank", "score", "reason", "pinned",
                  "harmony_score", "candidate_score", "source", "relation")
 _SHOWN = 5
+_ID = attrgetter("id")
 
 
 @dataclass(frozen=True)
@@ -345,36 +348,69 @@ def blend_from_store(store, rules, feed_rows, candidates, weight, top):
 
 
 @dataclass(frozen=True, eq=False)
+class BlendRanks:
+    """What a blend mixes, whatever its weight: harmony's raw pair scores and the candidate list's
+    scores, each rank-normalised over each query's candidates (0 for candidates the list does not
+    propose). The ranks of the latest queries asked are remembered, so the blends of several
+    weights share them; ``candidates`` is read when the ranks are made."""
+
+    rules_method: object
+    candidates: dict  # (product, partner) -> score
+    _by_anchor: dict = field(default_factory=dict, init=False, repr=False)  # product -> {partner: score}
+    _latest: list = field(default_factory=lambda: [None, None], init=False, repr=False)
+
+    def __post_init__(self):
+        for (product, partner), score in self.candidates.items():
+            self._by_anchor.setdefault(product, {})[partner] = score
+
+    def ranks(self, asked):
+        """``(harmony, other, bounds)`` of ``(anchor, candidates)`` queries: two arrays laid end to
+        end and the start of each query's run (and the end of the last)."""
+        key = [(a.id, tuple(map(_ID, cands))) for a, cands in asked]
+        if self._latest[0] == key:
+            return self._latest[1]
+        sizes = [len(cands) for _, cands in asked]
+        many = getattr(self.rules_method, "score_queries", None)
+        own = many(asked) if many is not None else [self.rules_method(a, cands) for a, cands in asked]
+        h = rank_normalise(np.concatenate(own) if own else np.zeros(0), sizes)
+        theirs = [list(map(self._by_anchor.get(a, {}).get, partners)) for a, partners in key]
+        proposed = np.array([v is not None for row in theirs for v in row], dtype=bool)
+        o = np.zeros(proposed.size)
+        o[proposed] = rank_normalise([v for row in theirs for v in row if v is not None],
+                                     [len(row) - row.count(None) for row in theirs])
+        self._latest[:] = [key, (h, o, np.append(0, np.cumsum(sizes)).tolist())]
+        return self._latest[1]
+
+
+@dataclass(frozen=True, eq=False)
 class BlendMethod:
     """An evaluation method (see :mod:`harmony.evaluation.core`): harmony's raw pair score and the
     candidate list, rank-normalised over a query's candidates and mixed with ``weight``.
 
     ``rules_method`` is a :class:`harmony.evaluation.methods.RulesMethod`; candidates the list does
-    not propose get 0 from it (see the module notes).
+    not propose get 0 from it (see the module notes). ``ranks``, when given, is a
+    :class:`BlendRanks` of the same ``rules_method`` and ``candidates`` that blends of other weights share.
     """
 
     rules_method: object
     candidates: dict  # (product, partner) -> score
     weight: float
     name: str = ""
+    ranks: BlendRanks = None
     kind: str = field(default="blend", init=False)
+
+    def __post_init__(self):
+        if self.ranks is None:
+            object.__setattr__(self, "ranks", BlendRanks(self.rules_method, self.candidates))
 
     def __call__(self, anchor, candidates):
         return self.score_queries([(anchor, candidates)])[0]
 
     def score_queries(self, asked):
         """Scores of many ``(anchor, candidates)`` queries (a list of arrays), ranked all at once."""
-        sizes = [len(cands) for _, cands in asked]
-        many = getattr(self.rules_method, "score_queries", None)
-        own = many(asked) if many is not None else [self.rules_method(a, cands) for a, cands in asked]
-        h = rank_normalise(np.concatenate(own), sizes)
-        theirs = [[self.candidates.get((a.id, c.id)) for c in cands] for a, cands in asked]
-        proposed = np.array([v is not None for row in theirs for v in row], dtype=bool)
-        o = np.zeros(proposed.size)
-        o[proposed] = rank_normalise([v for row in theirs for v in row if v is not None],
-                                     [sum(v is not None for v in row) for row in theirs])
+        h, o, bounds = self.ranks.ranks(asked)
         mixed = (1.0 - self.weight) * h + self.weight * o
-        return np.split(mixed, np.cumsum(sizes)[:-1])
+        return [mixed[lo:hi] for lo, hi in zip(bounds[:-1], bounds[1:])]
 
 
 def write_records(rows, path, columns, fmt=None, what="feed"):
@@ -426,6 +462,8 @@ def blend_methods_factory(path, weights_text):
 
     def make(methods, palettes, products):
         rules_method = next(m for m in methods if getattr(m, "kind", "") == "rules")
-        return [BlendMethod(rules_method, candidates, w, name=f"blend W={w:g} ({rules_method.name})") for w in weights]
+        ranks = BlendRanks(rules_method, candidates)
+        return [BlendMethod(rules_method, candidates, w, name=f"blend W={w:g} ({rules_method.name})", ranks=ranks)
+                for w in weights]
 
     return make
