@@ -94,15 +94,25 @@ class RulesMethod:
             # The kernel is colour by colour: each query's rows and columns of the block hold the
             # bits of that query's own kernel.
             kernel = pair.kernel(np.concatenate([pa.jab for pa in anchors]), jab_b)
-            at = 0
-            for j, pa in zip(block, anchors):
-                picked = np.array([column[c.id] for c in queries[j][1]])
-                cols = _columns(starts_b, sizes_b, picked)
+            # The block's queries' partners laid end to end, then their colours.
+            picked = np.array([column[pid] for j in block for pid in map(_ID, queries[j][1])])
+            colours = sizes_b[picked]
+            cols = _columns(starts_b, sizes_b, picked)
+            counts = np.array([len(queries[j][1]) for j in block])
+            widths = np.add.reduceat(colours, np.cumsum(counts) - counts).tolist()  # colours per query
+            per_colour = np.empty(cols.size)
+            at = lo = 0
+            for pa, width in zip(anchors, widths):
                 # C order, as a query's own kernel is: the product then sums in the same order.
-                own = np.ascontiguousarray(kernel[at : at + len(pa), cols])
-                per_colour = (pa.weights @ own) * w_b[cols]
-                out[j] = np.add.reduceat(per_colour, np.cumsum(sizes_b[picked]) - sizes_b[picked])
+                own = np.ascontiguousarray(kernel[at : at + len(pa), cols[lo : lo + width]])
+                per_colour[lo : lo + width] = pa.weights @ own
                 at += len(pa)
+                lo += width
+            per_colour *= w_b[cols]
+            sums = np.add.reduceat(per_colour, np.cumsum(colours) - colours)  # per partner
+            bounds = np.append(0, np.cumsum(counts)).tolist()
+            for j, lo, hi in zip(block, bounds[:-1], bounds[1:]):
+                out[j] = sums[lo:hi]
         return out
 
 
