@@ -139,14 +139,12 @@ class SameColoursMethod:
         """Scores of many ``(product, candidates)`` queries: a list of arrays."""
         known = self._known  # product id -> {partner id: distance}, each pair under both ids
         ids = [(p.id, list(map(_ID, cands))) for p, cands in asked]
-        todo, new = {}, {}  # first palette -> partners whose pair is new, in the order asked; new pairs both ways
+        todo = {}  # first palette -> {partner: None} whose pair is new, in the order asked
         for a, partners in ids:
             mine = known.get(a, {})
-            for b in [b for b in partners if b not in mine]:
-                if b not in new.get(a, ()):
-                    new.setdefault(a, set()).add(b)
-                    new.setdefault(b, set()).add(a)
-                    todo.setdefault(a, []).append(b)
+            fresh = [b for b in partners if b not in mine and a not in todo.get(b, ())]
+            if fresh:
+                todo.setdefault(a, {}).update(dict.fromkeys(fresh))
         for a, partners in todo.items():
             distances = emd_signatures(self._signature(a), [self._signature(b) for b in partners])
             for b, d in zip(partners, distances.tolist()):
@@ -169,29 +167,47 @@ def _colour_words(product, attribute):
 
 @dataclass(frozen=True, eq=False)
 class ColourAttributeMethod:
-    """Rank by the overlap of the catalogue's colour words (Jaccard index; no words scores 0)."""
+    """Rank by the overlap of the catalogue's colour words (Jaccard index; no words scores 0).
+
+    Products with the same words share a word set; the index of each word set with every other is
+    worked out once, so a query's scores are a look-up per candidate.
+    """
 
     attribute: str = "colour"
     name: str = "colour attribute"
     kind: str = field(default="baseline", init=False)
-    _words: dict = field(default_factory=dict, init=False, repr=False)  # product id -> its words
+    _set_of: dict = field(default_factory=dict, init=False, repr=False)  # product id -> word set number
+    _sets: dict = field(default_factory=dict, init=False, repr=False)  # word set -> its number, in order
+    _rows: dict = field(default_factory=dict, init=False, repr=False)  # word set number -> indices with the others
 
     def __call__(self, product, candidates):
-        mine = self._words_of(product)
-        out = np.zeros(len(candidates))
-        if not mine:
-            return out
-        for i, c in enumerate(candidates):
-            theirs = self._words_of(c)
-            if theirs:
-                out[i] = len(mine & theirs) / len(mine | theirs)
+        return self.score_queries([(product, candidates)])[0]
+
+    def score_queries(self, asked):
+        """Scores of many ``(product, candidates)`` queries: a list of arrays."""
+        out = []
+        for product, candidates in asked:
+            theirs = list(map(self._set_of.get, map(_ID, candidates)))
+            if None in theirs:
+                theirs = [self._set_number(c) for c in candidates]
+            out.append(self._row(self._set_number(product))[theirs] if theirs else np.zeros(0))
         return out
 
-    def _words_of(self, product):
-        words = self._words.get(product.id)
-        if words is None:
-            words = self._words[product.id] = _colour_words(product, self.attribute)
-        return words
+    def _set_number(self, product):
+        number = self._set_of.get(product.id)
+        if number is None:
+            words = _colour_words(product, self.attribute)
+            number = self._set_of[product.id] = self._sets.setdefault(words, len(self._sets))
+        return number
+
+    def _row(self, number):
+        """The Jaccard index of word set ``number`` with every word set seen so far (0 without words)."""
+        row = self._rows.get(number)
+        if row is None or row.size < len(self._sets):
+            sets = list(self._sets)
+            mine = sets[number]
+            row = self._rows[number] = np.array([len(mine & t) / len(mine | t) if mine and t else 0.0 for t in sets])
+        return row
 
 
 @dataclass(frozen=True, eq=False)

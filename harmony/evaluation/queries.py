@@ -95,9 +95,9 @@ def build_queries(log, products, palettes=None):
         if by_id[pid].in_stock():
             in_stock.setdefault(category[pid], []).append(pid)
 
-    gains = {}  # (query product, partner) -> gain
+    positives = {}  # query product -> partner category -> {partner: gain}
     seen, no_palette = set(), set()
-    for session, weights in log.sessions().items():
+    for weights in log.sessions().values():
         items = []
         for pid, w in weights.items():
             if pid not in by_id:
@@ -105,20 +105,27 @@ def build_queries(log, products, palettes=None):
             if pid not in usable:
                 no_palette.add(pid)
                 continue
-            items.append((pid, w))
+            items.append((pid, w, category[pid]))
             seen.add(pid)
-        for i, (a, wa) in enumerate(items):
-            for b, wb in items[i + 1 :]:
-                if category[a] == category[b]:
+        for i, (a, wa, ca) in enumerate(items):
+            mine = positives.setdefault(a, {})
+            for b, wb, cb in items[i + 1 :]:
+                if ca == cb:
                     continue
                 g = min(wa, wb)
-                gains[(a, b)] = gains.get((a, b), 0.0) + g
-                gains[(b, a)] = gains.get((b, a), 0.0) + g
+                to_b = mine.get(cb)
+                if to_b is None:
+                    to_b = mine[cb] = {}
+                to_b[b] = to_b.get(b, 0.0) + g
+                theirs = positives.get(b)
+                if theirs is None:
+                    theirs = positives[b] = {}
+                to_a = theirs.get(ca)
+                if to_a is None:
+                    to_a = theirs[ca] = {}
+                to_a[a] = to_a.get(a, 0.0) + g
     n_events = sum(1 for ev in log.events if ev.product in usable)
 
-    positives = {}  # query product -> category -> {partner: gain}
-    for (a, b), g in gains.items():
-        positives.setdefault(a, {}).setdefault(category[b], {})[b] = g
     queries, queried = [], set()
     for a in sorted(positives):
         for cat in sorted(positives[a]):
