@@ -13,7 +13,7 @@ from harmony.evaluation.methods import (
     SameColoursMethod,
     standard_methods,
 )
-from harmony.evaluation.metrics import CUTOFF, auc, auc_table, hit_at_k, metric_table, ndcg_at_k
+from harmony.evaluation.metrics import CUTOFF, auc, auc_table, hit_at_k, ideal_dcgs, metric_table, ndcg_at_k
 from harmony.evaluation.page import (
     METRICS,
     READING_NOTE,
@@ -26,6 +26,6 @@ from harmony.evaluation.queries import Query, QuerySet, build_queries
 __all__ = [
     "CUTOFF", "METRICS", "READING_NOTE", "ColourAttributeMethod", "Evaluation", "MethodResult",
     "Query", "QuerySet", "RandomMethod", "RulesMethod", "SameColoursMethod", "auc", "auc_table", "build_queries",
-    "emd", "emd_one_to_many", "evaluate", "hit_at_k", "metric_table", "ndcg_at_k", "render_html", "result_table",
+    "emd", "emd_one_to_many", "evaluate", "hit_at_k", "ideal_dcgs", "metric_table", "ndcg_at_k", "render_html", "result_table",
     "standard_methods", "write_html",
 ]

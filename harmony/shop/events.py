@@ -26,6 +26,7 @@ import math
 from collections import Counter
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
+from operator import itemgetter
 from pathlib import Path
 
 from harmony.errors import EventsError
@@ -203,16 +204,16 @@ def _csv_rows(path):
             raise EventsError(f"{path}: empty file, expected a header row")
         header = [str(h).strip().casefold() for h in first]
         _check_header(path, header)
-        column = {name: i for i, name in enumerate(header)}
-        at = tuple(column.get(name, -1) for name in _FIELDS)
         width = len(header)
+        column = {name: i for i, name in enumerate(header)}
+        # Each row is padded with "" to width + 1 fields: a missing column reads the last.
+        pick = itemgetter(*(column.get(name, width) for name in _FIELDS))
         for row in reader:
-            if len(row) == width:
-                yield reader.line_num, tuple(row[i].strip() if i >= 0 else "" for i in at)
-            elif len(row) > width:
+            if len(row) > width:
                 yield reader.line_num, "more fields than the header has"
             elif row:
-                yield reader.line_num, tuple(row[i].strip() if 0 <= i < len(row) else "" for i in at)
+                row += [""] * (width + 1 - len(row))
+                yield reader.line_num, tuple(map(str.strip, pick(row)))
 
 
 def _jsonl_rows(path):

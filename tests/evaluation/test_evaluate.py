@@ -21,6 +21,7 @@ from harmony.evaluation import (
     emd_one_to_many,
     evaluate,
     hit_at_k,
+    ideal_dcgs,
     metric_table,
     ndcg_at_k,
     standard_methods,
@@ -434,6 +435,17 @@ def test_colour_attribute_overlap_and_standard_methods(tmp_path):
         Product("E", "Rug", 1.0),
     ]
     np.testing.assert_allclose(ColourAttributeMethod()(a, cands), [0.5, 1.0, 0.0, 0.0])
+    # Many queries at once, word sets first met after others were scored: each score is the
+    # Jaccard index |A & B| / |A | B| of the two word sets (Jaccard 1901), worked here with sets.
+    more = [Product("F", "Rug", 1.0, attributes={"colour": "grey/ochre"}), Product("G", "Rug", 1.0)]
+    method = ColourAttributeMethod()
+    method(a, cands[:2])
+    asked = [(a, cands + more), (more[0], [a, *cands]), (more[1], cands), (cands[3], more)]
+    words = {p.id: set(str(p.attributes.get("colour", "")).lower().replace("/", " ").split()) for p in [a, *cands, *more]}
+    for (anchor, others), got in zip(asked, method.score_queries(asked)):
+        want = [len(words[anchor.id] & words[o.id]) / len(words[anchor.id] | words[o.id])
+                if words[anchor.id] and words[o.id] else 0.0 for o in others]
+        assert got.tolist() == want
     rules = [load_rules(DATA / "complementary_only.toml"), load_rules(DATA / "complementary_inverted.toml")]
     names = [m.name for m in standard_methods(rules, {}, [a, *cands])]
     assert names == ["complementary_only", "complementary_inverted", "same colours (EMD)", "colour attribute", "random order"]
@@ -471,6 +483,9 @@ def test_metric_table_of_many_lists_is_each_list_alone(seed, k):
     gains = np.concatenate([g for _, g in lists])
     table = metric_table(scores, gains, [len(s) for s, _ in lists], k)
     assert table.shape == (len(lists), 3)
+    # The ideal DCGs worked out once (as the evaluation does for all its methods) change no bit.
+    ideal = ideal_dcgs(gains, [len(s) for s, _ in lists], k)
+    np.testing.assert_array_equal(metric_table(scores, gains, [len(s) for s, _ in lists], k, ideal), table)
     for (s, g), row in zip(lists, table):
         alone = [auc(s, g > 0), ndcg_at_k(s, g, k), hit_at_k(s, g > 0, k)]
         np.testing.assert_array_equal(row, alone)  # NaN where undefined, equal bits elsewhere
@@ -479,3 +494,25 @@ def test_metric_table_of_many_lists_is_each_list_alone(seed, k):
             assert row[1] == pytest.approx(ndcg_score([g], [s], k=k), abs=1e-12)
     with pytest.raises(ValueError, match="sum to the"):
         metric_table(scores, gains, [len(scores) - 1], k)
+
+
+def test_collection_paused_restores_the_collector():
+    # The standard library's gc switch: off inside the block, as it was after it, errors included.
+    import gc
+
+    from harmony.evaluation.run import collection_paused
+
+    assert gc.isenabled()
+    with collection_paused():
+        inside = gc.isenabled()
+    assert not inside and gc.isenabled()
+    with pytest.raises(RuntimeError), collection_paused():
+        raise RuntimeError
+    assert gc.isenabled()
+    gc.disable()
+    try:
+        with collection_paused():
+            pass
+        assert not gc.isenabled()
+    finally:
+        gc.enable()

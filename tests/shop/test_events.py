@@ -159,3 +159,37 @@ def test_kinds_without_a_weight_are_counted_not_fatal(tmp_path):
 def test_unknown_ids_keep_first_appearance_among_equal_counts(tmp_path):
     path = write(tmp_path / "log.csv", "user,product,event\nu,Q,view\nu,P,view\nu,P,cart\nu,R,view\nu,Q,view\n")
     assert read_events(path, known_products=set()).unknown == (("Q", 2), ("P", 2), ("R", 1))
+
+
+def test_csv_reads_as_the_standard_dict_reader(tmp_path):
+    # Reference: the standard library's csv.DictReader over the same text (blank lines skipped,
+    # short rows padded with None, of a column named twice the last one kept, the line a row ends
+    # on), with the header trimmed and case-folded as the module notes say.
+    import csv
+    import io
+
+    text = (" Product ,USER,event,Session,timestamp,session\n"
+            "A,u1,view,s0,2026-03-01T10:00:00Z,s1\n"
+            "\n"
+            "B,u1,\"pur\nchase\",s0,,s2\n"  # an event over two lines: its own kind
+            "C,u2, CART ,s0,1772359200,\n"  # the last session column empty: the user counts
+            "D,u3,view\n"  # short: no session column at all
+            "\n\n"
+            "E,u4,view,s0,  ,s3\n")
+    log = read_events(write(tmp_path / "log.csv", text), weights={"view": 1, "cart": 3, "pur\nchase": 5})
+    reader = csv.DictReader(io.StringIO(text))
+    reader.fieldnames = [h.strip().casefold() for h in reader.fieldnames]
+    want = []
+    for row in reader:
+        session = (row["session"] or "").strip() or (row["user"] or "").strip()
+        stamp = (row["timestamp"] or "").strip()
+        stamp = None if not stamp else float(stamp) if ":" not in stamp else datetime.fromisoformat(stamp).timestamp()
+        want.append((session, row["product"].strip(), row["event"].strip().casefold(), stamp, reader.line_num))
+    assert [(e.session, e.product, e.event, e.timestamp, e.line) for e in log.events] == want
+    assert [e.line for e in log.events] == [2, 5, 6, 7, 10]
+
+
+def test_short_and_long_rows_are_named(tmp_path):
+    path = write(tmp_path / "log.csv", "session,product,event\ns,A\ns,B,view,x\n\ns,C,view\n")
+    with pytest.raises(EventsError, match=r"2 bad rows: line 2: empty event; line 3: more fields than the header has$"):
+        read_events(path)

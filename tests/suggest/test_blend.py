@@ -141,3 +141,88 @@ def test_candidates_jsonl(tmp_path):
     path.write_text('{"product": "A", "partner": "B", "score": 0.5, "partner_category": "Rug"}\n')
     (c,) = read_candidates(path)
     assert (c.product, c.partner, c.score, c.partner_category) == ("A", "B", 0.5, "rug")
+
+
+def test_blends_of_several_weights_share_their_ranks_and_keep_their_numbers():
+    # One BlendRanks for every weight (as blend_methods_factory makes them) gives each weight the
+    # numbers of a blend of its own, asked the same queries, then other ones.
+    from harmony.suggest.blend import BlendRanks
+
+    rng = np.random.default_rng(4)
+    anchors = [SimpleNamespace(id=a) for a in "ABC"]
+    cands = {a.id: [SimpleNamespace(id=f"{a.id}{i}") for i in range(int(rng.integers(1, 9)))] for a in anchors}
+    raw = {a.id: rng.integers(0, 4, len(cands[a.id])).astype(float) for a in anchors}
+    theirs = {(a.id, c.id): float(rng.integers(0, 3)) for a in anchors for c in cands[a.id] if rng.random() < 0.5}
+    rules = lambda anchor, cs: raw[anchor.id]  # noqa: E731
+    shared = BlendRanks(rules, theirs)
+    for asked in ([(a, cands[a.id]) for a in anchors], [(anchors[1], cands["B"])], [(a, cands[a.id]) for a in anchors]):
+        for w in (0.0, 0.3, 1.0):
+            got = BlendMethod(rules, theirs, w, ranks=shared).score_queries(asked)
+            alone = BlendMethod(rules, theirs, w).score_queries(asked)
+            assert len(got) == len(asked)
+            for x, y in zip(got, alone):
+                np.testing.assert_array_equal(x, y)
+
+
+def _dict_reader_rows(text):
+    # Reference: the standard library's csv.DictReader (blank lines skipped, short rows padded with
+    # None, of a column named twice the last one kept), with the line each row ends on.
+    import csv
+    import io
+
+    reader = csv.DictReader(io.StringIO(text))
+    return [(reader.line_num, row) for row in reader]
+
+
+def test_candidate_csv_reads_as_the_standard_dict_reader(tmp_path):
+    text = ('score,product,partner,partner_category,note\n'
+            'A,B,0.5,rug,x\n'  # columns in another order: a bad score
+            '\n'
+            '0.25,A,C," Dining\tChair ",y\n'
+            '"0.75",A,"D\nE",lamp\n'  # a quoted field over two lines
+            '0.5,B\n'  # short: no partner
+            '1,B,A,,,extra\n'
+            '2,A,C\n')  # the pair of line 4 again
+    path = tmp_path / "c.csv"
+    path.write_text(text)
+    want = []
+    for line, row in _dict_reader_rows(text):
+        fields = {k: (row.get(k) or "").strip() for k in ("product", "partner", "score")}
+        if not fields["partner"]:
+            want.append(f"{path}:{line}: partner: missing")
+        elif line == 2:
+            want.append(f"{path}:{line}: score: not a finite number: {fields['score']!r}")
+    want.append(f"{path}:9: partner: 'C' is given twice for 'A' (line 4)")
+    with pytest.raises(HarmonyError) as info:
+        read_candidates(path)
+    assert str(info.value) == f"{len(want)} bad row(s): " + "; ".join(want)
+    good = "".join(line for i, line in enumerate(text.splitlines(keepends=True)) if i not in (1, 6, 8))
+    path.write_text(good)
+    got = read_candidates(path)
+    rows = _dict_reader_rows(good)
+    assert [c.line for c in got] == [line for line, _ in rows]
+    assert [(c.product, c.partner, c.score) for c in got] == [
+        (r["product"].strip(), r["partner"].strip(), float(r["score"])) for _, r in rows]
+    assert [c.partner_category for c in got] == ["dining chair", "lamp", ""]
+
+
+def test_candidate_csv_column_named_twice_keeps_the_last(tmp_path):
+    path = tmp_path / "c.csv"
+    path.write_text("product,partner,score,score\nA,B,oops,0.5\nA,C,1,2\n")
+    (_, row), _ = _dict_reader_rows(path.read_text())
+    got = read_candidates(path)
+    assert got[0].score == float(row["score"]) == 0.5
+    path.write_text("product,partner,score,score\nA,B,oops,0.5\nA,C,1\n")  # short: the last score is absent
+    assert _dict_reader_rows(path.read_text())[1][1]["score"] is None
+    with pytest.raises(HarmonyError, match=r"c.csv:3: score: missing"):
+        read_candidates(path)
+
+
+def test_unreadable_candidate_csv_is_one_line(tmp_path):
+    import csv
+
+    path = tmp_path / "c.csv"
+    path.write_text("product,partner,score\nA,B,1\n" + "A,\"" + "x" * (csv.field_size_limit() + 1) + "\",1\n")
+    with pytest.raises(HarmonyError, match=r"c.csv:3: not a readable CSV row: field larger than field limit") as info:
+        read_candidates(path)
+    assert "\n" not in str(info.value)
