@@ -275,7 +275,7 @@ def evaluate(queries, methods, products, rng, resamples=1000, level=0.95, unknow
             many = getattr(method, "score_queries", None)
             scores = many(asked) if many is not None else [method(product, cands) for product, cands in asked]
             for s, n in zip(scores, sizes):
-                if np.shape(s) != (n,):
+                if getattr(s, "shape", None) != (n,) and np.shape(s) != (n,):
                     raise ValueError(f"{method.name}: {n} candidates need {n} scores, got shape {np.shape(s)}")
             # The chunk's metrics at once: the same numbers as auc, ndcg_at_k and hit_at_k per query.
             values[method.name][lo:hi] = metric_table(np.concatenate(scores), gains, sizes, CUTOFF, ideal)

@@ -105,10 +105,11 @@ def _ndcgs(t, g, k, ideal=None):
     group_gain = np.add.reduceat(g[t.order], t.starts) / t.counts if t.starts.size else np.zeros(0)
     group_discount = np.add.reduceat(discount, t.starts) if t.starts.size else np.zeros(0)
     groups = t.first_group.tolist()
+    dcg = np.array([group_gain[a:b] @ group_discount[a:b] for a, b in zip(groups[:-1], groups[1:])], dtype=float)
+    ideal = np.asarray(ideal, dtype=float)
     out = np.full(t.sizes.size, math.nan)
-    for i, (a, b) in enumerate(zip(groups[:-1], groups[1:])):
-        if ideal[i] > 0:
-            out[i] = float(group_gain[a:b] @ group_discount[a:b] / ideal[i])
+    defined = ideal > 0
+    out[defined] = dcg[defined] / ideal[defined]
     return out
 
 
