@@ -355,8 +355,8 @@ def parse_rules(text, where="<string>"):
         err.problems = (str(err),)
         raise err
     problems.unknown_keys(data, _TOP_KEYS, ())
-    fmt = _get(problems, data, "format", (), lambda v: None if v == FORMAT_VERSION and not isinstance(v, bool)
-               else f"this version of harmony reads format {FORMAT_VERSION}, got {v!r}")
+    _get(problems, data, "format", (), lambda v: None if v == FORMAT_VERSION and not isinstance(v, bool)
+         else f"this version of harmony reads format {FORMAT_VERSION}, got {v!r}")
     description = _get(problems, data, "description", (), _string(), required=False, default="")
     if description is _MISSING:
         description = ""

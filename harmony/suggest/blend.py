@@ -29,7 +29,7 @@ import csv
 import io
 import json
 import math
-from dataclasses import asdict, dataclass, field
+from dataclasses import dataclass, field
 from operator import attrgetter
 from pathlib import Path
 
@@ -38,6 +38,7 @@ import numpy as np
 from harmony.errors import HarmonyError
 from harmony.fileio import spreadsheet_safe_row, write_text_whole
 from harmony.shop.catalogue import normalise_category
+from harmony.suggest.rows import PartnerRow
 
 __all__ = [
     "CANDIDATE_COLUMNS",
@@ -77,25 +78,15 @@ class Candidate:
 
 
 @dataclass(frozen=True)
-class BlendRow:
+class BlendRow(PartnerRow):
     """A blended feed row. ``source`` is ``both``, ``harmony`` (not proposed by the other system),
     ``candidates`` (not in harmony's list but scored by it) or ``not in store`` (kept its own
     score); ``harmony_score`` / ``candidate_score`` are the raw inputs (None when absent)."""
 
-    product: str
-    category: str
-    partner: str
-    partner_category: str
-    rank: int
-    score: float
-    reason: str
     harmony_score: float | None
     candidate_score: float | None
     source: str
     relation: str = "partner"
-
-    def to_dict(self):
-        return asdict(self)
 
 
 def read_candidates(path):

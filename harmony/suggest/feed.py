@@ -17,8 +17,7 @@ import dataclasses
 import difflib
 import itertools
 import warnings
-from dataclasses import asdict, dataclass, field
-from pathlib import Path
+from dataclasses import dataclass, field
 
 import numpy as np
 from tqdm import tqdm
@@ -41,6 +40,7 @@ from harmony.rules.screen_pairs import screen_both_ways
 from harmony.suggest.feedwriter import FEED_COLUMNS, FEED_FORMATS, FeedChunk, feed_format, write_chunks
 from harmony.shop.catalogue import normalise_category
 from harmony.suggest.curation import category_pair_allowed, curate, curate_rows, limit_partner_categories
+from harmony.suggest.rows import PartnerRow
 
 __all__ = [
     "FeedRow",
@@ -86,7 +86,7 @@ FEED_BLOCK = 10_000
 
 
 @dataclass(frozen=True)
-class FeedRow:
+class FeedRow(PartnerRow):
     """One line of the feed: ``partner`` is the ``rank``-th best partner of ``product``.
 
     Categories are normalised (:func:`harmony.shop.catalogue.normalise_category`); ``rank`` starts
@@ -94,17 +94,7 @@ class FeedRow:
     ``pinned`` is true when a curation file placed this partner (see :mod:`harmony.suggest.curation`).
     """
 
-    product: str
-    category: str
-    partner: str
-    partner_category: str
-    rank: int
-    score: float
-    reason: str
     pinned: bool = False
-
-    def to_dict(self):
-        return asdict(self)
 
 
 @dataclass(frozen=True, eq=False)

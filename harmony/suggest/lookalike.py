@@ -28,11 +28,12 @@ M. R. Luo, G. Cui, C. Li (2006). Uniform colour spaces based on CIECAM02 colour 
     Color Research & Application 31(4):320-330.
 """
 
-from dataclasses import asdict, dataclass
+from dataclasses import dataclass
 
 import numpy as np
 
 from harmony.errors import HarmonyError, StoreError
+from harmony.suggest.rows import PartnerRow
 
 __all__ = [
     "SIMILAR_DELTA_E",
@@ -52,22 +53,12 @@ SIMILAR_DELTA_E = 10.0
 
 
 @dataclass(frozen=True)
-class SimilarRow:
+class SimilarRow(PartnerRow):
     """A feed row of the ``similar`` relation: ``partner`` is the ``rank``-th closest palette of
     the same category; ``distance`` is the EMD in CAM02-UCS ΔE."""
 
-    product: str
-    category: str
-    partner: str
-    partner_category: str
-    rank: int
-    score: float
-    reason: str
     distance: float
     relation: str = "similar"
-
-    def to_dict(self):
-        return asdict(self)
 
 
 def _normalised(weights):
