@@ -159,6 +159,20 @@ def test_garwood_interval_matches_published_values():
     np.testing.assert_allclose(hi, [3.689, 5.572, 18.39], atol=1e-2)
 
 
+@pytest.mark.parametrize("level", [0.5, 0.9, 0.95, 0.99])
+def test_garwood_interval_equals_scipys_chi_square_quantiles(level):
+    # The textbook form (Garwood 1936): chi-square quantiles with 2k and 2k + 2 degrees of freedom,
+    # here from scipy.stats (the reference library) on counts 0..2,000 and a few large ones.
+    from scipy.stats import chi2
+
+    k = np.concatenate([np.arange(2001.0), [5000.0, 1e5]])
+    a = (1.0 - level) / 2.0
+    lo, hi = garwood_interval(k, level)
+    np.testing.assert_allclose(lo, np.where(k > 0, chi2.ppf(a, 2 * k) / 2.0, 0.0), rtol=1e-14, atol=0)
+    np.testing.assert_allclose(hi, chi2.ppf(1.0 - a, 2 * (k + 1)) / 2.0, rtol=1e-14, atol=0)
+    assert lo[0] == 0.0
+
+
 def test_a_log_where_nothing_moves_is_refused():
     log = impression_log([(f"r{i}", "P", s, k, i % 2) for i in range(10) for k, s in enumerate("xy", start=1)])
     with pytest.raises(EventsError, match="always sits in the same slot"):
