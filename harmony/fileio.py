@@ -14,9 +14,13 @@ CSV written for people may be opened in a spreadsheet, which runs a cell beginni
 ``+``, ``-`` or ``@`` (or a tab or carriage return) as a formula; :func:`spreadsheet_safe`
 neutralises such text cells with a leading apostrophe (common spreadsheet-safety practice, as
 the OWASP "CSV Injection" page recommends).
+
+Input files in JSON Lines (one JSON object per line, jsonlines.org) are read line by line with
+:func:`json_objects`, which names each line's problem for the caller's one-line error.
 """
 
 import errno
+import json
 import os
 import re
 import socket
@@ -219,3 +223,25 @@ def spreadsheet_safe_row(row):
     if isinstance(row, dict):
         return {key: spreadsheet_safe(value) for key, value in row.items()}
     return [spreadsheet_safe(value) for value in row]
+
+
+def json_objects(lines, not_object="not a JSON object", column=False):
+    """``(line number, object, problem)`` of each non-blank line of JSON Lines text.
+
+    ``lines`` is any iterable of lines (``text.splitlines()``, an open file); numbers start at 1.
+    ``object`` is the line's JSON object and ``problem`` None, or ``object`` is None and ``problem``
+    says why: ``"not JSON: <reason>"`` (with ``" (column N)"`` when ``column``) or ``not_object``
+    for JSON that is not an object.
+    """
+    for number, text in enumerate(lines, start=1):
+        if not text.strip():
+            continue
+        try:
+            obj = json.loads(text)
+        except json.JSONDecodeError as exc:
+            yield number, None, f"not JSON: {exc.msg}" + (f" (column {exc.colno})" if column else "")
+            continue
+        if isinstance(obj, dict):
+            yield number, obj, None
+        else:
+            yield number, None, not_object

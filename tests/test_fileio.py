@@ -81,3 +81,20 @@ def test_permissions_follow_the_umask_or_the_replaced_file(tmp_path):
         assert served.stat().st_mode & 0o777 == 0o664 and served.read_text() == "new\n"
     finally:
         os.umask(old)
+
+
+def test_json_objects_numbers_lines_and_names_each_problem():
+    # JSON Lines (jsonlines.org): one value per line; the reasons are the standard json module's.
+    import json
+
+    from harmony.fileio import json_objects
+
+    lines = ['{"a": 1}', "", "   ", "[1, 2]", "{oops", '{"b": "x"}\n']
+    try:
+        json.loads("{oops")
+    except json.JSONDecodeError as exc:
+        reason, col = exc.msg, exc.colno
+    assert list(json_objects(lines)) == [
+        (1, {"a": 1}, None), (4, None, "not a JSON object"), (5, None, f"not JSON: {reason}"), (6, {"b": "x"}, None)]
+    got = list(json_objects(lines, not_object="must be a JSON object", column=True))
+    assert got[1:3] == [(4, None, "must be a JSON object"), (5, None, f"not JSON: {reason} (column {col})")]

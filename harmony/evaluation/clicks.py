@@ -50,13 +50,13 @@ B. Efron, R. J. Tibshirani (1993). An Introduction to the Bootstrap. Chapman & H
 """
 
 import csv
-import json
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
 from harmony.errors import EventsError, HarmonyError
+from harmony.fileio import json_objects
 
 __all__ = [
     "IMPRESSION_COLUMNS",
@@ -139,15 +139,8 @@ def _raw_rows(path):
         raise EventsError(f"{path}: cannot read the impression log: {exc.strerror or exc}") from None
     with handle:
         if path.suffix.lower() in (".jsonl", ".ndjson"):
-            for line, text in enumerate(handle, start=1):
-                if not text.strip():
-                    continue
-                try:
-                    obj = json.loads(text)
-                except json.JSONDecodeError as exc:
-                    yield line, f"not JSON: {exc.msg}"
-                    continue
-                yield line, obj if isinstance(obj, dict) else "not a JSON object"
+            for line, obj, problem in json_objects(handle):
+                yield line, obj if problem is None else problem
         else:
             reader = csv.DictReader(handle)
             missing = [c for c in IMPRESSION_COLUMNS if c not in (reader.fieldnames or ())]

@@ -9,6 +9,7 @@ import math
 from pathlib import Path
 
 from harmony.errors import HarmonyError
+from harmony.fileio import json_objects
 
 __all__ = ["FEED_KEYS", "read_feed", "read_evaluation"]
 
@@ -21,15 +22,9 @@ _FALSE = {"false", "0", "no", ""}
 
 
 def _jsonl_records(path, text):
-    for n, line in enumerate(text.splitlines(), start=1):
-        if not line.strip():
-            continue
-        try:
-            row = json.loads(line)
-        except json.JSONDecodeError as exc:
-            raise HarmonyError(f"{path}:{n}: not JSON: {exc.msg}") from None
-        if not isinstance(row, dict):
-            raise HarmonyError(f"{path}:{n}: a feed row must be a JSON object")
+    for n, row, problem in json_objects(text.splitlines(), not_object="a feed row must be a JSON object"):
+        if problem:
+            raise HarmonyError(f"{path}:{n}: {problem}")
         yield f"{path}:{n}", row
 
 

@@ -23,6 +23,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from harmony.errors import CatalogueError
+from harmony.fileio import json_objects
 from harmony.shop.fetch import is_url
 
 __all__ = [
@@ -268,16 +269,9 @@ def _csv_rows(path, text):
 
 def _jsonl_rows(path, text):
     """Yield (line, record or None, early problems) for each non-blank line of a JSONL text."""
-    for line, raw in enumerate(text.splitlines(), start=1):
-        if not raw.strip():
-            continue
-        try:
-            record = json.loads(raw)
-        except json.JSONDecodeError as exc:
-            yield line, None, [("row", f"not JSON: {exc.msg} (column {exc.colno})")]
-            continue
-        if not isinstance(record, dict):
-            yield line, None, [("row", "must be a JSON object")]
+    for line, record, problem in json_objects(text.splitlines(), not_object="must be a JSON object", column=True):
+        if problem:
+            yield line, None, [("row", problem)]
             continue
         early = []
         images = record.get("image")

@@ -21,7 +21,6 @@ outlive products) but are counted and reported.
 """
 
 import csv
-import json
 import math
 from collections import Counter
 from dataclasses import dataclass, field
@@ -30,6 +29,7 @@ from operator import itemgetter
 from pathlib import Path
 
 from harmony.errors import EventsError
+from harmony.fileio import json_objects
 
 __all__ = [
     "DEFAULT_EVENT_WEIGHTS",
@@ -172,11 +172,13 @@ def _parse_timestamp(value):
         text = str(value).strip()
         if not text:
             return None
-        try:
-            if ":" in text:  # never a number; spares the exception of float()
-                raise ValueError
-            out = float(text)
-        except ValueError:
+        out = None
+        if ":" not in text:  # ISO 8601 times hold a colon, numbers never do
+            try:
+                out = float(text)
+            except ValueError:
+                pass
+        if out is None:
             try:
                 moment = datetime.fromisoformat(text)
             except ValueError:
@@ -219,16 +221,9 @@ def _csv_rows(path):
 def _jsonl_rows(path):
     """:func:`_csv_rows` of a JSONL log (keys compared without case); the timestamp as given."""
     with open(path, encoding="utf-8-sig") as handle:
-        for number, text in enumerate(handle, start=1):
-            if not text.strip():
-                continue
-            try:
-                obj = json.loads(text)
-            except json.JSONDecodeError as exc:
-                yield number, f"not JSON: {exc.msg}"
-                continue
-            if not isinstance(obj, dict):
-                yield number, "expected a JSON object"
+        for number, obj, problem in json_objects(handle, not_object="expected a JSON object"):
+            if problem:
+                yield number, problem
                 continue
             obj = {str(k).casefold(): v for k, v in obj.items()}
             yield number, (*(_text(obj.get(name)) for name in _FIELDS[:-1]), obj.get("timestamp"))

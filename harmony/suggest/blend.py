@@ -36,7 +36,7 @@ from pathlib import Path
 import numpy as np
 
 from harmony.errors import HarmonyError
-from harmony.fileio import spreadsheet_safe_row, write_text_whole
+from harmony.fileio import json_objects, spreadsheet_safe_row, write_text_whole
 from harmony.shop.catalogue import normalise_category
 from harmony.suggest.rows import PartnerRow
 
@@ -169,16 +169,9 @@ def _csv_fields(path, text):
 def _jsonl_fields(path, text, problems):
     """:func:`_csv_fields` of a JSONL candidate list; lines that are not JSON objects go to ``problems``."""
     out = []
-    for line, raw in enumerate(text.splitlines(), start=1):
-        if not raw.strip():
-            continue
-        try:
-            obj = json.loads(raw)
-        except json.JSONDecodeError as exc:
-            problems.append(f"{path}:{line}: not JSON: {exc.msg}")
-            continue
-        if not isinstance(obj, dict):
-            problems.append(f"{path}:{line}: not a JSON object")
+    for line, obj, problem in json_objects(text.splitlines()):
+        if problem:
+            problems.append(f"{path}:{line}: {problem}")
             continue
         out.append((line, *(str(obj[k] if obj.get(k) is not None else "").strip()
                             for k in (*CANDIDATE_COLUMNS, "partner_category"))))
