@@ -1,6 +1,7 @@
 """Queries from an interaction log: a product, a partner category, its positives and negatives."""
 
 import math
+from collections import defaultdict
 from dataclasses import dataclass
 
 import numpy as np
@@ -95,7 +96,7 @@ def build_queries(log, products, palettes=None):
         if by_id[pid].in_stock():
             in_stock.setdefault(category[pid], []).append(pid)
 
-    positives = {}  # query product -> partner category -> {partner: gain}
+    positives = defaultdict(lambda: defaultdict(dict))  # query product -> partner category -> {partner: gain}
     seen, no_palette = set(), set()
     for weights in log.sessions().values():
         items = []
@@ -108,21 +109,12 @@ def build_queries(log, products, palettes=None):
             items.append((pid, w, category[pid]))
             seen.add(pid)
         for i, (a, wa, ca) in enumerate(items):
-            mine = positives.setdefault(a, {})
             for b, wb, cb in items[i + 1 :]:
                 if ca == cb:
                     continue
                 g = min(wa, wb)
-                to_b = mine.get(cb)
-                if to_b is None:
-                    to_b = mine[cb] = {}
+                to_b, to_a = positives[a][cb], positives[b][ca]
                 to_b[b] = to_b.get(b, 0.0) + g
-                theirs = positives.get(b)
-                if theirs is None:
-                    theirs = positives[b] = {}
-                to_a = theirs.get(ca)
-                if to_a is None:
-                    to_a = theirs[ca] = {}
                 to_a[a] = to_a.get(a, 0.0) + g
     n_events = sum(1 for ev in log.events if ev.product in usable)
 
