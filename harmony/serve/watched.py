@@ -88,6 +88,9 @@ class WatchedFile:
         except HarmonyError as exc:
             self._fail(str(exc))
             return False
+        except Exception as exc:  # a loader's own failure must not stop the server's watcher
+            self._fail(f"{self.path}: cannot load the {self.kind}: {type(exc).__name__}: {exc}")
+            return False
         self.value, self.sha256, self.error = value, digest, None
         log.info("%s reloaded: %s (sha256 %s)", self.kind, self.path.name, digest[:12])
         return True

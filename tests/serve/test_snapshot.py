@@ -142,3 +142,22 @@ def test_an_edited_rules_file_gives_new_scores_and_new_screens(demo_db, tmp_path
         assert new.screen("sofa", "rug", new.rules.for_pair("sofa", "rug")) is not screen
     finally:
         live.close()
+
+
+def test_a_loader_that_fails_in_its_own_way_keeps_the_watcher_going(tmp_path):
+    from harmony.serve.watched import WatchedFile
+
+    path = tmp_path / "settings.toml"
+    path.write_text("a = 1\n", encoding="utf-8")
+
+    def load(p):
+        if "broken" in p.read_text(encoding="utf-8"):
+            raise KeyError("a bug of the loader, not a HarmonyError")
+        return p.read_text(encoding="utf-8")
+
+    watched = WatchedFile(path, "settings file", load, "a = 1\n")
+    _edit(path, "broken\n")
+    assert watched.poll() is False and watched.value == "a = 1\n"
+    assert watched.error.startswith("settings.toml: cannot load the settings file: KeyError")
+    _edit(path, "a = 2\n")
+    assert watched.poll() is True and watched.value == "a = 2\n" and watched.error is None
