@@ -169,16 +169,18 @@ def _colour_words(product, attribute):
 class ColourAttributeMethod:
     """Rank by the overlap of the catalogue's colour words (Jaccard index; no words scores 0).
 
-    Products with the same words share a word set; the index of each word set with every other is
-    worked out once, so a query's scores are a look-up per candidate.
+    Products with the same words share a word set, and the index of two word sets is worked out
+    the first time a query needs it: the work grows with the pairs the queries ask for, not with
+    the number of word sets squared.
     """
 
     attribute: str = "colour"
     name: str = "colour attribute"
     kind: str = field(default="baseline", init=False)
     _set_of: dict = field(default_factory=dict, init=False, repr=False)  # product id -> word set number
-    _sets: dict = field(default_factory=dict, init=False, repr=False)  # word set -> its number, in order
-    _rows: dict = field(default_factory=dict, init=False, repr=False)  # word set number -> indices with the others
+    _sets: dict = field(default_factory=dict, init=False, repr=False)  # word set -> its number
+    _words: list = field(default_factory=list, init=False, repr=False)  # word set number -> word set
+    _pairs: dict = field(default_factory=dict, init=False, repr=False)  # (number, number) -> index
 
     def __call__(self, product, candidates):
         return self.score_queries([(product, candidates)])[0]
@@ -187,27 +189,28 @@ class ColourAttributeMethod:
         """Scores of many ``(product, candidates)`` queries: a list of arrays."""
         out = []
         for product, candidates in asked:
-            theirs = list(map(self._set_of.get, map(_ID, candidates)))
-            if None in theirs:
-                theirs = [self._set_number(c) for c in candidates]
-            out.append(self._row(self._set_number(product))[theirs] if theirs else np.zeros(0))
+            mine = self._set_number(product)
+            out.append(np.array([self._index(mine, self._set_number(c)) for c in candidates], dtype=float))
         return out
 
     def _set_number(self, product):
         number = self._set_of.get(product.id)
         if number is None:
             words = _colour_words(product, self.attribute)
-            number = self._set_of[product.id] = self._sets.setdefault(words, len(self._sets))
+            number = self._sets.get(words)
+            if number is None:
+                number = self._sets[words] = len(self._words)
+                self._words.append(words)
+            self._set_of[product.id] = number
         return number
 
-    def _row(self, number):
-        """The Jaccard index of word set ``number`` with every word set seen so far (0 without words)."""
-        row = self._rows.get(number)
-        if row is None or row.size < len(self._sets):
-            sets = list(self._sets)
-            mine = sets[number]
-            row = self._rows[number] = np.array([len(mine & t) / len(mine | t) if mine and t else 0.0 for t in sets])
-        return row
+    def _index(self, a, b):
+        key = (a, b) if a <= b else (b, a)
+        value = self._pairs.get(key)
+        if value is None:
+            s, t = self._words[a], self._words[b]
+            value = self._pairs[key] = len(s & t) / len(s | t) if s and t else 0.0
+        return value
 
 
 @dataclass(frozen=True, eq=False)
