@@ -3,13 +3,16 @@
 The demo shop is extracted once into a temporary store; then each run is a new Python process
 that loads what a demo run has loaded before its evaluate stage (the demo, extraction, feed and
 bundle modules) and times the stage itself: reading the store, the log and the candidate list,
-every method, the metrics and the table. The modules the stage imports (the evaluation, scipy,
-POT) are imported inside the timing, once, as in a real run. The best of ``--runs`` runs counts.
+every method, the metrics and the table. The modules the stage imports (the evaluation, and
+scipy or POT where a revision uses them) are imported inside the timing, once, as in a real run.
+The best of ``--runs`` runs counts. The output names the heavy packages (scipy, scikit-learn,
+POT) each revision's stage imported.
 
-A row times ``import ot`` alone after the same start, the part of the stage that POT's package
-import costs whatever the evaluation does. With ``--baseline DIR`` (a checkout of another
-revision) the same stage of that code runs in the same way, between this revision's runs, and
-the two revisions' tables are compared.
+Where POT is installed, a row times ``import ot`` alone after the same start, for scale: what
+its package import costs a stage that uses it (earlier revisions solved their earth mover's
+distances with it). With ``--baseline DIR`` (a checkout of another revision) the same stage of
+that code runs in the same way, between this revision's runs, and the two revisions' tables are
+compared.
 
 Modules load from a warm bytecode cache, as in any run after the first: the children keep their
 compiled modules in a temporary folder (``PYTHONPYCACHEPREFIX``; the checkouts are not written
@@ -23,11 +26,10 @@ Prints a table and, as its last line, one JSON object with ``evaluate_s``, ``tar
 """
 
 import argparse
+import importlib.util
 import json
 import os
-import sys
 import tempfile
-import time
 from pathlib import Path
 
 from _revision import load_average, run_child
@@ -53,7 +55,9 @@ else:
     tables = demo._evaluation_tables(Path(sys.argv[2]), shop / "events.csv", demo.DEFAULT_RULES, False,
                                      shop / "candidates.csv")
 seconds, cpu = time.perf_counter() - t0, time.process_time() - c0
-print(json.dumps({"seconds": seconds, "cpu": cpu, "module": demo.__file__, "loaded_before": loaded, "tables": tables}))
+imported = sorted(m for m in ("scipy", "sklearn", "ot") if m in sys.modules)
+print(json.dumps({"seconds": seconds, "cpu": cpu, "module": demo.__file__, "loaded_before": loaded,
+                  "imported": imported, "tables": tables}))
 """
 
 
@@ -91,16 +95,17 @@ def main():
         else:
             env["PYTHONPYCACHEPREFIX"] = str(Path(folder) / "bytecode")
             env.pop("PYTHONDONTWRITEBYTECODE", None)
+        with_ot = importlib.util.find_spec("ot") is not None
         kinds = [(key, checkout, what) for key, checkout, what in
                  (("this", None, "stage"), ("baseline", args.baseline, "stage"), ("ot", None, "ot"))
-                 if key != "baseline" or args.baseline]
+                 if (key != "baseline" or args.baseline) and (key != "ot" or with_ot)]
         if not args.no_bytecode_cache:
             for _key, checkout, what in kinds:  # untimed: fills the bytecode cache
                 _child(checkout, db, shop, what, env)
         load_before = load_average()
         times = {"this": [], "baseline": [], "ot": []}
         cpus = {"this": [], "baseline": [], "ot": []}
-        tables = {}
+        tables, imported = {}, {}
         for _ in range(args.runs):
             # Interleaved, so that every row sees the same machine.
             for key, checkout, what in kinds:
@@ -108,17 +113,21 @@ def main():
                 times[key].append(result["seconds"])
                 cpus[key].append(result["cpu"])
                 tables[key] = result["tables"]
+                imported[key] = result["imported"]
         load_after = load_average()
     best = {key: min(v) for key, v in times.items() if v}
     base = best.get("baseline")
     print(f"{'stage':<44}{'best s':>8}{'cpu s':>8}{'x baseline':>12}  runs (s)")
     rows = [("baseline: evaluate stage", "baseline"), ("this revision: evaluate stage", "this"),
-            ("  of it at least: import ot (POT) alone", "ot")]
+            ("for scale: import ot (POT) alone", "ot")]
     for label, key in rows:
         if key not in best:
             continue
         ratio = f"{best[key] / base:>12.2f}" if base else f"{'':>12}"
         print(f"{label:<44}{best[key]:>8.3f}{min(cpus[key]):>8.3f}{ratio}  {' '.join(f'{t:.2f}' for t in times[key])}")
+    for key in ("baseline", "this"):
+        if key in imported:
+            print(f"{key}: the stage imported {', '.join(imported[key]) or 'none of scipy, sklearn, ot'}")
     if base:
         same = tables["this"] == tables["baseline"]
         print(f"baseline: {args.baseline}; tables of both revisions identical: {'yes' if same else 'NO'}")
@@ -128,7 +137,7 @@ def main():
     print(f"target: evaluate stage <= {TARGET_S} s; {'met' if met else 'NOT met'}")
     summary = {"evaluate_s": round(best["this"], 3), "target_s": TARGET_S, "met": met,
                "evaluate_cpu_s": round(min(cpus["this"]), 3),
-               "import_ot_s": round(best["ot"], 3), "runs": args.runs, "load": load_before,
+               "import_ot_s": round(best["ot"], 3) if "ot" in best else None, "stage_imported": imported["this"], "runs": args.runs, "load": load_before,
                "bytecode_cache": not args.no_bytecode_cache}
     if base:
         summary.update(baseline_s=round(base, 3), ratio_to_baseline=round(best["this"] / base, 3),

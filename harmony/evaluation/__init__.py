@@ -5,7 +5,7 @@ May import :mod:`harmony.colour`, :mod:`harmony.photo`, :mod:`harmony.shop` and
 """
 
 from harmony.evaluation.core import Evaluation, MethodResult, evaluate
-from harmony.evaluation.distance import emd, emd_one_to_many
+from harmony.colour.emd import emd, emd_one_to_many
 from harmony.evaluation.methods import (
     ColourAttributeMethod,
     RandomMethod,

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import numpy as np
 
-from harmony.evaluation.distance import emd_signatures, signature
+from harmony.colour.emd import emd_pairs, signature
 from harmony.shop.catalogue import normalise_category
 
 __all__ = ["RulesMethod", "SameColoursMethod", "ColourAttributeMethod", "RandomMethod", "standard_methods"]
@@ -145,10 +145,10 @@ class SameColoursMethod:
             fresh = [b for b in partners if b not in mine and a not in todo.get(b, ())]
             if fresh:
                 todo.setdefault(a, {}).update(dict.fromkeys(fresh))
-        for a, partners in todo.items():
-            distances = emd_signatures(self._signature(a), [self._signature(b) for b in partners])
-            for b, d in zip(partners, distances.tolist()):
-                known.setdefault(a, {})[b] = known.setdefault(b, {})[a] = d
+        pairs = [(a, b) for a, partners in todo.items() for b in partners]
+        distances = emd_pairs([self._signature(a) for a, _ in pairs], [self._signature(b) for _, b in pairs])
+        for (a, b), d in zip(pairs, distances.tolist()):
+            known.setdefault(a, {})[b] = known.setdefault(b, {})[a] = d
         return [-np.array(list(map(known[a].__getitem__, partners))) if partners else -np.array([])
                 for a, partners in ids]
 

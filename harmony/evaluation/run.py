@@ -23,10 +23,10 @@ def collection_paused():
     """Automatic garbage collection off inside the block, as it was after it.
 
     An evaluation makes some 10^5 objects (log rows, candidates, queries) and no reference cycles
-    of its own (a collection after the demo's finds only the few hundred objects that importing
-    POT leaves), while each automatic collection of the older generations walks every object of
-    the libraries imported before (POT and scipy): about 0.2 s of the demo's evaluate stage went
-    to collections that freed next to nothing.
+    of its own (a collection after the demo's found only the few hundred objects that importing
+    a library leaves), while each automatic collection of the older generations walks every
+    object of the libraries imported before: about 0.2 s of the demo's evaluate stage went to
+    collections that freed next to nothing.
     """
     enabled = gc.isenabled()
     gc.disable()

@@ -2,8 +2,8 @@
 
 Two palettes are compared by the earth mover's distance (EMD; Rubner, Tomasi & Guibas 2000) in
 CAM02-UCS with the Euclidean ground distance (ΔE, what the space is built for): the least total
-share × ΔE needed to turn one palette's shares into the other's. Each transport problem is solved
-exactly by the network simplex of POT (``ot.emd2``; Flamary et al. 2021).
+share × ΔE needed to turn one palette's shares into the other's. The transport problems are solved
+exactly, a block at a time, by :func:`harmony.colour.emd.emd_pairs`.
 
 Screen
 ------
@@ -12,7 +12,8 @@ signatures of equal total weight, the EMD is at least the distance between their
 share-weighted mean colours). The screen sorts a product's candidates by that bound (one n × n
 matrix of centroid distances) and solves exact EMDs in that order, stopping once the next bound
 exceeds the ``top``-th best distance found: the answer is the exact top, not an approximation, and
-the EMDs saved are measured by ``benchmarks/lookalike.py``.
+the EMDs saved are measured by ``benchmarks/lookalike.py``. The EMDs are solved in blocks of the
+next candidates in that order, each block cut where the bound passes the ``top``-th best so far.
 
 Score
 -----
@@ -22,8 +23,6 @@ References
 ----------
 Y. Rubner, C. Tomasi, L. J. Guibas (2000). The Earth Mover's Distance as a metric for image
     retrieval. International Journal of Computer Vision 40(2):99-121.
-R. Flamary et al. (2021). POT: Python Optimal Transport. Journal of Machine Learning Research
-    22(78):1-8.
 M. R. Luo, G. Cui, C. Li (2006). Uniform colour spaces based on CIECAM02 colour appearance model.
     Color Research & Application 31(4):320-330.
 """
@@ -32,13 +31,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from harmony.colour.emd import emd_pairs, signature
 from harmony.errors import HarmonyError, StoreError
 from harmony.suggest.rows import PartnerRow
 
 __all__ = [
     "SIMILAR_DELTA_E",
     "SimilarRow",
-    "emd_pot",
+    "palette_emd",
     "centroid_bound",
     "nearest_colour_distance",
     "top_similar",
@@ -66,20 +66,21 @@ def _normalised(weights):
     return w / w.sum()
 
 
-def emd_pot(jab_a, weights_a, jab_b, weights_b):
-    """Earth mover's distance between two palettes in CAM02-UCS ΔE, by POT's network simplex.
+def palette_emd(jab_a, weights_a, jab_b, weights_b):
+    """Earth mover's distance between two palettes in CAM02-UCS ΔE (:func:`harmony.colour.emd.emd`).
 
     Shares are normalised to sum 1 (every unit moves; Rubner et al. 2000, section 4.1).
 
-    >>> round(emd_pot([[50, 0, 0], [50, 10, 0]], [0.6, 0.4], [[50, 0, 0], [50, 0, 10]], [0.3, 0.7]), 4)
+    >>> round(palette_emd([[50, 0, 0], [50, 10, 0]], [0.6, 0.4], [[50, 0, 0], [50, 0, 10]], [0.3, 0.7]), 4)
     8.6569
     """
-    import ot
+    first = signature(jab_a, weights_a, "first palette")
+    return float(emd_pairs([first], [signature(jab_b, weights_b, "second palette")])[0])
 
-    a = np.asarray(jab_a, dtype=float)
-    b = np.asarray(jab_b, dtype=float)
-    cost = np.sqrt(((a[:, None, :] - b[None, :, :]) ** 2).sum(axis=-1))
-    return float(ot.emd2(_normalised(weights_a), _normalised(weights_b), cost))
+
+#: Candidates whose EMDs are solved together, at most: enough to share the solver's steps, few
+#: enough that the bound cuts the search soon after the top is found.
+BLOCK = 32
 
 
 def centroid_bound(jab_a, weights_a, jab_b, weights_b):
@@ -129,22 +130,33 @@ def top_similar(query, palettes, top, centroids=None, query_centroid=None, known
     qc = _normalised(query.weights) @ np.asarray(query.jab, dtype=float) if query_centroid is None else query_centroid
     bound = np.linalg.norm(cents - qc, axis=1)
     order = np.lexsort((np.arange(n), bound))
-    found = []  # (distance, index)
-    solved = 0
-    for j in order:
-        if len(found) >= top and bound[j] > found[top - 1][0]:
-            break
-        k = key(j) if key is not None else None
-        if known is not None and k in known:
-            d = known[k]
-        else:
-            d = emd_pot(query.jab, query.weights, palettes[j].jab, palettes[j].weights)
-            solved += 1
-            if known is not None:
-                known[k] = d
-        found.append((d, int(j)))
+    found = []  # (distance, index), nearest first, at most ``top``
+    solved, start, first = 0, 0, None
+    while start < n:
+        block = order[start : start + BLOCK]
+        if len(found) >= top:
+            block = block[bound[block] <= found[-1][0]]  # a prefix: the order is by bound
+            if block.size == 0:
+                break
+        start += block.size
+        new = []
+        for j in block.tolist():
+            k = key(j) if key is not None else None
+            if known is not None and k in known:
+                found.append((known[k], j))
+            else:
+                new.append((j, k))
+        if new:
+            if first is None:
+                first = signature(query.jab, query.weights, "query palette")
+            others = [signature(palettes[j].jab, palettes[j].weights, f"palette {j}") for j, _ in new]
+            for (j, k), d in zip(new, emd_pairs([first] * len(new), others).tolist()):
+                found.append((d, j))
+                if known is not None:
+                    known[k] = d
+            solved += len(new)
         found.sort()
-    found = found[:top]
+        del found[top:]
     return np.array([j for _, j in found], dtype=int), np.array([d for d, _ in found]), solved
 
 

@@ -147,8 +147,8 @@ def test_same_colours_solves_each_pair_once_with_the_right_distance(tmp_path, mo
     sofas = [p for p in products if p.category == "Sofa"]
     cushions = [p for p in products if p.category == "Cushion"]
     solved = []
-    real = ev.emd_signatures
-    monkeypatch.setattr(ev, "emd_signatures", lambda first, others: solved.append(len(others)) or real(first, others))
+    real = ev.emd_pairs
+    monkeypatch.setattr(ev, "emd_pairs", lambda firsts, seconds: solved.append(len(firsts)) or real(firsts, seconds))
     method = SameColoursMethod(palettes)
     first = method(sofas[0], cushions)
     swapped = method(cushions[2], sofas)  # (sofa 0, cushion 2) is already known

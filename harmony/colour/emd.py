@@ -4,7 +4,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["emd_one_to_many", "emd", "Signature", "signature", "emd_signatures"]
+from harmony.colour.transport import padded_transport_costs
+
+__all__ = ["emd_one_to_many", "emd", "Signature", "signature", "emd_signatures", "emd_pairs"]
 
 # --------------------------------------------------------------------------------------------
 # Earth mover's distance between weighted palettes
@@ -13,17 +15,19 @@ __all__ = ["emd_one_to_many", "emd", "Signature", "signature", "emd_signatures"]
 
 @dataclass(frozen=True, eq=False)
 class Signature:
-    """A palette as the EMD takes it (:func:`signature`): colours (k, 3), weights summing to 1,
-    and those weights divided by their own sum once more (``balanced``), which times the other
-    palette's total gives two sums equal to the last bit, as the solver checks."""
+    """A palette as the EMD takes it (:func:`signature`): colours (k, 3) from darkest to
+    lightest and their weights, each positive, summing to 1."""
 
     jab: np.ndarray
     weights: np.ndarray
-    balanced: np.ndarray
 
 
 def signature(jab, weights, name="palette"):
     """A palette checked and normalised for the EMD: a :class:`Signature`.
+
+    Colours of zero weight are left out (they move nothing) and the rest sorted by lightness
+    J', which leaves the distance as it is and starts the solver's search next to the optimum:
+    about 3 pivots per demo problem against 13 in palette order.
 
     Raises ValueError naming ``name`` for bad shapes, negative weights or a zero total.
     """
@@ -34,8 +38,11 @@ def signature(jab, weights, name="palette"):
     total = w.sum()
     if np.any(w < 0) or not total > 0:
         raise ValueError(f"{name}: weights must be >= 0 with a positive sum")
-    w = w / total
-    return Signature(jab, w, w / w.sum())
+    if not np.all(np.isfinite(jab)):
+        raise ValueError(f"{name}: colours must be finite")
+    keep = np.flatnonzero(w > 0)
+    keep = keep[np.argsort(jab[keep, 0], kind="stable")]
+    return Signature(jab[keep], w[keep] / total)
 
 
 def emd_one_to_many(jab_a, weights_a, others, chunk=None):
@@ -61,16 +68,14 @@ def emd_one_to_many(jab_a, weights_a, others, chunk=None):
     Notes
     -----
     Both signatures are normalised to total weight 1, so every unit of weight moves and the EMD
-    is a metric (Rubner et al. 2000, section 4.1). Each transportation problem is solved exactly
-    by the network simplex of POT (``ot.emd2``, Flamary et al. 2021; the algorithm of Bonneel et
-    al. 2011), tens of microseconds for palettes of ten colours; the ground distances of all
-    palettes come from one broadcast.
+    is a metric (Rubner et al. 2000, section 4.1). The transportation problems are solved
+    exactly, all at once, by :func:`harmony.colour.transport.padded_transport_costs` (a network
+    simplex in lockstep); a test checks them against POT's network simplex (Flamary et al.
+    2021) and scipy's linear programming.
 
     References
     ----------
     R. Flamary et al. (2021). POT: Python Optimal Transport. JMLR 22(78):1-8.
-    N. Bonneel, M. van de Panne, S. Paris, W. Heidrich (2011). Displacement interpolation using
-        Lagrangian mass transport. ACM Trans. Graphics 30(6):158.
     """
     first = signature(jab_a, weights_a, "first palette")
     return emd_signatures(first, [signature(j, w, f"palette {i}") for i, (j, w) in enumerate(others)])
@@ -78,50 +83,38 @@ def emd_one_to_many(jab_a, weights_a, others, chunk=None):
 
 def emd_signatures(first, others):
     """:func:`emd_one_to_many` on palettes already made :class:`Signature` (no checks again)."""
-    out = np.empty(len(others))
-    if not others:
-        return out
-    solve = _solver()
-    a, wa = first.jab, first.weights
-    every = np.concatenate([s.jab for s in others]).T.copy()
-    # The ground distances to every colour at once, sqrt((d0**2 + d1**2) + d2**2): the order in
-    # which a sum over an axis of three adds, so the same bits as that sum.
-    d0, d1, d2 = (a[:, k, None] - every[k] for k in range(3))
+    return emd_pairs([first] * len(others), others)
+
+
+def emd_pairs(firsts, seconds):
+    """The EMD of each pair ``(firsts[t], seconds[t])`` of :class:`Signature`, solved together."""
+    count = len(firsts)
+    if count == 0:
+        return np.empty(0)
+    index = {}  # id of a signature -> its row in the tables below
+    distinct = []
+    rows = np.empty((2, count), dtype=np.intp)
+    for side, sigs in enumerate((firsts, seconds)):
+        for t, sig in enumerate(sigs):
+            k = index.get(id(sig))
+            if k is None:
+                k = index[id(sig)] = len(distinct)
+                distinct.append(sig)
+            rows[side, t] = k
+    sizes = np.array([s.weights.size for s in distinct])
+    most = int(sizes.max())
+    colours = np.zeros((len(distinct), most, 3))
+    weights = np.ones((len(distinct), most))
+    for k, sig in enumerate(distinct):
+        colours[k, : sig.weights.size] = sig.jab
+        weights[k, : sig.weights.size] = sig.weights
+    first, second = rows
+    x, y = colours[first], colours[second]
+    # The ground distances, sqrt((d0**2 + d1**2) + d2**2): the order in which a sum over an axis
+    # of three adds, so the same bits as that sum.
+    d0, d1, d2 = (x[:, :, None, k] - y[:, None, :, k] for k in range(3))
     cost = np.sqrt((d0 * d0 + d1 * d1) + d2 * d2)
-    wb = np.concatenate([s.balanced for s in others]) * wa.sum()
-    at = 0
-    for t, s in enumerate(others):
-        m = s.jab.shape[0]
-        out[t] = solve(wa, wb[at : at + m], np.ascontiguousarray(cost[:, at : at + m]))
-        at += m
-    return out
-
-
-#: Iteration cap of the network simplex (POT's default for ``ot.emd``).
-MAX_ITERATIONS = 100_000
-
-
-def _solver():
-    """POT's network simplex: its compiled core when present (``ot.emd2`` spends most of its
-    time for a 10 x 10 problem checking its arguments), else ``ot.emd2`` itself.
-
-    Importing it imports all of POT, 1.4-2 s on the project's 2-core machine: POT 0.9 loads
-    scipy.stats and scipy.optimize, and scikit-learn and networkx when they are installed (as here);
-    its ``POT_BACKEND_DISABLE_*`` variables only skip torch, jax, cupy and tensorflow."""
-    try:
-        from ot.lp.emd_wrap import emd_c
-    except ImportError:  # a POT that moved its core: the public function gives the same optimum
-        import ot
-
-        return lambda wa, wb, cost: float(ot.emd2(wa, wb, cost, numItermax=MAX_ITERATIONS))
-
-    def solve(wa, wb, cost):
-        _, value, _, _, code = emd_c(wa, wb, cost, MAX_ITERATIONS, 1)
-        if code != 1:  # 1 is OPTIMAL; a balanced transport problem always has an optimum
-            raise RuntimeError(f"transport problem not solved (network simplex code {code})")
-        return float(value)
-
-    return solve
+    return padded_transport_costs(weights[first], weights[second], cost, sizes[first], sizes[second])
 
 
 def emd(jab_a, weights_a, jab_b, weights_b):
@@ -133,5 +126,3 @@ def emd(jab_a, weights_a, jab_b, weights_b):
     8.6569
     """
     return float(emd_one_to_many(jab_a, weights_a, [(jab_b, weights_b)])[0])
-
-
