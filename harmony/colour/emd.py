@@ -6,7 +6,11 @@ import numpy as np
 
 from harmony.colour.transport import padded_transport_costs
 
-__all__ = ["emd_one_to_many", "emd", "Signature", "signature", "emd_signatures", "emd_pairs"]
+__all__ = ["emd_one_to_many", "emd", "Signature", "signature", "emd_signatures", "emd_pairs", "BATCH"]
+
+#: Transport problems solved together, at most: the solver's arrays stay a few megabytes (its
+#: results do not depend on the batch: tests/colour/test_transport.py).
+BATCH = 4096
 
 # --------------------------------------------------------------------------------------------
 # Earth mover's distance between weighted palettes
@@ -108,13 +112,16 @@ def emd_pairs(firsts, seconds):
     for k, sig in enumerate(distinct):
         colours[k, : sig.weights.size] = sig.jab
         weights[k, : sig.weights.size] = sig.weights
-    first, second = rows
-    x, y = colours[first], colours[second]
-    # The ground distances, sqrt((d0**2 + d1**2) + d2**2): the order in which a sum over an axis
-    # of three adds, so the same bits as that sum.
-    d0, d1, d2 = (x[:, :, None, k] - y[:, None, :, k] for k in range(3))
-    cost = np.sqrt((d0 * d0 + d1 * d1) + d2 * d2)
-    return padded_transport_costs(weights[first], weights[second], cost, sizes[first], sizes[second])
+    out = np.empty(count)
+    for lo in range(0, count, BATCH):
+        first, second = rows[:, lo : lo + BATCH]
+        x, y = colours[first], colours[second]
+        # The ground distances, sqrt((d0**2 + d1**2) + d2**2): the order in which a sum over an
+        # axis of three adds, so the same bits as that sum.
+        d0, d1, d2 = (x[:, :, None, k] - y[:, None, :, k] for k in range(3))
+        cost = np.sqrt((d0 * d0 + d1 * d1) + d2 * d2)
+        out[lo : lo + BATCH] = padded_transport_costs(weights[first], weights[second], cost, sizes[first], sizes[second])
+    return out
 
 
 def emd(jab_a, weights_a, jab_b, weights_b):

@@ -5,9 +5,9 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from scipy.stats import wasserstein_distance
 from sklearn.metrics import ndcg_score, roc_auc_score
 
+from harmony.colour.emd import emd
 from harmony.errors import EventsError, HarmonyError
 from harmony.evaluation import (
     ColourAttributeMethod,
@@ -17,8 +17,6 @@ from harmony.evaluation import (
     auc,
     auc_table,
     build_queries,
-    emd,
-    emd_one_to_many,
     evaluate,
     hit_at_k,
     ideal_dcgs,
@@ -104,42 +102,6 @@ def test_metrics_undefined_and_bad_input():
 # ---- earth mover's distance -----------------------------------------------------------------
 
 
-def test_emd_hand_worked_transport():
-    # Worked by hand: supplies 0.6 at p1=(50,0,0), 0.4 at p2=(50,10,0); demands 0.3 at q1=p1 and
-    # 0.7 at q2=(50,0,10). With f11 = t the cost is 10.414 - 5.858 t, least at t = 0.3:
-    # 0.3 * 10 (p1->q2) + 0.4 * sqrt(200) (p2->q2).
-    got = emd([[50, 0, 0], [50, 10, 0]], [0.6, 0.4], [[50, 0, 0], [50, 0, 10]], [0.3, 0.7])
-    assert got == pytest.approx(3.0 + 0.4 * math.sqrt(200.0), abs=1e-7)
-
-
-def test_emd_matches_scipy_wasserstein_in_one_dimension():
-    # Reference: scipy.stats.wasserstein_distance (1-D EMD); palettes that differ only in J'.
-    rng = np.random.default_rng(11)
-    for _ in range(20):
-        n, m = rng.integers(1, 8, 2)
-        ja, jb = rng.uniform(0, 100, n), rng.uniform(0, 100, m)
-        wa, wb = rng.random(n) + 0.01, rng.random(m) + 0.01
-        pal_a = np.c_[ja, np.zeros(n), np.zeros(n)]
-        pal_b = np.c_[jb, np.zeros(m), np.zeros(m)]
-        ref = wasserstein_distance(ja, jb, wa, wb)
-        assert emd(pal_a, wa, pal_b, wb) == pytest.approx(ref, rel=1e-6, abs=1e-7)
-
-
-def test_emd_matches_scipy_in_three_dimensions():
-    # Reference: scipy.stats.wasserstein_distance_nd (scipy >= 1.13), the EMD of two weighted
-    # point sets with Euclidean ground distance, solved by its own linear programme.
-    pytest.importorskip("scipy", minversion="1.13")
-    from scipy.stats import wasserstein_distance_nd
-
-    rng = np.random.default_rng(17)
-    for _ in range(15):
-        n, m = rng.integers(1, 9, 2)
-        a, b = rng.normal(50, 20, (n, 3)), rng.normal(50, 20, (m, 3))
-        wa, wb = rng.random(n) + 0.01, rng.random(m) + 0.01
-        ref = wasserstein_distance_nd(a, b, wa, wb)
-        assert emd(a, wa, b, wb) == pytest.approx(ref, rel=1e-6, abs=1e-7)
-
-
 def test_same_colours_solves_each_pair_once_with_the_right_distance(tmp_path, monkeypatch):
     ev = importlib.import_module("harmony.evaluation.methods")
 
@@ -166,22 +128,6 @@ def test_same_colours_solves_each_pair_once_with_the_right_distance(tmp_path, mo
     np.testing.assert_allclose(-first, want, atol=1e-7)
     want = [emd(palettes[cushions[2].id].jab, palettes[cushions[2].id].weights, palettes[s.id].jab, palettes[s.id].weights) for s in sofas]
     np.testing.assert_allclose(-swapped, want, atol=1e-7)
-
-
-def test_emd_is_a_metric_and_chunking_does_not_change_it():
-    rng = np.random.default_rng(3)
-    pals = [(rng.normal(0, 20, (k, 3)), rng.dirichlet(np.ones(k))) for k in (1, 3, 5, 10, 10, 7)]
-    a = pals[0]
-    together = emd_one_to_many(*a, pals, chunk=64)
-    alone = emd_one_to_many(*a, pals, chunk=1)
-    np.testing.assert_allclose(together, alone, atol=1e-7)
-    assert together[0] == pytest.approx(0.0, abs=1e-9)
-    d = np.array([emd_one_to_many(*p, pals) for p in pals])
-    np.testing.assert_allclose(d, d.T, atol=1e-6)  # symmetric
-    for i, j, k in itertools.permutations(range(len(pals)), 3):
-        assert d[i, k] <= d[i, j] + d[j, k] + 1e-6  # triangle inequality (Rubner et al. 2000, 4.1)
-    with pytest.raises(ValueError, match="shape"):
-        emd([[1, 2]], [1.0], [[1, 2, 3]], [1.0])
 
 
 # ---- a log generated from a known colour relation ------------------------------------------------
