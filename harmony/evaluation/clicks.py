@@ -51,6 +51,7 @@ B. Efron, R. J. Tibshirani (1993). An Introduction to the Bootstrap. Chapman & H
 
 import csv
 from dataclasses import dataclass
+from functools import cached_property
 from pathlib import Path
 
 import numpy as np
@@ -112,6 +113,15 @@ class ImpressionLog:
     @property
     def positions(self):
         return int(self.position.max()) if len(self) else 0
+
+    @cached_property
+    def folded(self):
+        """The impressions grouped by (suggestion, slot, click), worked out once per log (every
+        bootstrap resample's fit reuses it): ``(group of each impression, click, slot - 1,
+        suggestion)``, the last three one entry per group."""
+        key = ((self.suggestion * self.positions) + (self.position - 1)) * 2 + self.clicked
+        keys, inverse = np.unique(key, return_inverse=True)
+        return inverse, (keys % 2).astype(float), (keys // 2) % self.positions, keys // 2 // self.positions
 
 
 def impression_log(rows, path=""):
@@ -275,12 +285,8 @@ def fit_pbm(log, tol=1e-7, max_iter=2000, start=None, weights=None):
     n_pos, n_sug = log.positions, len(log.pairs)
     w_all = np.ones(len(log)) if weights is None else np.asarray(weights, dtype=float)
     # The likelihood depends only on counts per (slot, suggestion, click): fold equal impressions.
-    key = ((log.suggestion * n_pos) + (log.position - 1)) * 2 + log.clicked
-    keys, inverse = np.unique(key, return_inverse=True)
-    w = np.bincount(inverse, weights=w_all, minlength=keys.size)
-    c = (keys % 2).astype(float)
-    pos = (keys // 2) % n_pos
-    sug = keys // 2 // n_pos
+    inverse, c, pos, sug = log.folded
+    w = np.bincount(inverse, weights=w_all, minlength=c.size)
     per_pos = np.bincount(pos, weights=w, minlength=n_pos)
     per_sug = np.bincount(sug, weights=w, minlength=n_sug)
     if start is None:
