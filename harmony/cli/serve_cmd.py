@@ -54,6 +54,7 @@ def serve(db, rules_path, rooms_dir, host, port, room_time_limit, access_log, cu
     from harmony.rules import load_rules
     from harmony.serve.app import create_app
     from harmony.serve.snapshot import LiveStore
+    from harmony.serve.watched import file_version
     from harmony.shop.store import Store
 
     try:
@@ -62,12 +63,17 @@ def serve(db, rules_path, rooms_dir, host, port, room_time_limit, access_log, cu
         loopback = host == "localhost"
     if not loopback:
         warn(f"listening on {host}, not on loopback: put a reverse proxy with access control in front")
+    # Each file's version is noted before it is read: an edit made while the server starts is
+    # then loaded by the watcher, not left unseen until the next edit.
+    rules_version = file_version(rules_path)
     rules = load_rules(rules_path)
     with Store(db, read_only=True) as store:
         if not store.products():
             raise HarmonyError(f"{db}: the store holds no products (run 'harmony extract' first)")
+        curation_version = None if curation_path is None else file_version(curation_path)
         curation = load_curation_for(curation_path, store)
-    live = LiveStore(db, rules, rules_path=rules_path, curation=curation, curation_path=curation_path)
+    live = LiveStore(db, rules, rules_path=rules_path, curation=curation, curation_path=curation_path,
+                     rules_version=rules_version, curation_version=curation_version)
     logging.basicConfig(level=logging.INFO, format="%(levelname)s: %(name)s: %(message)s")
     app = create_app(live, rules_path=rules_path, rooms_dir=rooms_dir, room_time_limit=room_time_limit)
     click.echo(f"serving {len(live.snapshot)} products of {db} on http://{host}:{port} (API: /openapi.json)", err=True)

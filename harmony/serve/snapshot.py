@@ -305,6 +305,9 @@ class LiveStore:
     curation_path : str or pathlib.Path, optional
         The file ``curation`` was read from; edits to it are loaded while the server runs (a new
         snapshot with the same data and screens, and empty answer caches).
+    rules_version, curation_version : harmony.serve.watched.FileVersion, optional
+        :func:`harmony.serve.watched.file_version` of each file taken before the caller read it,
+        so that an edit made while the server starts is loaded too.
 
     Attributes
     ----------
@@ -315,7 +318,7 @@ class LiveStore:
     """
 
     def __init__(self, path, rules, poll_seconds=POLL_SECONDS, *, rules_path=None, curation=None,
-                 curation_path=None):
+                 curation_path=None, rules_version=None, curation_version=None):
         from harmony.rules import load_rules
 
         self.path = os.fspath(path)
@@ -324,9 +327,11 @@ class LiveStore:
         self._inode = self._stat()
         self._seen = self._version()
         self.snapshot = load_snapshot(self.path, rules, curation=curation)
-        self.rules_file = None if rules_path is None else WatchedFile(rules_path, "rules file", load_rules, rules)
+        self.rules_file = (None if rules_path is None
+                           else WatchedFile(rules_path, "rules file", load_rules, rules, rules_version))
         self.curation_file = (None if curation_path is None
-                              else WatchedFile(curation_path, "curation file", self._read_curation, curation))
+                              else WatchedFile(curation_path, "curation file", self._read_curation, curation,
+                                               curation_version))
         self.reloads = 0
         self.last_error = None
         self._stop = threading.Event()

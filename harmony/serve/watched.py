@@ -14,9 +14,41 @@ from pathlib import Path
 
 from harmony.errors import HarmonyError
 
-__all__ = ["WatchedFile"]
+__all__ = ["WatchedFile", "FileVersion", "file_version"]
 
 log = logging.getLogger("harmony.serve")
+
+
+class FileVersion:
+    """What a :class:`WatchedFile` knows of a file's bytes: ``token`` (device, inode, modification
+    time, size) and ``sha256`` (hex; None when unreadable). Taken *before* a caller loads the file,
+    it makes an edit that lands during the load count as an edit."""
+
+    __slots__ = ("token", "sha256")
+
+    def __init__(self, token, sha256):
+        self.token, self.sha256 = token, sha256
+
+
+def _token(path):
+    try:
+        st = os.stat(path)
+    except OSError as exc:
+        return ("unreadable", exc.errno)
+    return st.st_dev, st.st_ino, st.st_mtime_ns, st.st_size
+
+
+def _digest(path):
+    try:
+        return hashlib.sha256(Path(path).read_bytes()).hexdigest()
+    except OSError:
+        return None
+
+
+def file_version(path):
+    """The :class:`FileVersion` of ``path`` now (the token first, then the bytes)."""
+    token = _token(path)
+    return FileVersion(token, _digest(path))
 
 
 class WatchedFile:
@@ -31,6 +63,9 @@ class WatchedFile:
         ``load(path) -> value``; raises :class:`harmony.errors.HarmonyError` on a bad file.
     value : object
         The version in force (already loaded by the caller, who reported its problems).
+    version : FileVersion, optional
+        :func:`file_version` taken before the caller loaded ``value``; by default taken now, so an
+        edit between the caller's load and this call would go unnoticed until the next edit.
 
     Attributes
     ----------
@@ -42,27 +77,14 @@ class WatchedFile:
         message may reach HTTP clients); None when they are.
     """
 
-    def __init__(self, path, kind, load, value):
+    def __init__(self, path, kind, load, value, version=None):
         self.path = Path(path)
         self.kind = kind
         self._load = load
         self.value = value
         self.error = None
-        self._token = self._stat()
-        self.sha256 = self._digest()
-
-    def _stat(self):
-        try:
-            st = os.stat(self.path)
-        except OSError as exc:
-            return ("unreadable", exc.errno)
-        return st.st_dev, st.st_ino, st.st_mtime_ns, st.st_size
-
-    def _digest(self):
-        try:
-            return hashlib.sha256(self.path.read_bytes()).hexdigest()
-        except OSError:
-            return None
+        version = file_version(self.path) if version is None else version
+        self._token, self.sha256 = version.token, version.sha256
 
     def _fail(self, message):
         message = message.replace(str(self.path), self.path.name)
@@ -72,11 +94,11 @@ class WatchedFile:
 
     def poll(self):
         """Look once. Returns True when an edit was loaded and is now :attr:`value`."""
-        token = self._stat()
+        token = _token(self.path)
         if token == self._token:
             return False
         self._token = token
-        digest = self._digest()
+        digest = _digest(self.path)
         if digest is None:
             self._fail(f"{self.path}: cannot read the {self.kind}")
             return False

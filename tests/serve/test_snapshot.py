@@ -161,3 +161,21 @@ def test_a_loader_that_fails_in_its_own_way_keeps_the_watcher_going(tmp_path):
     assert watched.error.startswith("settings.toml: cannot load the settings file: KeyError")
     _edit(path, "a = 2\n")
     assert watched.poll() is True and watched.value == "a = 2\n" and watched.error is None
+
+
+def test_an_edit_made_while_the_caller_loads_is_not_missed(tmp_path):
+    # The version is noted before the caller's load; an edit landing between that load and the
+    # watcher's start must still be loaded (without the note, the watcher would take the edited
+    # bytes for the version in force).
+    from harmony.serve.watched import WatchedFile, file_version
+
+    path = tmp_path / "settings.toml"
+    path.write_text("a = 1\n", encoding="utf-8")
+    version = file_version(path)
+    value = path.read_text(encoding="utf-8")  # the caller's load
+    _edit(path, "a = 2\n")  # the edit during start-up
+    watched = WatchedFile(path, "settings file", lambda p: p.read_text(encoding="utf-8"), value, version)
+    assert watched.poll() is True and watched.value == "a = 2\n"
+    # Without the note the edit goes unseen: the reason for the parameter.
+    late = WatchedFile(path, "settings file", lambda p: p.read_text(encoding="utf-8"), value)
+    assert late.poll() is False and late.value == "a = 1\n"
