@@ -676,10 +676,6 @@ def palette_from_decoded(decoded, settings=PaletteSettings()):
     if np.count_nonzero(product > 0) < max(16, 0.002 * h * w):
         raise ImageError(f"{decoded.source}: nothing left after removing the background")
     # Pixels on a sharp colour edge are blends of their neighbours (anti-aliasing, the box
-    # filter, JPEG ringing): they do not shape the colours (k-means sees only clean pixels), but
-    # every product pixel counts towards the share of its nearest colour, so regions with much
-    # outline (slats, legs, fine texture) keep their share.
-    # Pixels on a sharp colour edge are blends of their neighbours (anti-aliasing, the box
     # filter, JPEG ringing): only clean pixels shape the colours (k-means). Every product pixel
     # inside the outline then counts fully towards its nearest colour, so regions with much inner
     # edge (fine texture) keep their share. A pixel on the outline is part product, part
