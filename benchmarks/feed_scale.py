@@ -2,7 +2,7 @@
 
 Each size runs in its own process (so its peak resident memory is its own): a synthetic store
 is made (palettes generated directly, no photos: benchmark inputs, not check values), then
-``harmony.suggest.feed.write_feed_stream`` writes the JSONL feed (top 10, default rules).
+``harmony.suggest.feed_run.write_feed_stream`` writes the JSONL feed (top 10, default rules).
 The local engine runs the category pairs in its default number of worker processes (the cores,
 at most 2). Prints seconds, rows per second and peak RSS per size (the parent's plus the
 workers': an upper bound of their sum), and a baseline measured in the same run:
@@ -83,7 +83,7 @@ def run_one(products, folder):
     """In a child process: make the store, write the feed, print one JSON line."""
     from harmony.rules import load_rules
     from harmony.shop.store import Store
-    from harmony.suggest.feed import write_feed_stream
+    from harmony.suggest.feed_run import write_feed_stream
 
     t0 = time.perf_counter()
     db = make_store(Path(folder) / f"s{products}", products)

@@ -51,7 +51,7 @@ _PUBLIC = {
     "Store": "harmony.shop.store",
     "run_extraction": "harmony.shop.engine",
     "read_events": "harmony.shop.events",
-    "build_feed": "harmony.suggest.feed",
+    "build_feed": "harmony.suggest.feed_run",
     "suggest_partners": ("harmony.suggest.feed", "suggest"),
     "load_room": "harmony.suggest.room",
     "search_bundles": "harmony.suggest.bundle",

@@ -97,7 +97,7 @@ def feed(db, rules_path, top, targets, diversity, fmt, out, progress, blend, ble
     """
     from harmony.rules import load_rules
     from harmony.shop.store import Store
-    from harmony.suggest.feed import build_feed, write_feed_stream
+    from harmony.suggest.feed_run import build_feed, write_feed_stream
 
     if scheduler is not None and engine != "dask":
         raise HarmonyError("--scheduler needs --engine dask")

@@ -172,7 +172,8 @@ def run_demo(out_dir=DEFAULT_OUT, workers=None, progress=None, log=None, catalog
         curation = load_curation(curation_path)
     with Store(db_path) as store:
         t0 = time.perf_counter()
-        from harmony.suggest.feed import build_feed, write_feed
+        from harmony.suggest.feed import write_feed
+        from harmony.suggest.feed_run import build_feed
 
         feed_rows = build_feed(store, rules, top=FEED_TOP, diversity=FEED_DIVERSITY, warn=say, curation=curation)
         feed_path = out_dir / "feed.jsonl"

@@ -10,7 +10,6 @@ import os
 import signal
 import sqlite3
 import time
-from pathlib import Path
 
 import numpy as np
 import pytest

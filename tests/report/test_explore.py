@@ -3,9 +3,7 @@ real browser), what made the report, plurals, and downloaded photos embedded for
 
 import json
 import re
-import subprocess
 
-import numpy as np
 import pytest
 from click.testing import CliRunner
 

@@ -355,7 +355,7 @@ def test_no_row_of_the_demo_feed_contradicts_itself(tmp_path):
     from harmony.resources import DEFAULT_RULES, DEMO_DIR
     from harmony.shop.engine import run_extraction
     from harmony.shop.store import Store
-    from harmony.suggest.feed import build_feed
+    from harmony.suggest.feed_run import build_feed
 
     db = tmp_path / "shop.db"
     run_extraction(DEMO_DIR / "shop" / "catalogue.csv", db, workers=1, progress=False)

@@ -22,7 +22,7 @@ from harmony.resources import DEFAULT_RULES, SHOP_DIR
 from harmony.rules import load_rules
 from harmony.rules.score import pair_score
 from harmony.shop.store import Store
-from harmony.suggest.feed import build_feed
+from harmony.suggest.feed_run import build_feed
 
 
 def _one_sentence(response):

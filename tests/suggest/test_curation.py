@@ -156,7 +156,7 @@ def test_feed_honours_curation_and_records_what_made_it(shop, tmp_path):
     from harmony.cli import main
     from harmony.rules import load_rules
     from harmony.shop.store import Store
-    from harmony.suggest.feed import build_feed
+    from harmony.suggest.feed_run import build_feed
 
     with Store(shop) as store:
         plain = build_feed(store, load_rules(), top=3)

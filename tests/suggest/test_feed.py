@@ -15,13 +15,13 @@ from harmony.shop.catalogue import read_catalogue
 from harmony.shop.store import FileHash, Store
 from harmony.suggest.feed import (
     FEED_COLUMNS,
-    build_feed,
     mmr_select,
     palette_similarity,
     similarity_matrix,
     suggest,
     write_feed,
 )
+from harmony.suggest.feed_run import build_feed
 
 
 def make_store(tmp_path, items):

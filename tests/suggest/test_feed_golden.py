@@ -21,7 +21,7 @@ import pytest
 from harmony.rules import load_rules
 from harmony.shop.store import Store
 from harmony.suggest import feed as feed_module
-from harmony.suggest.feed import write_feed_stream
+from harmony.suggest.feed_run import write_feed_stream
 
 from test_feed import make_store
 from test_feed_stream import synthetic_palettes

@@ -13,14 +13,8 @@ from harmony.rules.score import pair_score, to_unit
 from harmony.rules.screen import exact_raw
 from harmony.shop.store import Store
 from harmony.suggest import feed as feed_module
-from harmony.suggest.feed import (
-    FeedRow,
-    build_feed,
-    mmr_select,
-    plan_feed,
-    similarity_matrix,
-    write_feed_stream,
-)
+from harmony.suggest.feed import FeedRow, mmr_select, plan_feed, similarity_matrix
+from harmony.suggest.feed_run import build_feed, write_feed_stream
 
 from test_feed import make_store
 
