@@ -281,6 +281,11 @@ def fit_pbm(log, tol=1e-7, max_iter=2000, start=None, weights=None):
     impressions (Wang et al. 2018, equations 4-5). Every step raises the likelihood (Dempster,
     Laird & Rubin 1977); the result is rescaled to ``theta[0] = 1`` at the end, which leaves the
     likelihood unchanged. Slots or suggestions with no impression (weight 0) keep their start value.
+    The steps are accelerated by SQUAREM (Varadhan & Roland 2008), which keeps EM's fixed point
+    and its stopping rule; ``iterations`` counts EM steps.
+
+    R. Varadhan, C. Roland (2008). Simple and globally convergent methods for accelerating the
+    convergence of any EM algorithm. Scandinavian Journal of Statistics 35(2):335-353.
     """
     n_pos, n_sug = log.positions, len(log.pairs)
     w_all = np.ones(len(log)) if weights is None else np.asarray(weights, dtype=float)
@@ -296,22 +301,51 @@ def fit_pbm(log, tol=1e-7, max_iter=2000, start=None, weights=None):
     else:
         theta = np.clip(start.theta * 0.999, 1e-6, 1 - 1e-6)
         alpha = np.clip(start.alpha, 1e-6, 1 - 1e-6)
-    converged = False
-    it = 0
-    for it in range(1, int(max_iter) + 1):
+    def em_step(theta, alpha):
         t, a = theta[pos], alpha[sug]
         denom = np.maximum(1.0 - t * a, 1e-12)
         e_post = c + (1 - c) * t * (1 - a) / denom
         a_post = c + (1 - c) * a * (1 - t) / denom
         new_theta = np.where(per_pos > 0, np.bincount(pos, weights=w * e_post, minlength=n_pos) / np.maximum(per_pos, 1e-12), theta)
         new_alpha = np.where(per_sug > 0, np.bincount(sug, weights=w * a_post, minlength=n_sug) / np.maximum(per_sug, 1e-12), alpha)
+        return new_theta, new_alpha
+
+    def change(theta, alpha, new_theta, new_alpha):
         # Only theta / theta[0] and alpha * theta[0] are identified; the common scale drifts slowly.
-        change = max(np.max(np.abs(new_theta / new_theta[0] - theta / theta[0])),
-                     np.max(np.abs(new_alpha * new_theta[0] - alpha * theta[0])))
-        theta, alpha = new_theta, new_alpha
-        if change < tol:
-            converged = True
+        return max(np.max(np.abs(new_theta / new_theta[0] - theta / theta[0])),
+                   np.max(np.abs(new_alpha * new_theta[0] - alpha * theta[0])))
+
+    def likelihood(x):
+        p = np.clip(x[:n_pos][pos] * x[n_pos:][sug], 1e-12, 1 - 1e-12)
+        return float(np.sum(w * (c * np.log(p) + (1 - c) * np.log1p(-p))))
+
+    # SQUAREM (Varadhan & Roland 2008, scheme S3): two EM steps, a step along their squared
+    # extrapolation, and an EM step from there, kept only if the likelihood beats the second EM
+    # step's; EM alone creeps along a ridge for hundreds of steps here. Converged means, as for
+    # plain EM, that one EM step moves no identified parameter by more than ``tol``.
+    converged = False
+    it = 0
+    x = np.concatenate([theta, alpha])
+    while it < int(max_iter):
+        t1, a1 = em_step(x[:n_pos], x[n_pos:])
+        it += 1
+        if change(x[:n_pos], x[n_pos:], t1, a1) < tol:
+            x, converged = np.concatenate([t1, a1]), True
             break
+        x1 = np.concatenate([t1, a1])
+        x2 = np.concatenate(em_step(t1, a1))
+        it += 1
+        r, v = x1 - x, x2 - 2.0 * x1 + x
+        norm_v = np.sqrt(v @ v)
+        if not norm_v > 0:
+            x = x2
+            continue
+        step = min(-np.sqrt(r @ r) / norm_v, -1.0)
+        jump = np.clip(x - 2.0 * step * r + step * step * v, 1e-9, 1.0 - 1e-9)
+        x3 = np.concatenate(em_step(jump[:n_pos], jump[n_pos:]))
+        it += 1
+        x = x3 if likelihood(x3) >= likelihood(x2) else x2
+    theta, alpha = x[:n_pos], x[n_pos:]
     if not theta[0] > 0:
         raise EventsError(f"{log.path or 'impression log'}: no click in the first slot; the examination curve cannot be scaled")
     scale = theta[0]

@@ -68,6 +68,37 @@ def test_em_raises_the_likelihood_above_any_other_scaling():
     assert fit.log_likelihood >= log_likelihood(log, fit.theta * [1, 0.95, 1.05], fit.alpha) - 1e-9
 
 
+def test_accelerated_em_lands_on_plain_em_fixed_point_in_fewer_steps():
+    # Reference: plain EM (Chuklin et al. 2015, section 4.2), written out here on the unfolded
+    # impressions and run far past convergence; SQUAREM (Varadhan & Roland 2008) must keep its
+    # fixed point and take fewer EM steps than plain EM needs to meet the same stopping rule.
+    rng = np.random.default_rng(12)
+    log = impression_log(_simulate(rng, [1.0, 0.6, 0.45, 0.3], rng.uniform(0.05, 0.5, 40), 2000, 4))
+    pos, sug, c = log.position - 1, log.suggestion, log.clicked.astype(float)
+    theta, alpha = np.full(4, 0.5), np.full(40, 0.2)
+    plain_steps = None
+    for step in range(1, 200_001):
+        t, a = theta[pos], alpha[sug]
+        e = c + (1 - c) * t * (1 - a) / (1 - t * a)
+        f = c + (1 - c) * a * (1 - t) / (1 - t * a)
+        new_theta = np.bincount(pos, weights=e) / np.bincount(pos)
+        new_alpha = np.bincount(sug, weights=f) / np.bincount(sug)
+        moved = max(np.abs(new_theta / new_theta[0] - theta / theta[0]).max(),
+                    np.abs(new_alpha * new_theta[0] - alpha * theta[0]).max())
+        theta, alpha = new_theta, new_alpha
+        if plain_steps is None and moved < 1e-7:
+            plain_steps = step
+        if moved < 1e-13:
+            break
+    fit = fit_pbm(log, tol=1e-10, max_iter=200_000)
+    assert fit.converged
+    np.testing.assert_allclose(fit.theta, theta / theta[0], atol=1e-6)
+    np.testing.assert_allclose(fit.alpha, alpha * theta[0], atol=1e-6)
+    quick = fit_pbm(log)  # the default tolerance, 1e-7
+    assert quick.converged and quick.iterations < plain_steps
+    np.testing.assert_allclose(quick.theta, theta / theta[0], atol=1e-4)
+
+
 PLANTED = np.array([1.0, 0.5, 1 / 3, 0.25, 0.2])  # (1/k)^1, as simulated by Joachims et al. (2017)
 
 
