@@ -10,17 +10,19 @@ numpy operation over all the problems still pivoting.
 Method: the primal network simplex on the bipartite graph of supplies (rows) and demands
 (columns), its basis a spanning tree rooted at row 0 and kept as parent pointers:
 
-- start: the north-west corner rule (Dantzig 1963, section 14-3), which gives a spanning tree
+- start: the north-west corner rule (Dantzig 1963, the transportation chapters), which gives a spanning tree
   (a staircase) in ``n + m - 1`` steps;
 - entering arc: the most negative reduced cost ``c_ij - u_i - v_j`` (Dantzig's rule);
 - leaving arc: the last blocking arc met when going round the cycle in the entering arc's
   direction from the cycle's apex, which keeps the tree *strongly feasible* and so rules out
-  cycling on degenerate problems (Cunningham 1976; Ahuja, Magnanti & Orlin 1993, section 11.6);
+  cycling on degenerate problems (Cunningham 1976; Ahuja, Magnanti & Orlin 1993, chapter 11;
+  chapter and page numbers here are from memory);
 - the tree's ancestor sets as bit masks and its depths, rebuilt after each pivot by pointer
   jumping (Wyllie 1979);
-- stop: when no reduced cost is below ``-tolerance``. The optimum's value is then within
-  ``tolerance`` times the total mass of the exact one; with the default tolerance that is
-  ``1e-12`` of the largest cost, the rounding of the sums themselves.
+- stop: when no reduced cost is below ``-tau``. The potentials less ``tau`` are then a feasible
+  dual, so the cost found exceeds the optimum by at most ``tau`` times the total mass (weak
+  duality); ``tau`` is ``1e-12`` of the problem's largest cost by default, the rounding of the
+  sums themselves.
 
 References
 ----------
