@@ -49,7 +49,7 @@ def signature(jab, weights, name="palette"):
     return Signature(jab[keep], w[keep] / total)
 
 
-def emd_one_to_many(jab_a, weights_a, others, chunk=None):
+def emd_one_to_many(jab_a, weights_a, others):
     """Earth mover's distance from one weighted palette to each of several (Rubner et al. 2000).
 
     Parameters
@@ -60,8 +60,6 @@ def emd_one_to_many(jab_a, weights_a, others, chunk=None):
         Their weights (normalised to sum 1 here).
     others : sequence of (jab (m, 3), weights (m,))
         The palettes to compare with.
-    chunk : None
-        Kept for callers of the earlier linear-programming version; unused.
 
     Returns
     -------
