@@ -38,7 +38,6 @@ from harmony.suggest.rows import PartnerRow
 __all__ = [
     "SIMILAR_DELTA_E",
     "SimilarRow",
-    "palette_emd",
     "centroid_bound",
     "nearest_colour_distance",
     "top_similar",
@@ -64,18 +63,6 @@ class SimilarRow(PartnerRow):
 def _normalised(weights):
     w = np.asarray(weights, dtype=float)
     return w / w.sum()
-
-
-def palette_emd(jab_a, weights_a, jab_b, weights_b):
-    """Earth mover's distance between two palettes in CAM02-UCS ΔE (:func:`harmony.colour.emd.emd`).
-
-    Shares are normalised to sum 1 (every unit moves; Rubner et al. 2000, section 4.1).
-
-    >>> round(palette_emd([[50, 0, 0], [50, 10, 0]], [0.6, 0.4], [[50, 0, 0], [50, 0, 10]], [0.3, 0.7]), 4)
-    8.6569
-    """
-    first = signature(jab_a, weights_a, "first palette")
-    return float(emd_pairs([first], [signature(jab_b, weights_b, "second palette")])[0])
 
 
 #: Candidates whose EMDs are solved together, at most: enough to share the solver's steps, few
