@@ -333,6 +333,9 @@ def fit_pbm(log, tol=1e-7, max_iter=2000, start=None, weights=None):
             x, converged = np.concatenate([t1, a1]), True
             break
         x1 = np.concatenate([t1, a1])
+        if it + 2 > int(max_iter):  # no room for a whole cycle: plain EM steps to the cap
+            x = x1
+            continue
         x2 = np.concatenate(em_step(t1, a1))
         it += 1
         r, v = x1 - x, x2 - 2.0 * x1 + x

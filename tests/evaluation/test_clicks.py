@@ -97,6 +97,10 @@ def test_accelerated_em_lands_on_plain_em_fixed_point_in_fewer_steps():
     quick = fit_pbm(log)  # the default tolerance, 1e-7
     assert quick.converged and quick.iterations < plain_steps
     np.testing.assert_allclose(quick.theta, theta / theta[0], atol=1e-4)
+    # The cap counts EM steps, the accelerated cycle's three included.
+    for cap in (1, 2, 4, 5):
+        capped = fit_pbm(log, max_iter=cap)
+        assert capped.iterations == cap and not capped.converged
 
 
 PLANTED = np.array([1.0, 0.5, 1 / 3, 0.25, 0.2])  # (1/k)^1, as simulated by Joachims et al. (2017)
