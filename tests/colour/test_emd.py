@@ -80,3 +80,7 @@ def test_zero_weight_colours_move_nothing():
     assert emd(a, wa, [[50, 0, 10]], [1.0]) == pytest.approx(10.0, rel=1e-15)
     with pytest.raises(ValueError, match="palette 0: colours must be finite"):
         emd_one_to_many(a, wa, [([[np.nan, 0, 0]], [1.0])])
+    # An infinite weight would make every share nan and reach the solver as a bad supply.
+    for bad in ([np.inf, 1.0], [np.nan, 1.0], [-0.5, 1.0], [0.0, 0.0]):
+        with pytest.raises(ValueError, match="first palette: weights must be finite and >= 0"):
+            emd(a, bad, [[50, 0, 10]], [1.0])
