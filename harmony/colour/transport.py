@@ -167,20 +167,20 @@ def _solve(a, b, c, n, m, tolerance):
     parent, flow, potential, ancestors, depth = _north_west_corner(a, b, c, n, m)
     out = np.empty(count)
     live = np.arange(count)  # problem numbers of the rows still pivoting
-    flat_c = c.reshape(count, -1)
+    cost = c.reshape(count, -1)  # the live problems' costs, cut down with the rest of the state
     # Cunningham's rule cannot cycle, so this bound only guards against a fault; what is left
     # after it is solved as a linear program.
     for _ in range(50 * nodes * nodes):
         rows = np.arange(live.size)
-        reduced = flat_c[live] - (potential[:, :big_n, None] + potential[:, None, big_n:]).reshape(live.size, -1)
+        reduced = cost - (potential[:, :big_n, None] + potential[:, None, big_n:]).reshape(live.size, -1)
         enter = reduced.argmin(axis=1)
         r = reduced[rows, enter]
-        going = r < -tol[live]
+        going = r < -tol
         if not going.all():
             done = ~going
-            out[live[done]] = _tree_cost(c[live[done]], parent[done], flow[done])
-            live, parent, flow, potential, ancestors, depth, enter, r = (
-                x[going] for x in (live, parent, flow, potential, ancestors, depth, enter, r))
+            out[live[done]] = _tree_cost(cost[done].reshape(-1, big_n, big_m), parent[done], flow[done])
+            live, cost, tol, parent, flow, potential, ancestors, depth, enter, r = (
+                x[going] for x in (live, cost, tol, parent, flow, potential, ancestors, depth, enter, r))
             if live.size == 0:
                 return out
             rows = rows[: live.size]
