@@ -6,7 +6,7 @@ import numpy as np
 
 from harmony.colour.transport import padded_transport_costs
 
-__all__ = ["emd_one_to_many", "emd", "Signature", "signature", "emd_signatures", "emd_pairs", "BATCH"]
+__all__ = ["emd_one_to_many", "emd", "Signature", "signature", "emd_pairs", "BATCH"]
 
 #: Transport problems solved together, at most: the solver's arrays stay a few megabytes (its
 #: results do not depend on the batch: tests/colour/test_transport.py).
@@ -81,12 +81,7 @@ def emd_one_to_many(jab_a, weights_a, others):
     R. Flamary et al. (2021). POT: Python Optimal Transport. JMLR 22(78):1-8.
     """
     first = signature(jab_a, weights_a, "first palette")
-    return emd_signatures(first, [signature(j, w, f"palette {i}") for i, (j, w) in enumerate(others)])
-
-
-def emd_signatures(first, others):
-    """:func:`emd_one_to_many` on palettes already made :class:`Signature` (no checks again)."""
-    return emd_pairs([first] * len(others), others)
+    return emd_pairs([first] * len(others), [signature(j, w, f"palette {i}") for i, (j, w) in enumerate(others)])
 
 
 def emd_pairs(firsts, seconds):
