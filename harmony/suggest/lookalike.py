@@ -90,7 +90,7 @@ def _centroids(palettes):
     return np.stack([_normalised(p.weights) @ np.asarray(p.jab, dtype=float) for p in palettes])
 
 
-def top_similar(query, palettes, top, centroids=None, query_centroid=None, known=None, key=None):
+def top_similar(query, palettes, top, centroids=None, query_centroid=None, known=None, key=None, signatures=None):
     """The ``top`` palettes closest to ``query`` by exact EMD, using the centroid bound to skip work.
 
     Parameters
@@ -103,6 +103,8 @@ def top_similar(query, palettes, top, centroids=None, query_centroid=None, known
         Precomputed centroids of ``palettes``.
     known : dict, optional
         A cache of solved distances, keyed by ``key(j)``; filled as EMDs are solved.
+    signatures : sequence of harmony.colour.emd.Signature, optional
+        Those of ``palettes``, when the caller keeps them for many queries (made here otherwise).
 
     Returns
     -------
@@ -136,7 +138,8 @@ def top_similar(query, palettes, top, centroids=None, query_centroid=None, known
         if new:
             if first is None:
                 first = signature(query.jab, query.weights, "query palette")
-            others = [signature(palettes[j].jab, palettes[j].weights, f"palette {j}") for j, _ in new]
+            others = [signature(palettes[j].jab, palettes[j].weights, f"palette {j}") if signatures is None
+                      else signatures[j] for j, _ in new]
             for (j, k), d in zip(new, emd_pairs([first] * len(new), others).tolist()):
                 found.append((d, j))
                 if known is not None:
@@ -232,6 +235,7 @@ def similar_rows(store, top=10, progress=False):
         stock = [p.id for p in group if p.in_stock()]
         pals = [palettes[i] for i in stock]
         cents = _centroids(pals) if pals else np.zeros((0, 3))
+        sigs = [signature(pal.jab, pal.weights, pid) for pid, pal in zip(stock, pals)]  # once per category
         known = {}
         for p in group:
             others = [j for j, pid in enumerate(stock) if pid != p.id]
@@ -241,6 +245,7 @@ def similar_rows(store, top=10, progress=False):
             idx, dist, n = top_similar(
                 palettes[p.id], [pals[j] for j in others], top, centroids=cents[others],
                 known=known, key=lambda j, me=p.id: tuple(sorted((me, stock[others[j]]))),
+                signatures=[sigs[j] for j in others],
             )
             solved += n
             for r, (j, d) in enumerate(zip(idx, dist), start=1):
