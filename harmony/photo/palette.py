@@ -331,16 +331,40 @@ class PaletteSettings:
         )
 
 
+def _coordinate_order(d):
+    """The order in which squared coordinate differences are added: J', b', a' for three (the
+    order numpy's ``einsum("nkc,nkc->nk")`` adds them, which earlier versions used, so distances
+    keep their bits), index order otherwise."""
+    return (0, 2, 1) if d == 3 else tuple(range(d))
+
+
+def _sq_dist_planes(planes, centres):
+    """Squared Euclidean distances of points given as coordinate planes, shape (d, n), to
+    ``centres`` (k, d): shape (k, n), each row a contiguous run over the points."""
+    order = _coordinate_order(planes.shape[0])
+    out = planes[order[0]] - centres[:, order[0], None]
+    out *= out
+    step = np.empty_like(out)
+    for c in order[1:]:
+        np.subtract(planes[c], centres[:, c, None], out=step)
+        step *= step
+        out += step
+    return out
+
+
 def _sq_dist(points, centres):
-    d = points[:, None, :] - centres[None, :, :]
-    return np.einsum("nkc,nkc->nk", d, d)
+    """Squared Euclidean distances of ``points`` (n, d) to ``centres`` (k, d), shape (n, k)."""
+    return np.ascontiguousarray(_sq_dist_planes(np.ascontiguousarray(points.T), centres).T)
 
 
 def _kmeans_once(points, weights, k, rng, max_iter, inertia=True):
     n = points.shape[0]
+    # Distances run over coordinate planes, point by point along each row (k, n): the values of
+    # _sq_dist, laid out so that numpy's loops run long.
+    planes = np.ascontiguousarray(points.T)
     cum = np.cumsum(weights)
     chosen = [min(int(np.searchsorted(cum, rng.random() * cum[-1], side="right")), n - 1)]
-    closest = _sq_dist(points, points[chosen])[:, 0]
+    closest = _sq_dist_planes(planes, points[chosen])[0]
     trials = 2 + int(np.log(k))
     for _ in range(1, k):
         cum = np.cumsum(weights * closest)
@@ -348,20 +372,22 @@ def _kmeans_once(points, weights, k, rng, max_iter, inertia=True):
         if not total > 0.0:
             break
         cand = np.minimum(np.searchsorted(cum, rng.random(trials) * total, side="right"), n - 1)
-        d_cand = np.minimum(closest[:, None], _sq_dist(points, points[cand]))
-        best = int(np.argmin(weights @ d_cand))
+        d_cand = _sq_dist_planes(planes, points[cand])
+        np.minimum(d_cand, closest, out=d_cand)
+        # The product as before, over an (n, trials) array, so its sums keep their order.
+        best = int(np.argmin(weights @ np.ascontiguousarray(d_cand.T)))
         chosen.append(int(cand[best]))
-        closest = d_cand[:, best]
+        closest = d_cand[best]
     centres = points[chosen].copy()
     m, d = centres.shape
     assignment = None
     # The mass and the weighted coordinates of each cluster by one bincount: row r of the sums
     # collects row r of ``weighted`` (the weight, then each coordinate times it), point by point.
-    weighted = np.concatenate([weights[None, :], weights * points.T])
+    weighted = np.concatenate([weights[None, :], weights * planes])
     shift = (m * np.arange(d + 1))[:, None]
     for _ in range(max_iter):
-        d2 = _sq_dist(points, centres)
-        new = np.argmin(d2, axis=1)
+        d2 = _sq_dist_planes(planes, centres)
+        new = np.argmin(d2, axis=0)
         if assignment is not None and np.array_equal(new, assignment):
             break
         assignment = new
@@ -370,7 +396,7 @@ def _kmeans_once(points, weights, k, rng, max_iter, inertia=True):
         mass = sums[0]
         used = mass > 0
         centres[used] = sums[1:, used].T / mass[used, None]
-    score = float(weights @ _sq_dist(points, centres)[np.arange(n), assignment]) if inertia else 0.0
+    score = float(weights @ _sq_dist_planes(planes, centres)[assignment, np.arange(n)]) if inertia else 0.0
     used = np.bincount(assignment, minlength=m) > 0
     remap = np.cumsum(used) - 1
     return score, centres[used], remap[assignment]
@@ -619,11 +645,11 @@ def _bin_colours(srgb8, levels):
 
 
 def _bin_sums(inverse, n_bins, jab_planes, product, clean, inner):
-    """The occupied bins holding product, their J'a'b' (means weighted by ``product``, so a
-    product's bins are not pulled towards backdrop pixels sharing a bin) and their masses under
-    ``clean`` and ``inner``. Pixels of weight 0 add nothing to any sum (x + 0.0 == x): only the
-    product's pixels are summed, in raster order, all six sums by one bincount (each bin's sum
-    still runs over its pixels in order)."""
+    """The occupied bins holding product, their J'a'b' as planes, shape (3, n) (means weighted by
+    ``product``, so a product's bins are not pulled towards backdrop pixels sharing a bin) and
+    their masses under ``clean`` and ``inner``. Pixels of weight 0 add nothing to any sum
+    (x + 0.0 == x): only the product's pixels are summed, in raster order, all six sums by one
+    bincount (each bin's sum still runs over its pixels in order)."""
     some = np.flatnonzero(product != 0)
     inv = inverse[some]
     values = np.empty((6, some.size))
@@ -636,7 +662,7 @@ def _bin_sums(inverse, n_bins, jab_planes, product, clean, inner):
     sums = np.bincount(where.ravel(), weights=values.ravel(), minlength=6 * n_bins).reshape(6, n_bins)
     mass = sums[0]
     bins = np.flatnonzero(mass > 0)
-    jab = sums[1:4, bins].T / mass[bins, None]
+    jab = sums[1:4, bins] / mass[bins]  # planes, shape (3, n)
     return bins, jab, sums[4, bins], sums[5, bins]
 
 
@@ -696,22 +722,22 @@ def palette_from_decoded(decoded, settings=PaletteSettings()):
     if clean.sum() < 16:
         clean = product
     inner = np.where(outline, 0.0, product)
-    bins, jab, clean_mass, inner_mass = _bin_sums(inverse, n_bins, jab_planes, product, clean, inner)
+    bins, bin_planes, clean_mass, inner_mass = _bin_sums(inverse, n_bins, jab_planes, product, clean, inner)
     fit = clean_mass > 0
     rng = _SeededDraws(settings.seed, settings.colours)
     # One k-means++ start: the greedy seeding with 2 + ln k trials per centre is already close
     # to the best of several starts on these few thousand bins (the ColorChecker chart at k = 24
     # comes out the same with 1 to 6 starts), and each start costs as much as the rest.
-    centres, _ = weighted_kmeans(jab[fit], clean_mass[fit], settings.colours, rng, n_init=1)
-    nearest = np.argmin(_sq_dist(jab, centres), axis=1)
+    centres, _ = weighted_kmeans(bin_planes[:, fit].T, clean_mass[fit], settings.colours, rng, n_init=1)
+    nearest = np.argmin(_sq_dist_planes(bin_planes, centres), axis=0)
     mass = np.bincount(nearest, weights=inner_mass, minlength=len(centres))
     edge = np.flatnonzero(outline)
     if edge.size:
         px = jab_planes.take(edge, axis=1).astype(float)
         if mask.backdrop is None:
-            d2 = _sq_dist(px.T, centres)
-            k = np.argmin(d2, axis=1)
-            pure = d2[np.arange(edge.size), k] <= (settings.edge_delta_e / 2.0) ** 2
+            d2 = _sq_dist_planes(px, centres)
+            k = np.argmin(d2, axis=0)
+            pure = d2[k, np.arange(edge.size)] <= (settings.edge_delta_e / 2.0) ** 2
             mass += np.bincount(k[pure], weights=product[edge][pure], minlength=len(centres))
         else:
             back = np.moveaxis(mask.backdrop, -1, 0).reshape(3, -1).take(edge, axis=1)

@@ -194,11 +194,30 @@ def test_merge_close_matches_recomputing_every_distance():
         assert np.array_equal(got_c, np.array(want_c)) and np.array_equal(got_m, np.array(want_m))
 
 
+def _einsum_sq_dist(points, centres):
+    d = points[:, None, :] - centres[None, :, :]
+    return np.einsum("nkc,nkc->nk", d, d)
+
+
+def test_squared_distances_are_numpys_einsum():
+    # numpy.einsum's sum of squared differences over three coordinates, bit for bit, in either
+    # layout (points as rows or as coordinate planes).
+    rng = np.random.default_rng(12)
+    for _ in range(500):
+        n, k = int(rng.integers(1, 400)), int(rng.integers(1, 12))
+        points = rng.normal(size=(n, 3)) * rng.choice([0.1, 3.0, 30.0, 100.0], size=(n, 1))
+        centres = rng.normal(size=(k, 3)) * rng.choice([1.0, 20.0])
+        want = _einsum_sq_dist(points, centres)
+        assert np.array_equal(palette_module._sq_dist(points, centres), want)
+        planes = np.ascontiguousarray(points.T)
+        assert np.array_equal(palette_module._sq_dist_planes(planes, centres), want.T)
+
+
 def test_distance_is_the_square_root_of_numpys_einsum():
     # numpy.sqrt of numpy.einsum's sum of squared differences, bit for bit.
     rng = np.random.default_rng(11)
     points = rng.normal(size=(400, 3)) * rng.choice([0.1, 3.0, 30.0], size=(400, 1))
-    want = np.sqrt(palette_module._sq_dist(points[:200], points[200:]))
+    want = np.sqrt(_einsum_sq_dist(points[:200], points[200:]))
     got = [[palette_module._distance(a, b) for b in points[200:].tolist()] for a in points[:200].tolist()]
     assert np.array_equal(np.array(got), want)
 
