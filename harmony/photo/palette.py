@@ -536,8 +536,8 @@ def _distance(a, b):
 #: is that of its cell's centre, within about 0.4 ΔE of its own).
 FINE_LEVELS = 128
 _BLOCK = 8  # cells per block side: the table is filled a block of 8 x 8 x 8 cells at a time
-#: The table: one row of J'a'b' per cell, block by block (row ``block * 512 + cell in block``),
-#: so the few blocks a photo touches lie together in memory.
+#: The table: J', a' and b' planes with one column per cell, block by block (column
+#: ``block * 512 + cell in block``), so the few blocks a photo touches lie together in memory.
 _TABLE = None
 _DONE = None
 
@@ -548,7 +548,7 @@ def _fill_table(blocks):
     shift = 8 - int(np.log2(FINE_LEVELS))
     side = FINE_LEVELS // _BLOCK
     if _TABLE is None:
-        _TABLE = np.empty((FINE_LEVELS**3, 3), dtype=np.float32)
+        _TABLE = np.empty((3, FINE_LEVELS**3), dtype=np.float32)
         _DONE = np.zeros(side**3, dtype=bool)
     missing = blocks[~_DONE[blocks]]
     if len(missing):
@@ -560,7 +560,7 @@ def _fill_table(blocks):
             cells = local + np.array([b0, b1, b2]) * _BLOCK
             centre = (cells * (1 << shift) + ((1 << shift) - 1) / 2.0) / 255.0
             start = int(b) * _BLOCK**3
-            _TABLE[start: start + _BLOCK**3] = colour.srgb1_to_jab(centre)
+            _TABLE[:, start: start + _BLOCK**3] = colour.srgb1_to_jab(centre).T
             _DONE[b] = True
 
 
@@ -589,7 +589,9 @@ def _pixel_codes(channels, levels):
     """Table rows and bins (``levels`` per channel) of pixels given as channel planes, shape
     (3, n), uint8."""
     parts = _channel_codes(levels)
-    both = parts[0].take(channels[0]) + parts[1].take(channels[1]) + parts[2].take(channels[2])
+    both = parts[0].take(channels[0])
+    both += parts[1].take(channels[1])
+    both += parts[2].take(channels[2])
     return both >> 24, both & ((1 << 24) - 1)
 
 
@@ -601,7 +603,7 @@ def _jab_planes(rows, blocks=None):
         side = FINE_LEVELS // _BLOCK
         blocks = np.flatnonzero(np.bincount(rows // _BLOCK**3, minlength=side**3))
     _fill_table(blocks)
-    return np.ascontiguousarray(_TABLE.take(rows, axis=0).T)
+    return _TABLE.take(rows, axis=1)
 
 
 def srgb8_to_jab(srgb8):
@@ -637,7 +639,7 @@ def _bin_colours(srgb8, levels):
         side = FINE_LEVELS // _BLOCK
         br, bg, bb = (occupied >> (2 * bits)) >> coarse, ((occupied >> bits) & (levels - 1)) >> coarse, \
             (occupied & (levels - 1)) >> coarse
-        blocks = np.unique((br * side + bg) * side + bb)
+        blocks = np.flatnonzero(np.bincount((br * side + bg) * side + bb, minlength=side**3))
     pixel_planes = _jab_planes(rows, blocks)
     index = np.zeros(levels**3, dtype=np.intp)
     index[occupied] = np.arange(occupied.size)
