@@ -6,6 +6,7 @@ import numpy as np
 from scipy import ndimage
 
 from harmony.photo import mask as mask_module
+from harmony.photo import clusters
 from harmony.photo import palette as palette_module
 from harmony.photo.surface import basis, grid_basis, median_rows, ring_basis
 
@@ -161,7 +162,7 @@ def test_seeded_draws_are_the_generators_draws():
     # numpy.random.default_rng(seed).random, one number or a few at a time.
     for seed in (0, 3):
         for k in (1, 2, 10, 64):
-            draws = palette_module._SeededDraws(seed, k)
+            draws = clusters.SeededDraws(seed, k)
             rng = np.random.default_rng(seed)
             trials = 2 + int(np.log(k))
             assert draws.random() == rng.random()
@@ -180,7 +181,7 @@ def test_merge_close_matches_recomputing_every_distance():
         want_c, want_m = [c for c in centres], [float(v) for v in masses]
         while len(want_c) > 1:
             arr = np.array(want_c)
-            d = np.sqrt(palette_module._sq_dist(arr, arr))
+            d = np.sqrt(clusters.sq_dist(arr, arr))
             np.fill_diagonal(d, np.inf)
             i, j = np.unravel_index(int(np.argmin(d)), d.shape)
             if not d[i, j] < limit:
@@ -190,7 +191,7 @@ def test_merge_close_matches_recomputing_every_distance():
             want_c[i] = (want_m[i] * want_c[i] + want_m[j] * want_c[j]) / total
             want_m[i] = total
             del want_c[j], want_m[j]
-        got_c, got_m = palette_module._merge_close(centres, masses, limit)
+        got_c, got_m = clusters.merge_close(centres, masses, limit)
         assert np.array_equal(got_c, np.array(want_c)) and np.array_equal(got_m, np.array(want_m))
 
 
@@ -208,9 +209,9 @@ def test_squared_distances_are_numpys_einsum():
         points = rng.normal(size=(n, 3)) * rng.choice([0.1, 3.0, 30.0, 100.0], size=(n, 1))
         centres = rng.normal(size=(k, 3)) * rng.choice([1.0, 20.0])
         want = _einsum_sq_dist(points, centres)
-        assert np.array_equal(palette_module._sq_dist(points, centres), want)
+        assert np.array_equal(clusters.sq_dist(points, centres), want)
         planes = np.ascontiguousarray(points.T)
-        assert np.array_equal(palette_module._sq_dist_planes(planes, centres), want.T)
+        assert np.array_equal(clusters.sq_dist_planes(planes, centres), want.T)
 
 
 def test_distance_is_the_square_root_of_numpys_einsum():
@@ -218,7 +219,7 @@ def test_distance_is_the_square_root_of_numpys_einsum():
     rng = np.random.default_rng(11)
     points = rng.normal(size=(400, 3)) * rng.choice([0.1, 3.0, 30.0], size=(400, 1))
     want = np.sqrt(_einsum_sq_dist(points[:200], points[200:]))
-    got = [[palette_module._distance(a, b) for b in points[200:].tolist()] for a in points[:200].tolist()]
+    got = [[clusters._distance(a, b) for b in points[200:].tolist()] for a in points[:200].tolist()]
     assert np.array_equal(np.array(got), want)
 
 
@@ -237,9 +238,7 @@ def test_pixel_table_matches_colorspacious_at_cell_centres():
 def test_seeded_draws_follow_numpy_generator_past_the_kept_run():
     # Reference: numpy's own Generator with the same seed; three k-means starts ask for three
     # times the run kept for one, which must continue the same sequence, not fail or repeat.
-    from harmony.photo.palette import _SeededDraws
-
-    draws = _SeededDraws(7, 10)
+    draws = clusters.SeededDraws(7, 10)
     want = np.random.default_rng(7)
     for size in [None, 5, 3, None] * 20:
         got = draws.random(size)
