@@ -160,7 +160,7 @@ def test_unexpected_exceptions_become_failures(tmp_path):
 
 
 def test_file_changed_between_hash_and_extraction(tmp_path):
-    csv = _shop(tmp_path, n=1)
+    _shop(tmp_path, n=1)  # writes img/p0.png
     path = str(tmp_path / "img" / "p0.png")
     [(sha, palette, reason)] = extract_chunk([("0" * 64, path)], QuadSettings(), quad_extract)
     assert palette is None and "file changed during the run" in reason
