@@ -41,11 +41,16 @@ import math
 
 import numpy as np
 
-__all__ = ["transport_costs", "padded_transport_costs", "RELATIVE_TOLERANCE", "MAX_NODES"]
+__all__ = ["transport_costs", "padded_transport_costs", "RELATIVE_TOLERANCE", "BALANCE_TOLERANCE", "MAX_NODES"]
 
 #: Optimality tolerance on reduced costs, relative to a problem's largest cost: the rounding of
 #: a few dozen sums of float64 costs (machine epsilon 2.2e-16 times the tree's depth and more).
 RELATIVE_TOLERANCE = 1e-12
+
+#: Largest difference of a problem's supply and demand totals, relative to the larger: room for
+#: the rounding of normalised weights (a few ulps), far below any real imbalance, which has no
+#: plan that moves every unit and would otherwise come out as a silent wrong cost.
+BALANCE_TOLERANCE = 1e-9
 
 #: Rows plus columns a problem may have here: the ancestor sets are bits of one int64. Larger
 #: problems go to the linear-programming solver of scipy (HiGHS), one by one.
@@ -62,8 +67,8 @@ def transport_costs(supplies, demands, costs, tolerance=RELATIVE_TOLERANCE):
     Parameters
     ----------
     supplies, demands : sequence of array_like, shapes (n_t,) and (m_t,)
-        Positive; each pair with equal sums (up to rounding: the last unit moved is the smaller
-        of the two remainders).
+        Positive and finite; each pair with equal sums up to rounding (within
+        :data:`BALANCE_TOLERANCE` of the larger, else ValueError naming the problem).
     costs : sequence of array_like, shape (n_t, m_t)
         Finite costs.
     tolerance : float
@@ -122,7 +127,12 @@ def padded_transport_costs(supplies, demands, costs, n, m, tolerance=RELATIVE_TO
     row_real = np.arange(big_n) < n[:, None]
     col_real = np.arange(big_m) < m[:, None]
     real = row_real[:, :, None] & col_real[:, None, :]
+    total_a, total_b = np.where(row_real, a, 0.0).sum(axis=1), np.where(col_real, b, 0.0).sum(axis=1)
+    with np.errstate(invalid="ignore"):  # infinite totals are refused just below
+        balanced = (np.isfinite(total_a) & np.isfinite(total_b)
+                    & (np.abs(total_a - total_b) <= BALANCE_TOLERANCE * np.maximum(total_a, total_b)))
     for name, bad in (("supplies and demands must be positive", ~(((a > 0) | ~row_real).all(axis=1) & ((b > 0) | ~col_real).all(axis=1))),
+                      ("supplies and demands must be finite with equal totals", ~balanced),
                       ("costs must be finite", ~(np.isfinite(c) | ~real).reshape(count, -1).all(axis=1))):
         if bad.any():
             raise ValueError(f"problem {int(np.argmax(bad))}: {name}")

@@ -50,7 +50,8 @@ def test_matches_pot_on_random_problems(kind, monkeypatch):
     monkeypatch.setattr(transport, "_linear_program", lambda *p: pytest.fail("fell back to the LP"))
     got = transport_costs(*zip(*problems))
     want = np.array([_pot(*p) for p in problems])
-    # Each problem within the solver's stated bound: 1e-12 of its own largest cost (unit mass).
+    # Each problem within 1e-12 of its own largest cost: the solver's stated bound (that times
+    # the total mass) or tighter, the tie problems carrying masses above 1.
     scale = np.array([max(c.max(), 1.0) for _, _, c in problems])
     assert (np.abs(got - want) <= 1e-12 * scale).all()
 
@@ -116,6 +117,11 @@ def test_padded_layout_ignores_what_lies_beyond_each_problem():
         (([[0.5, 0.5]], [[1.0]], [[1.0, 2.0]]), "problem 0: costs must have shape"),
         (([[1.0], [0.5, 0.0]], [[1.0], [0.5, 0.5]], [[[1.0]], [[1.0, 2.0], [3.0, 4.0]]]), "problem 1: supplies and demands must be positive"),
         (([[1.0]], [[1.0]], [[[np.nan]]]), "problem 0: costs must be finite"),
+        # No plan moves every unit when the totals differ: 1.0 against 0.9.
+        (([[0.5, 0.5], [1.0]], [[0.5, 0.5], [0.9]], [[[1.0, 2.0], [3.0, 4.0]], [[1.0]]]),
+         "problem 1: supplies and demands must be finite with equal totals"),
+        (([[np.inf]], [[1.0]], [[[1.0]]]), "problem 0: supplies and demands must be finite with equal totals"),
+        (([[np.inf]], [[np.inf]], [[[1.0]]]), "problem 0: supplies and demands must be finite with equal totals"),
         (([[1.0]], [], [[[1.0]]]), "same length"),
     ],
 )
@@ -129,3 +135,11 @@ def test_bad_problems_are_named(args, message):
 
 def test_nothing_to_solve():
     assert transport_costs([], [], []).shape == (0,)
+
+
+def test_rounding_level_imbalance_is_accepted():
+    # The other side of BALANCE_TOLERANCE: totals that differ only by rounding (weights
+    # normalised in float64; here 1e-12 apart) are solved, not refused. Worked by hand: the one
+    # plan ships 0.3 at cost 1 and 0.7 at cost 2.
+    got = transport_costs([[0.3, 0.7]], [[1.0 + 1e-12]], [[[1.0], [2.0]]])[0]
+    assert got == pytest.approx(1.7, rel=1e-11)
