@@ -87,6 +87,8 @@ def emd_one_to_many(jab_a, weights_a, others):
 def emd_pairs(firsts, seconds):
     """The EMD of each pair ``(firsts[t], seconds[t])`` of :class:`Signature`, solved together."""
     count = len(firsts)
+    if len(seconds) != count:
+        raise ValueError(f"emd_pairs: {count} first and {len(seconds)} second signatures; they pair one to one")
     if count == 0:
         return np.empty(0)
     index = {}  # id of a signature -> its row in the tables below

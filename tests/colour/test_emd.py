@@ -84,3 +84,11 @@ def test_zero_weight_colours_move_nothing():
     for bad in ([np.inf, 1.0], [np.nan, 1.0], [-0.5, 1.0], [0.0, 0.0]):
         with pytest.raises(ValueError, match="first palette: weights must be finite and >= 0"):
             emd(a, bad, [[50, 0, 10]], [1.0])
+
+
+def test_pairs_of_unequal_lists_are_refused():
+    # A shorter second list would leave pairs without a partner (and read unset rows).
+    sig = signature([[50, 0, 0]], [1.0])
+    for firsts, seconds in (([sig, sig], [sig]), ([sig], [sig, sig])):
+        with pytest.raises(ValueError, match="pair one to one"):
+            emd_pairs(firsts, seconds)
