@@ -10,6 +10,7 @@ in :attr:`WatchedFile.error` until a later edit loads.
 import hashlib
 import logging
 import os
+from dataclasses import dataclass
 from pathlib import Path
 
 from harmony.errors import HarmonyError
@@ -19,15 +20,14 @@ __all__ = ["WatchedFile", "FileVersion", "file_version"]
 log = logging.getLogger("harmony.serve")
 
 
+@dataclass(frozen=True)
 class FileVersion:
     """What a :class:`WatchedFile` knows of a file's bytes: ``token`` (device, inode, modification
     time, size) and ``sha256`` (hex; None when unreadable). Taken *before* a caller loads the file,
     it makes an edit that lands during the load count as an edit."""
 
-    __slots__ = ("token", "sha256")
-
-    def __init__(self, token, sha256):
-        self.token, self.sha256 = token, sha256
+    token: tuple
+    sha256: str | None
 
 
 def _token(path):
