@@ -33,7 +33,7 @@ from PIL import Image  # noqa: E402
 from threadpoolctl import threadpool_limits  # noqa: E402
 
 from _revision import load_average, run_child  # noqa: E402
-from harmony.demo.synthetic import cutout_composite, encode_jpeg, studio_shot  # noqa: E402
+from harmony.demo.synthetic import cutout_composite, cutout_mask, encode_jpeg, studio_shot  # noqa: E402
 from harmony.photo.image import decode_image  # noqa: E402
 from harmony.photo.palette import PaletteSettings, extract_palette  # noqa: E402
 
@@ -85,13 +85,9 @@ def _photo_cutouts(rng, size=800):
     photos = [skimage.data.chelsea(), skimage.data.coffee(), skimage.data.astronaut(), skimage.data.rocket(),
               load_sample_image("china.jpg"), load_sample_image("flower.jpg")]
     out = []
-    for i, photo in enumerate(photos):
-        h, w = photo.shape[:2]
-        yy, xx = np.mgrid[0:h, 0:w]
-        for ring in (False, True):
-            r2 = ((yy - h / 2) / (0.4 * min(h, w))) ** 2 + ((xx - w / 2) / (0.4 * min(h, w))) ** 2
-            mask = (r2 < 1.0) & ((r2 > 0.3) if ring else True)
-            composite, _ = cutout_composite(rng, photo[..., :3], mask, size=size)
+    for photo in photos:
+        for kind in ("ellipse", "ring"):
+            composite, _ = cutout_composite(rng, photo[..., :3], cutout_mask(photo.shape, kind), size=size)
             out.append(encode_jpeg(composite, quality=90))
     return out
 

@@ -26,6 +26,7 @@ __all__ = [
     "open_frame_shot",
     "light_neutral_shot",
     "cutout_composite",
+    "cutout_mask",
 ]
 
 #: Painted colours of the default product (invented): body, two cushions, a near-white pillow set
@@ -403,6 +404,19 @@ def light_neutral_shot(rng, body_srgb1, legs_srgb1=None, lower_srgb1=None, size=
     else:
         floor = bottom
     return _render(rng, size, parts, shapes, backdrop_srgb1, falloff, floor, (0.15, 0.85), 0.3, noise)
+
+
+def cutout_mask(shape, kind="ellipse"):
+    """An exact geometric mask to cut a region out of a photograph of ``shape`` (h, w, ...): a
+    centred disc of radius 0.4 of the short side (``"ellipse"``), or that disc with a hole of
+    radius 0.4 x sqrt(0.3) (``"ring"``, an opening the backdrop shows through)."""
+    h, w = shape[:2]
+    yy, xx = np.mgrid[0:h, 0:w]
+    r = 0.4 * min(h, w)
+    r2 = ((yy - h / 2) / r) ** 2 + ((xx - w / 2) / r) ** 2
+    if kind not in ("ellipse", "ring"):
+        raise ValueError(f"kind must be 'ellipse' or 'ring', got {kind!r}")
+    return (r2 < 1.0) & ((r2 > 0.3) if kind == "ring" else True)
 
 
 def cutout_composite(rng, photo_srgb8, mask, size=400, falloff=0.15, backdrop_srgb1=SWEEP_SRGB1,

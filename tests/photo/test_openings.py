@@ -17,6 +17,7 @@ from harmony.demo.synthetic import (
     OPEN_FRAME_KINDS,
     SWEEP_SRGB1,
     cutout_composite,
+    cutout_mask,
     encode_jpeg,
     light_neutral_shot,
     open_frame_shot,
@@ -150,13 +151,15 @@ def _photo(name):
         return getattr(skimage.data, name)()
 
 
-def _exact_mask(photo, shape):
-    """An exact geometric mask over a real texture region: an ellipse, or a ring with a hole."""
-    h, w = photo.shape[:2]
-    yy, xx = np.mgrid[0:h, 0:w]
-    ry, rx = 0.4 * min(h, w), 0.4 * min(h, w)
-    r2 = ((yy - h / 2) / ry) ** 2 + ((xx - w / 2) / rx) ** 2
-    return (r2 < 1.0) & ((r2 > 0.3) if shape == "ring" else True)
+def test_cutout_masks_have_the_areas_of_their_shapes():
+    # Geometry: a disc of radius r = 0.4 x 300 covers pi r^2 pixels (to within the pixels its
+    # edge crosses); the ring leaves out the disc of radius r sqrt(0.3), 30 % of that area.
+    disc, ring = cutout_mask((300, 400)), cutout_mask((300, 400, 3), "ring")
+    area = np.pi * 120.0**2
+    assert abs(disc.sum() - area) < 2 * np.pi * 120 and abs(ring.sum() - 0.7 * area) < 4 * np.pi * 120
+    assert not ring[150, 200] and disc[150, 200] and (ring <= disc).all()
+    with pytest.raises(ValueError, match="kind"):
+        cutout_mask((10, 10), "square")
 
 
 # gold: real photographs no one here made (scikit-image's and scikit-learn's sample images).
@@ -172,7 +175,7 @@ def test_real_cutouts_on_a_sweep_match_the_exact_mask(name, shape):
     # within 0.1, and no palette colour is the backdrop's. Measured: mean colour 0.2-2.6 ΔE, shares within 0.04.
     photo = _photo(name)
     rng = np.random.default_rng(5)
-    composite, pixels = cutout_composite(rng, photo, _exact_mask(photo, shape))
+    composite, pixels = cutout_composite(rng, photo, cutout_mask(photo.shape, shape))
     pal = extract_palette(encode_jpeg(composite, quality=85))
     truth = colour.srgb1_to_jab(pixels / 255.0)
     assert not pal.scene
