@@ -446,7 +446,7 @@ def _bin_colours(srgb8, levels):
 
 
 def _bin_sums(inverse, n_bins, jab_planes, product, clean, inner):
-    """The occupied bins holding product, their J'a'b' as planes, shape (3, n) (means weighted by
+    """Of the occupied bins holding product: their J'a'b' as planes, shape (3, n) (means weighted by
     ``product``, so a product's bins are not pulled towards backdrop pixels sharing a bin) and
     their masses under ``clean`` and ``inner``. Pixels of weight 0 add nothing to any sum
     (x + 0.0 == x): only the product's pixels are summed, in raster order, all six sums by one
@@ -464,7 +464,7 @@ def _bin_sums(inverse, n_bins, jab_planes, product, clean, inner):
     mass = sums[0]
     bins = np.flatnonzero(mass > 0)
     jab = sums[1:4, bins] / mass[bins]  # planes, shape (3, n)
-    return bins, jab, sums[4, bins], sums[5, bins]
+    return jab, sums[4, bins], sums[5, bins]
 
 
 def _unmix(px, back, centres):
@@ -523,7 +523,7 @@ def palette_from_decoded(decoded, settings=PaletteSettings()):
     if clean.sum() < 16:
         clean = product
     inner = np.where(outline, 0.0, product)
-    bins, bin_planes, clean_mass, inner_mass = _bin_sums(inverse, n_bins, jab_planes, product, clean, inner)
+    bin_planes, clean_mass, inner_mass = _bin_sums(inverse, n_bins, jab_planes, product, clean, inner)
     fit = clean_mass > 0
     rng = SeededDraws(settings.seed, settings.colours)
     # One k-means++ start: the greedy seeding with 2 + ln k trials per centre is already close
