@@ -16,9 +16,11 @@ neutralises such text cells with a leading apostrophe (common spreadsheet-safety
 the OWASP "CSV Injection" page recommends).
 
 Input files in JSON Lines (one JSON object per line, jsonlines.org) are read line by line with
-:func:`json_objects`, which names each line's problem for the caller's one-line error.
+:func:`json_objects`, and CSV files with a header row with :func:`csv_records`; both name each
+line's problem for the caller's one-line error.
 """
 
+import csv
 import errno
 import json
 import os
@@ -42,6 +44,8 @@ __all__ = [
     "spreadsheet_safe",
     "spreadsheet_safe_row",
     "FORMULA_PREFIXES",
+    "json_objects",
+    "csv_records",
 ]
 
 #: The file name that means standard output, in every command that writes one file.
@@ -245,3 +249,35 @@ def json_objects(lines, not_object="not a JSON object", column=False):
             yield number, obj, None
         else:
             yield number, None, not_object
+
+
+def csv_records(lines):
+    """The header and the records of CSV text whose first row names the columns (RFC 4180).
+
+    ``lines`` is any iterable of lines (an open file, ``io.StringIO(text, newline="")``). Returns
+    ``(header, records)``: the header's names, stripped ([] for empty text), and an iterator of
+    ``(line number, record, problem)`` for each non-blank row, like :func:`json_objects`.
+    ``record`` maps each name to its field (a row shorter than the header lacks the last names;
+    of a name given twice, the last field counts) and ``problem`` is None, or ``record`` is None
+    and ``problem`` says why: a row with more fields than the header (an unquoted comma shifts
+    every later field, so no field of it can be trusted) or one the csv module cannot read,
+    after which reading stops. The line number is the row's last physical line.
+    """
+    reader = csv.reader(lines)
+    try:
+        header = [name.strip() for name in next(reader, None) or ()]
+    except csv.Error as exc:
+        return [], iter([(reader.line_num, None, f"not readable CSV: {exc}")])
+
+    def records():
+        width = len(header)
+        try:
+            for row in reader:
+                if len(row) > width:
+                    yield reader.line_num, None, f"{len(row)} fields, the header has {width}"
+                elif row:
+                    yield reader.line_num, dict(zip(header, row)), None
+        except csv.Error as exc:
+            yield reader.line_num, None, f"not readable CSV: {exc}"
+
+    return header, records()

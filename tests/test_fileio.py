@@ -1,4 +1,5 @@
-"""Tests of harmony.fileio.write_text_whole: whole files or none, one-line errors."""
+"""Tests of harmony.fileio: whole files or none, one-line errors, and the JSON Lines and CSV input
+records."""
 
 import os
 
@@ -98,3 +99,50 @@ def test_json_objects_numbers_lines_and_names_each_problem():
         (1, {"a": 1}, None), (4, None, "not a JSON object"), (5, None, f"not JSON: {reason}"), (6, {"b": "x"}, None)]
     got = list(json_objects(lines, not_object="must be a JSON object", column=True))
     assert got[1:3] == [(4, None, "must be a JSON object"), (5, None, f"not JSON: {reason} (column {col})")]
+
+
+def test_csv_records_read_as_the_standard_dict_reader_and_refuse_long_rows():
+    # Reference: the standard library's csv.DictReader (RFC 4180 quoting, blank lines skipped, a
+    # short row lacking its last names, the line number of a row's last physical line), except
+    # that a row longer than the header is refused instead of keeping its extra fields under None.
+    import csv
+    import io
+
+    from harmony.fileio import csv_records
+
+    text = ('a, b ,c\n'  # names are stripped
+            '1,2,3\n'
+            '\n'
+            '4,"x\ny",6\n'  # a quoted field over two lines
+            '7\n'  # short
+            '8,9,10,11\n'  # long: an unquoted comma shifted the fields
+            '12,13,14\n')
+    header, records = csv_records(io.StringIO(text, newline=""))
+    assert header == ["a", "b", "c"]
+    got = list(records)
+    reader = csv.DictReader(io.StringIO(text.replace(" b ", "b"), newline=""))
+    want = []
+    for row in reader:
+        if None in row:
+            want.append((reader.line_num, None, "4 fields, the header has 3"))
+        else:
+            want.append((reader.line_num, {k: v for k, v in row.items() if v is not None}, None))
+    assert got == want
+    assert got[3] == (7, None, "4 fields, the header has 3")  # line 7: the quoted field spans two
+    assert csv_records(io.StringIO(""))[0] == []
+
+
+def test_csv_records_name_an_unreadable_row_and_stop():
+    # The csv module's own limit on one field (csv.field_size_limit(), 131,072 characters by
+    # default) makes a row unreadable; the problem names its line.
+    import csv
+    import io
+
+    from harmony.fileio import csv_records
+
+    big = "x" * (csv.field_size_limit() + 1)
+    _, records = csv_records(io.StringIO(f"a,b\n1,2\n3,{big}\n5,6\n", newline=""))
+    got = list(records)
+    assert got[0] == (2, {"a": "1", "b": "2"}, None)
+    assert got[1][0] == 3 and got[1][1] is None and got[1][2].startswith("not readable CSV: field larger")
+    assert len(got) == 2

@@ -49,7 +49,6 @@ F. Garwood (1936). Fiducial limits for the Poisson distribution. Biometrika 28(3
 B. Efron, R. J. Tibshirani (1993). An Introduction to the Bootstrap. Chapman & Hall.
 """
 
-import csv
 from dataclasses import dataclass
 from functools import cached_property
 from pathlib import Path
@@ -57,7 +56,7 @@ from pathlib import Path
 import numpy as np
 
 from harmony.errors import EventsError, HarmonyError
-from harmony.fileio import json_objects
+from harmony.fileio import csv_records, json_objects
 
 __all__ = [
     "IMPRESSION_COLUMNS",
@@ -144,20 +143,24 @@ def _raw_rows(path):
     """Yield (line, dict) from a CSV (header row) or JSONL file; errors name the file and line."""
     path = Path(path)
     try:
-        handle = open(path, encoding="utf-8", newline="")
+        handle = open(path, encoding="utf-8-sig", newline="")  # a BOM (spreadsheet exports) is dropped
     except OSError as exc:
         raise EventsError(f"{path}: cannot read the impression log: {exc.strerror or exc}") from None
-    with handle:
-        if path.suffix.lower() in (".jsonl", ".ndjson"):
-            for line, obj, problem in json_objects(handle):
-                yield line, obj if problem is None else problem
-        else:
-            reader = csv.DictReader(handle)
-            missing = [c for c in IMPRESSION_COLUMNS if c not in (reader.fieldnames or ())]
-            if missing:
-                raise EventsError(f"{path}:1: missing column(s) {', '.join(missing)} (need {','.join(IMPRESSION_COLUMNS)})")
-            for row in reader:
-                yield reader.line_num, row
+    try:
+        with handle:
+            if path.suffix.lower() in (".jsonl", ".ndjson"):
+                for line, obj, problem in json_objects(handle):
+                    yield line, obj if problem is None else problem
+            else:
+                header, records = csv_records(handle)
+                missing = [c for c in IMPRESSION_COLUMNS if c not in header]
+                if missing:
+                    raise EventsError(f"{path}:1: missing column(s) {', '.join(missing)} "
+                                      f"(need {','.join(IMPRESSION_COLUMNS)})")
+                for line, row, problem in records:
+                    yield line, row if problem is None else problem
+    except UnicodeDecodeError:
+        raise EventsError(f"{path}: not UTF-8 text (an impression log is CSV or JSON Lines)") from None
 
 
 def _parse_row(obj):

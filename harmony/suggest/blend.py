@@ -107,56 +107,63 @@ def _candidate_rows(path):
     tuples, the fields of :class:`Candidate` (see :func:`read_candidates`)."""
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8")
+        text = path.read_text(encoding="utf-8-sig")  # a BOM (spreadsheet exports) is dropped
     except (OSError, UnicodeDecodeError) as exc:
         raise HarmonyError(f"{path}: cannot read the candidate list: {getattr(exc, 'strerror', None) or exc}") from None
     problems = []
     if path.suffix.lower() in (".jsonl", ".ndjson"):
         fields = _jsonl_fields(path, text, problems)
     else:
-        fields = _csv_fields(path, text)
+        fields = _csv_fields(path, text, problems)
     out, seen, categories = [], {}, {}
     for line, product, partner, score_text, category in fields:
         bad = "product" if not product else "partner" if not partner else "score" if not score_text else None
         if bad:
-            problems.append(f"{path}:{line}: {bad}: missing")
+            problems.append((line, f"{bad}: missing"))
             continue
         try:
             score = float(score_text)
         except ValueError:
             score = math.nan
         if not math.isfinite(score):
-            problems.append(f"{path}:{line}: score: not a finite number: {score_text!r}")
+            problems.append((line, f"score: not a finite number: {score_text!r}"))
             continue
         first = seen.setdefault((product, partner), line)
         if first != line:
-            problems.append(f"{path}:{line}: partner: '{partner}' is given twice for '{product}' (line {first})")
+            problems.append((line, f"partner: '{partner}' is given twice for '{product}' (line {first})"))
             continue
         if category:
             category = categories.get(category) or categories.setdefault(category, normalise_category(category))
         out.append((product, partner, score, category, line))
     if problems:
+        problems.sort(key=lambda problem: problem[0])  # by line (stable: a line's problems in order)
+        shown = [f"{path}:{line}: {text}" for line, text in problems[:_SHOWN]]
         more = f" (and {len(problems) - _SHOWN} more)" if len(problems) > _SHOWN else ""
-        raise HarmonyError(f"{len(problems)} bad row(s): " + "; ".join(problems[:_SHOWN]) + more)
+        raise HarmonyError(f"{len(problems)} bad row(s): " + "; ".join(shown) + more)
     if not out:
         raise HarmonyError(f"{path}: the candidate list has no rows")
     return out
 
 
-def _csv_fields(path, text):
+def _csv_fields(path, text, problems):
     """``(line, product, partner, score, partner_category)`` of each non-blank CSV row, stripped
-    ("" for a missing field; of a column named twice, the last counts), as a list."""
-    reader = csv.reader(io.StringIO(text))
+    ("" for a missing field; of a column named twice, the last counts), as a list; a row with
+    more fields than the header (an unquoted comma shifts every later field) goes to ``problems``
+    as ``(line, reason)``."""
+    reader = csv.reader(io.StringIO(text, newline=""))
     try:
-        column = {name: i for i, name in enumerate(next(reader, None) or ())}
+        header = [name.strip() for name in next(reader, None) or ()]
+        column = {name: i for i, name in enumerate(header)}
         missing = [c for c in CANDIDATE_COLUMNS if c not in column]
         if missing:
             raise HarmonyError(f"{path}:1: missing column(s) {', '.join(missing)} (need {','.join(CANDIDATE_COLUMNS)})")
         at = (*(column[c] for c in CANDIDATE_COLUMNS), column.get("partner_category", -1))
         product, partner, score, category = at
-        longest, out = max(at), []
+        longest, width, out = max(at), len(header), []
         for row in reader:
-            if len(row) > longest:  # every column present
+            if len(row) > width:
+                problems.append((reader.line_num, f"{len(row)} fields, the header has {width}"))
+            elif len(row) > longest:  # every column present
                 out.append((reader.line_num, row[product].strip(), row[partner].strip(), row[score].strip(),
                             row[category].strip() if category >= 0 else ""))
             elif row:
@@ -167,11 +174,12 @@ def _csv_fields(path, text):
 
 
 def _jsonl_fields(path, text, problems):
-    """:func:`_csv_fields` of a JSONL candidate list; lines that are not JSON objects go to ``problems``."""
+    """:func:`_csv_fields` of a JSONL candidate list; lines that are not JSON objects go to
+    ``problems`` as ``(line, reason)``."""
     out = []
     for line, obj, problem in json_objects(text.splitlines()):
         if problem:
-            problems.append(f"{path}:{line}: {problem}")
+            problems.append((line, problem))
             continue
         out.append((line, *(str(obj[k] if obj.get(k) is not None else "").strip()
                             for k in (*CANDIDATE_COLUMNS, "partner_category"))))

@@ -223,6 +223,8 @@ def test_a_log_where_nothing_moves_is_refused():
         ("request,product,partner,position,clicked\na,P,x,1,yes\n", r"log.csv:2: clicked: must be 0 or 1"),
         ("request,product,partner,position,clicked\na,P,x,1,0\na,P,y,1,0\n", r"log.csv:3: position: request 'a' already has slot 1"),
         ("request,product,partner,position,clicked\n", r"no rows"),
+        # An unquoted comma in a field shifts the ones after it: refused, not read by name.
+        ("request,product,partner,position,clicked\na,P,Rug, round,1,0\n", r"log.csv:2: 6 fields, the header has 5"),
     ],
 )
 def test_bad_rows_are_named(tmp_path, text, message):
@@ -238,3 +240,13 @@ def test_jsonl_log_reads_like_csv(tmp_path):
                     '{"request": "a", "product": "P", "partner": "y", "position": "2", "clicked": false}\n')
     log = read_impressions(path)
     assert log.position.tolist() == [1, 2] and log.clicked.tolist() == [1, 0]
+
+
+def test_a_spreadsheet_export_with_a_byte_order_mark_reads_and_binary_is_one_line(tmp_path):
+    # Spreadsheet programs save "CSV UTF-8" with a byte order mark (U+FEFF) before the header.
+    path = tmp_path / "log.csv"
+    path.write_text("\ufeffrequest,product,partner,position,clicked\na,P,x,1,1\n", encoding="utf-8")
+    assert read_impressions(path).clicked.tolist() == [1]
+    path.write_bytes(b"request,product\n\xff\xfe\x00junk\n")
+    with pytest.raises(EventsError, match=r"log.csv: not UTF-8 text"):
+        read_impressions(path)

@@ -166,7 +166,8 @@ def test_blends_of_several_weights_share_their_ranks_and_keep_their_numbers():
 
 def _dict_reader_rows(text):
     # Reference: the standard library's csv.DictReader (blank lines skipped, short rows padded with
-    # None, of a column named twice the last one kept), with the line each row ends on.
+    # None, of a column named twice the last one kept, the fields of a long row beyond the header
+    # under the key None), with the line each row ends on.
     import csv
     import io
 
@@ -181,14 +182,16 @@ def test_candidate_csv_reads_as_the_standard_dict_reader(tmp_path):
             '0.25,A,C," Dining\tChair ",y\n'
             '"0.75",A,"D\nE",lamp\n'  # a quoted field over two lines
             '0.5,B\n'  # short: no partner
-            '1,B,A,,,extra\n'
+            '1,B,A,,,extra\n'  # one field more than the header: refused, as a shifted row
             '2,A,C\n')  # the pair of line 4 again
     path = tmp_path / "c.csv"
     path.write_text(text)
     want = []
     for line, row in _dict_reader_rows(text):
         fields = {k: (row.get(k) or "").strip() for k in ("product", "partner", "score")}
-        if not fields["partner"]:
+        if None in row:
+            want.append(f"{path}:{line}: {len(row) - 1 + len(row[None])} fields, the header has {len(row) - 1}")
+        elif not fields["partner"]:
             want.append(f"{path}:{line}: partner: missing")
         elif line == 2:
             want.append(f"{path}:{line}: score: not a finite number: {fields['score']!r}")
@@ -196,14 +199,14 @@ def test_candidate_csv_reads_as_the_standard_dict_reader(tmp_path):
     with pytest.raises(HarmonyError) as info:
         read_candidates(path)
     assert str(info.value) == f"{len(want)} bad row(s): " + "; ".join(want)
-    good = "".join(line for i, line in enumerate(text.splitlines(keepends=True)) if i not in (1, 6, 8))
+    good = "".join(line for i, line in enumerate(text.splitlines(keepends=True)) if i not in (1, 6, 7, 8))
     path.write_text(good)
     got = read_candidates(path)
     rows = _dict_reader_rows(good)
     assert [c.line for c in got] == [line for line, _ in rows]
     assert [(c.product, c.partner, c.score) for c in got] == [
         (r["product"].strip(), r["partner"].strip(), float(r["score"])) for _, r in rows]
-    assert [c.partner_category for c in got] == ["dining chair", "lamp", ""]
+    assert [c.partner_category for c in got] == ["dining chair", "lamp"]
 
 
 def test_candidate_csv_column_named_twice_keeps_the_last(tmp_path):
