@@ -11,44 +11,32 @@ __all__ = ["clicks_command", "read_feed_order"]
 
 
 def read_feed_order(path):
-    """``{(product, partner): (rank, partner_category)}`` from a feed file (JSONL or CSV with
-    product, partner, rank and optionally partner_category); only rows of the ``partner``
-    relation count when the feed has a ``relation`` column.
+    """``{(product, partner): (rank, partner_category)}`` from a feed file (JSONL, CSV or Parquet,
+    as ``harmony feed`` writes them, or any such file with product, partner, rank and optionally
+    partner_category); only rows of the ``partner`` relation count when the feed has a
+    ``relation`` column.
 
     Raises
     ------
     HarmonyError
         A file that cannot be read, or a row without a whole-number rank (named by line).
     """
-    import csv
-    from pathlib import Path
-
     from harmony.errors import HarmonyError
+    from harmony.report.inputs import feed_records
 
-    path = Path(path)
     order = {}
-    try:
-        with open(path, encoding="utf-8", newline="") as handle:
-            if path.suffix.lower() == ".csv":
-                rows = ((reader.line_num, row) for reader in [csv.DictReader(handle)] for row in reader)
-            else:
-                rows = ((n, line) for n, line in enumerate(handle, start=1) if line.strip())
-            for line, row in rows:
-                if isinstance(row, str):
-                    try:
-                        row = json.loads(row)
-                    except json.JSONDecodeError as exc:
-                        raise HarmonyError(f"{path}:{line}: not JSON: {exc.msg}") from None
-                if row.get("relation") not in (None, "", "partner"):
-                    continue
-                try:
-                    rank = int(row["rank"])
-                    key = (str(row["product"]), str(row["partner"]))
-                except (KeyError, TypeError, ValueError):
-                    raise HarmonyError(f"{path}:{line}: needs product, partner and a whole-number rank") from None
-                order.setdefault(key, (rank, str(row.get("partner_category") or "")))
-    except OSError as exc:
-        raise HarmonyError(f"{path}: cannot read the feed: {exc.strerror or exc}") from None
+    for where, row in feed_records(path):
+        if row.get("relation") not in (None, "", "partner"):
+            continue
+        product, partner = row.get("product"), row.get("partner")
+        try:
+            rank = int(row["rank"])
+            if product in (None, "") or partner in (None, ""):
+                raise ValueError
+        except (KeyError, TypeError, ValueError):
+            raise HarmonyError(f"{where}: needs product, partner and a whole-number rank") from None
+        key = (str(product), str(partner))
+        order.setdefault(key, (rank, str(row.get("partner_category") or "")))
     if not order:
         raise HarmonyError(f"{path}: the feed has no rows")
     return order
@@ -95,7 +83,7 @@ def _print(report, top):
               help="Impression log: CSV or JSONL with request, product, partner, position (1 = first slot), clicked (0/1).")
 @click.option("--db", default=None, type=click.Path(dir_okay=False), help="Palette store, for the photos of the page.")
 @click.option("--compare-feed", "compare", multiple=True, type=click.Path(dir_okay=False),
-              help="A feed (JSONL or CSV with product, partner, rank) whose order to estimate from the log; repeatable.")
+              help="A feed (JSONL, CSV or Parquet with product, partner, rank) whose order to estimate from the log; repeatable.")
 @click.option("--min-impressions", default=20, show_default=True, type=click.IntRange(min=1),
               help="Suggestions with fewer impressions are not rated.")
 @click.option("--max-weight", default=10.0, show_default=True, type=click.FloatRange(min=1.0),

@@ -2,16 +2,15 @@
 JSON of ``harmony evaluate --json``.
 """
 
-import csv
 import io
 import json
 import math
 from pathlib import Path
 
 from harmony.errors import HarmonyError
-from harmony.fileio import json_objects
+from harmony.fileio import csv_records, json_objects
 
-__all__ = ["FEED_KEYS", "read_feed", "read_evaluation"]
+__all__ = ["FEED_KEYS", "feed_records", "read_feed", "read_evaluation"]
 
 #: Keys every feed row must carry (the feed format of ``harmony feed``); ``pinned`` is optional
 #: (feeds written before curation existed lack it).
@@ -29,9 +28,11 @@ def _jsonl_records(path, text):
 
 
 def _csv_records(path, text):
-    reader = csv.DictReader(io.StringIO(text, newline=""))
-    for row in reader:
-        yield f"{path}:{reader.line_num}", row
+    _, records = csv_records(io.StringIO(text, newline=""))
+    for n, row, problem in records:
+        if problem:
+            raise HarmonyError(f"{path}:{n}: {problem}")
+        yield f"{path}:{n}", row
 
 
 def _parquet_records(path):
@@ -39,12 +40,41 @@ def _parquet_records(path):
         import pyarrow.parquet as pq
     except ImportError:
         raise HarmonyError("reading a Parquet feed needs pyarrow: pip install 'harmony[parquet]'") from None
+    n = 0
     try:
-        table = pq.read_table(path)
+        for batch in pq.ParquetFile(path).iter_batches():  # a row group at a time, not the whole table
+            for row in batch.to_pylist():
+                n += 1
+                yield f"{path}: row {n}", row
     except (OSError, ValueError) as exc:
-        raise HarmonyError(f"{path}: not a readable Parquet feed: {exc}") from None
-    for n, row in enumerate(table.to_pylist(), start=1):
-        yield f"{path}: row {n}", row
+        raise HarmonyError(f"{path}: not a readable Parquet feed (after row {n}): {exc}") from None
+
+
+def feed_records(path):
+    """``(where, row)`` of each row of a feed file, by suffix: JSON Lines (``.jsonl``,
+    ``.ndjson``), CSV with a header (``.csv``) or Parquet (``.parquet``), as ``harmony feed``
+    writes them; ``where`` names the file and line (``FILE: row N`` for Parquet) for the caller's
+    errors. Rows are dicts as read, not checked.
+
+    Raises
+    ------
+    HarmonyError
+        An unknown suffix, an unreadable file, or a line that is not a JSON object or a CSV row
+        of the header's width.
+    """
+    path = Path(path)
+    suffix = path.suffix.lower()
+    if suffix not in (".jsonl", ".ndjson", ".csv", ".parquet"):
+        raise HarmonyError(f"{path}: cannot tell the feed format from the suffix (use .jsonl, .csv or .parquet)")
+    if suffix == ".parquet":
+        return _parquet_records(path)
+    try:
+        text = path.read_text(encoding="utf-8-sig")
+    except OSError as exc:
+        raise HarmonyError(f"{path}: cannot read feed: {exc.strerror or exc}") from None
+    except UnicodeDecodeError as exc:
+        raise HarmonyError(f"{path}: not UTF-8 text (byte {exc.start})") from None
+    return _csv_records(path, text) if suffix == ".csv" else _jsonl_records(path, text)
 
 
 def _pinned(value, where):
@@ -66,22 +96,8 @@ def read_feed(path):
         ``FILE:LINE: reason`` (``FILE: row N`` for Parquet) for a row that lacks a key or whose
         score or rank is not a number; an unreadable file or unknown suffix.
     """
-    path = Path(path)
-    suffix = path.suffix.lower()
-    if suffix not in (".jsonl", ".ndjson", ".csv", ".parquet"):
-        raise HarmonyError(f"{path}: cannot tell the feed format from the suffix (use .jsonl, .csv or .parquet)")
-    if suffix == ".parquet":
-        records = _parquet_records(path)
-    else:
-        try:
-            text = path.read_text(encoding="utf-8-sig")
-        except OSError as exc:
-            raise HarmonyError(f"{path}: cannot read feed: {exc.strerror or exc}") from None
-        except UnicodeDecodeError as exc:
-            raise HarmonyError(f"{path}: not UTF-8 text (byte {exc.start})") from None
-        records = _csv_records(path, text) if suffix == ".csv" else _jsonl_records(path, text)
     rows = []
-    for where, row in records:
+    for where, row in feed_records(path):
         missing = [k for k in FEED_KEYS if k not in row or row[k] is None]
         if missing:
             raise HarmonyError(f"{where}: feed row lacks key {missing[0]!r}")

@@ -56,6 +56,38 @@ def test_clicks_command_prints_the_curve_and_writes_the_page(tmp_path):
     assert data["examination"][0]["examination"] == 1.0 and len(data["suggestions"]) == 6
 
 
+def test_compare_feed_reads_every_feed_format_alike(tmp_path):
+    # The same order as JSON Lines, CSV (with the reason's comma quoted, RFC 4180) and Parquet
+    # gives the same estimate; a CSV row with a field too many is named, not read by name.
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    rng = np.random.default_rng(5)
+    lines = ["request,product,partner,position,clicked"]
+    for r in range(300):
+        for k, q in enumerate(rng.choice(4, 2, replace=False)):
+            lines.append(f"r{r},P,X{q},{k + 1},{int(rng.random() < 0.3)}")
+    log = tmp_path / "log.csv"
+    log.write_text("\n".join(lines) + "\n")
+    rows = [{"product": "P", "partner": f"X{q}", "rank": 4 - q, "reason": "warm, calm"} for q in range(4)]
+    (tmp_path / "f.jsonl").write_text("".join(json.dumps(r) + "\n" for r in rows))
+    (tmp_path / "f.csv").write_text("product,partner,rank,reason\n"
+                                    + "".join(f'P,X{q},{4 - q},"warm, calm"\n' for q in range(4)))
+    pq.write_table(pa.Table.from_pylist(rows), tmp_path / "f.parquet")
+    got = []
+    for name in ("f.jsonl", "f.csv", "f.parquet"):
+        res = run("clicks", "--impressions", log, "--compare-feed", tmp_path / name, "--resamples", 5, "--json")
+        assert res.exit_code == 0, res.output
+        orders = json.loads(res.output)["orders"]
+        assert [o.pop("name") for o in orders] == [name]
+        got.append(orders)
+    assert got[0] and got[0] == got[1] == got[2]
+    (tmp_path / "g.csv").write_text("product,partner,rank,reason\nP,X0,1,warm, calm\n")
+    res = run("clicks", "--impressions", log, "--compare-feed", tmp_path / "g.csv")
+    assert res.exit_code != 0 and "g.csv:2: 5 fields, the header has 4" in res.output
+    assert "Traceback" not in res.output
+
+
 def test_clicks_bad_row_is_one_line(tmp_path):
     log = tmp_path / "log.csv"
     log.write_text("request,product,partner,position,clicked\nr1,P,X,0,1\n")

@@ -311,6 +311,19 @@ def test_read_feed_errors(tmp_path, text, message):
         read_feed(path)
 
 
+def test_read_feed_csv_refuses_a_shifted_row_and_parquet_is_named_when_broken(tmp_path):
+    # A reason with an unquoted comma (RFC 4180 needs it quoted) shifts the fields after it.
+    header = "product,category,partner,partner_category,rank,score,reason,pinned\n"
+    path = tmp_path / "f.csv"
+    path.write_text(header + 'a,sofa,b,rug,1,0.5,"warm, calm",false\n' + "a,sofa,c,rug,2,0.4,warm, calm,false\n")
+    with pytest.raises(HarmonyError, match=r"f.csv:3: 9 fields, the header has 8"):
+        read_feed(path)
+    broken = tmp_path / "f.parquet"
+    broken.write_bytes(b"PAR1 this is not parquet")
+    with pytest.raises(HarmonyError, match=r"f.parquet: not a readable Parquet feed"):
+        read_feed(broken)
+
+
 def test_read_feed_missing_file(tmp_path):
     with pytest.raises(HarmonyError, match="nope.jsonl: cannot read feed"):
         read_feed(tmp_path / "nope.jsonl")
