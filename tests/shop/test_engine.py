@@ -497,7 +497,7 @@ def test_dask_without_scheduler_starts_its_own_local_cluster(tmp_path):
     # processes started and stopped by the engine itself. Same palettes as the local engine.
     pytest.importorskip("distributed")
     csv = _studio_shop(tmp_path, n=4)
-    local = run_extraction(csv, tmp_path / "local.db", workers=1, chunk_size=2, progress=False)
+    run_extraction(csv, tmp_path / "local.db", workers=1, chunk_size=2, progress=False)
     dask = run_extraction(csv, tmp_path / "dask.db", engine="dask", workers=2, chunk_size=2, progress=False)
     assert (dask.engine, dask.new, dask.failed) == ("dask", 4, 0)
     with Store(tmp_path / "local.db") as a, Store(tmp_path / "dask.db") as b:
