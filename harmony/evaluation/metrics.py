@@ -5,9 +5,9 @@ array operations); :func:`auc`, :func:`ndcg_at_k` and :func:`hit_at_k` are the s
 """
 
 import math
-from dataclasses import dataclass
-
 import numpy as np
+
+from harmony.suggest.ranks import tie_groups
 
 __all__ = ["CUTOFF", "auc", "ndcg_at_k", "hit_at_k", "metric_table", "ideal_dcgs", "auc_table"]
 
@@ -18,51 +18,14 @@ CUTOFF = 10
 # --------------------------------------------------------------------------------------------
 
 
-@dataclass(frozen=True)
-class _Ties:
-    """Lists laid end to end, each sorted by descending score (ties keep their input order), and
-    the runs of equal scores (*tie groups*) in that order."""
-
-    sizes: np.ndarray  # items per list
-    owner: np.ndarray  # list of each item (the same before and after sorting: lists stay in place)
-    order: np.ndarray  # the sorting permutation of all items
-    starts: np.ndarray  # index of each group's first item, in sorted order
-    counts: np.ndarray  # items per group
-    group_list: np.ndarray  # list of each group
-    local_start: np.ndarray  # position of each group's first item within its list
-    first_group: np.ndarray  # index of each list's first group (len(sizes) + 1 entries)
-
-    @property
-    def local_end(self):
-        return self.local_start + self.counts
-
-
-def _ties(s, sizes):
-    sizes = np.asarray(sizes, dtype=np.int64)
-    n_lists = sizes.size
-    owner = np.repeat(np.arange(n_lists), sizes)
-    order = np.lexsort((-s, owner))  # stable: as argsort(-s, kind="stable") list by list
-    sorted_s = s[order]
-    new = np.ones(s.size, dtype=bool)
-    new[1:] = (sorted_s[1:] != sorted_s[:-1]) | (owner[1:] != owner[:-1])
-    starts = np.flatnonzero(new)
-    counts = np.diff(np.append(starts, s.size))
-    group_list = owner[starts]
-    list_start = np.cumsum(sizes) - sizes
-    first_group = np.searchsorted(group_list, np.arange(n_lists + 1))
-    return _Ties(sizes, owner, order, starts, counts, group_list, starts - list_start[group_list], first_group)
-
-
 def _aucs(t, pos):
     """Mann-Whitney U over mid-ranks / (n_pos * n_neg) per list; ``pos`` in input order."""
     pos = pos[t.order]
     n_lists = t.sizes.size
     n_pos = np.bincount(t.owner[pos], minlength=n_lists)
     n_neg = t.sizes - n_pos
-    # A group at descending positions [a, b) of a list of n holds ascending ranks n - b + 1 .. n - a:
-    # its mid-rank (the "average" rank of scipy.stats.rankdata) is a half-integer, so the sums are exact.
-    mid = (2 * t.sizes[t.group_list] - 2 * t.local_start - t.counts + 1) / 2.0
-    rank = np.repeat(mid, t.counts)
+    # Mid-ranks (the "average" rank of scipy.stats.rankdata) are half-integers: the sums are exact.
+    rank = np.repeat(t.mid_rank, t.counts)
     u = np.bincount(t.owner[pos], weights=rank[pos], minlength=n_lists) - n_pos * (n_pos + 1) / 2.0
     out = np.full(n_lists, math.nan)
     ok = (n_pos > 0) & (n_neg > 0)
@@ -154,7 +117,7 @@ def metric_table(scores, gains, sizes, k=CUTOFF, ideal=None):
     s, g, sizes = _as_lists(scores, gains, sizes, "gains")
     _check_gains(g)
     _check_cutoff(k)
-    t = _ties(s, sizes)
+    t = tie_groups(s, sizes)
     pos = g > 0
     return np.stack([_aucs(t, pos), _ndcgs(t, g, k, ideal), _hits(t, pos, k)], axis=1)
 
@@ -162,7 +125,7 @@ def metric_table(scores, gains, sizes, k=CUTOFF, ideal=None):
 def auc_table(scores, labels, sizes):
     """:func:`auc` of many lists at once (laid end to end as in :func:`metric_table`): shape (len(sizes),)."""
     s, y, sizes = _as_lists(scores, labels, sizes, "labels")
-    return _aucs(_ties(s, sizes), y > 0)
+    return _aucs(tie_groups(s, sizes), y > 0)
 
 
 def _as_lists(scores, values, sizes, name):
@@ -218,7 +181,7 @@ def auc(scores, labels):
     The Mann-Whitney U statistic over mid-ranks divided by n_pos * n_neg (Hanley & McNeil 1982).
     """
     s, y = _as_list(scores, labels, "labels")
-    return float(_aucs(_ties(s, [s.size]), y > 0)[0])
+    return float(_aucs(tie_groups(s, [s.size]), y > 0)[0])
 
 
 def ndcg_at_k(scores, gains, k=CUTOFF):
@@ -254,7 +217,7 @@ def ndcg_at_k(scores, gains, k=CUTOFF):
     s, g = _as_list(scores, gains, "gains")
     _check_gains(g)
     _check_cutoff(k)
-    return float(_ndcgs(_ties(s, [s.size]), g, k)[0])
+    return float(_ndcgs(tie_groups(s, [s.size]), g, k)[0])
 
 
 def hit_at_k(scores, labels, k=CUTOFF):
@@ -275,4 +238,4 @@ def hit_at_k(scores, labels, k=CUTOFF):
     """
     s, y = _as_list(scores, labels, "labels")
     _check_cutoff(k)
-    return float(_hits(_ties(s, [s.size]), y > 0, k)[0])
+    return float(_hits(tie_groups(s, [s.size]), y > 0, k)[0])

@@ -38,6 +38,7 @@ import numpy as np
 from harmony.errors import HarmonyError
 from harmony.fileio import json_objects, spreadsheet_safe_row, write_text_whole
 from harmony.shop.catalogue import normalise_category
+from harmony.suggest.ranks import mid_ranks
 from harmony.suggest.rows import PartnerRow
 
 __all__ = [
@@ -205,24 +206,8 @@ def rank_normalise(scores, sizes=None):
     n = np.repeat(sizes, sizes).astype(float)
     out = np.ones(s.size)
     many = n > 1
-    out[many] = (_mid_ranks(s, sizes)[many] - 1.0) / (n[many] - 1.0)
+    out[many] = (mid_ranks(s, sizes)[many] - 1.0) / (n[many] - 1.0)
     return out
-
-
-def _mid_ranks(s, sizes):
-    """Ranks 1..n ascending within each list, ties sharing the mean of their ranks: the "average"
-    ranks of ``scipy.stats.rankdata``, to the last bit (half-integers), without its per-call cost."""
-    owner = np.repeat(np.arange(sizes.size), sizes)
-    order = np.lexsort((s, owner))  # stable, list by list
-    sorted_s = s[order]
-    new = np.ones(s.size, dtype=bool)
-    new[1:] = (sorted_s[1:] != sorted_s[:-1]) | (owner[1:] != owner[:-1])
-    starts = np.flatnonzero(new)
-    counts = np.diff(np.append(starts, s.size))
-    local = starts - (np.cumsum(sizes) - sizes)[owner[starts]]
-    ranks = np.empty(s.size)
-    ranks[order] = np.repeat(local + (counts + 1) / 2.0, counts)
-    return ranks
 
 
 def blend_group(harmony, other, weight):
