@@ -35,15 +35,20 @@ def test_feed_blend_and_similar_rows(db, tmp_path):
     assert "R1" not in {r["partner"] for r in similar}
 
 
+def _click_log(path, rng, requests, theta, alpha):
+    """An impression log drawn from the position-based model: each request shows len(theta) of
+    the len(alpha) suggestions in random order, slot k examined with probability theta[k]."""
+    lines = ["request,product,partner,position,clicked"]
+    for r in range(requests):
+        for k, q in enumerate(rng.choice(len(alpha), len(theta), replace=False)):
+            lines.append(f"r{r},P,X{q},{k + 1},{int(rng.random() < theta[k] * alpha[q])}")
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
 def test_clicks_command_prints_the_curve_and_writes_the_page(tmp_path):
     rng = np.random.default_rng(4)
-    theta, alpha = [1.0, 0.5, 0.33], rng.uniform(0.1, 0.5, 6)
-    lines = ["request,product,partner,position,clicked"]
-    for r in range(600):
-        for k, q in enumerate(rng.choice(6, 3, replace=False)):
-            lines.append(f"r{r},P,X{q},{k + 1},{int(rng.random() < theta[k] * alpha[q])}")
-    log = tmp_path / "log.csv"
-    log.write_text("\n".join(lines) + "\n")
+    log = _click_log(tmp_path / "log.csv", rng, 600, [1.0, 0.5, 0.33], rng.uniform(0.1, 0.5, 6))
     feed = tmp_path / "other.jsonl"
     feed.write_text("".join(json.dumps({"product": "P", "partner": f"X{q}", "rank": q + 1}) + "\n" for q in range(6)))
     page = tmp_path / "clicks.html"
@@ -62,13 +67,7 @@ def test_compare_feed_reads_every_feed_format_alike(tmp_path):
     import pyarrow as pa
     import pyarrow.parquet as pq
 
-    rng = np.random.default_rng(5)
-    lines = ["request,product,partner,position,clicked"]
-    for r in range(300):
-        for k, q in enumerate(rng.choice(4, 2, replace=False)):
-            lines.append(f"r{r},P,X{q},{k + 1},{int(rng.random() < 0.3)}")
-    log = tmp_path / "log.csv"
-    log.write_text("\n".join(lines) + "\n")
+    log = _click_log(tmp_path / "log.csv", np.random.default_rng(5), 300, [1.0, 0.6], [0.3] * 4)
     rows = [{"product": "P", "partner": f"X{q}", "rank": 4 - q, "reason": "warm, calm"} for q in range(4)]
     (tmp_path / "f.jsonl").write_text("".join(json.dumps(r) + "\n" for r in rows))
     (tmp_path / "f.csv").write_text("product,partner,rank,reason\n"
