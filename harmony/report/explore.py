@@ -7,6 +7,7 @@ so nothing from a catalogue is ever parsed as HTML).
 
 import json
 from dataclasses import dataclass
+from operator import itemgetter
 from pathlib import Path
 
 from harmony.suggest.provenance import file_sha256
@@ -52,7 +53,7 @@ def explorer_json(views, feed_rows, flagged):
     reasons = {f.product_id: [f"{kind}: {detail}" if detail else kind for kind, detail in f.reasons]
                for f in flagged}
     partners = {}
-    for row in sorted(feed_rows, key=lambda r: (r["product"], r["partner_category"], r["rank"])):
+    for row in sorted(feed_rows, key=itemgetter("product", "partner_category", "rank")):
         partner = views.get(row["partner"])
         partners.setdefault(row["product"], {}).setdefault(row["partner_category"], []).append(
             [row["partner"], partner.title if partner else "", round(float(row["score"]), 3), int(row["rank"]),

@@ -9,6 +9,7 @@ CSS and the one script (the product finder) are inline: the file needs no networ
 """
 
 import base64
+import heapq
 import io
 import json
 import math
@@ -30,6 +31,7 @@ from harmony.report.safety import (
     required_difference,
     stands_on_floor,
     surface_lrv,
+    surface_lrvs,
 )
 from harmony.report.explore import curation_changes, explorer_json, group_flags, made_by, plural
 from harmony.report.inputs import FEED_KEYS, read_feed
@@ -252,14 +254,28 @@ def thumbnail_data_uri(path, size=_THUMB_PX):
 # ---------------------------------------------------------------------------------------- gather
 
 
-def _product_view(product, palette, image_path, thumbnails=True):
+def _palette_colours(palettes):
+    """``{id: (colour codes, surface LRV)}`` of ``palettes`` (a dict by id), every colour of every
+    palette converted in one call each (per palette, the conversions cost more than the page)."""
+    ids = list(palettes)
+    if not ids:
+        return {}
+    sizes = [len(palettes[i].jab) for i in ids]
+    codes = colour.jab_to_hex(np.concatenate([palettes[i].jab for i in ids]))
+    lrvs = surface_lrvs([palettes[i] for i in ids])
+    ends = np.cumsum(sizes).tolist()
+    return {i: (codes[end - n: end], lrv) for i, n, end, lrv in zip(ids, sizes, ends, lrvs)}
+
+
+def _product_view(product, palette, image_path, thumbnails=True, known=None):
+    """``known``: the palette's (colour codes, surface LRV) from :func:`_palette_colours`."""
     strip = Markup("")
     colours = ()
     lrv = None
     if palette is not None:
-        strip = Markup(palette_strip_svg(palette, label=f"palette of {product.title}"))
-        colours = tuple((code, float(w)) for code, w in zip(palette.hex, palette.weights))
-        lrv = surface_lrv(palette)
+        codes, lrv = known if known is not None else (palette.hex, surface_lrv(palette))
+        strip = Markup(palette_strip_svg(palette, label=f"palette of {product.title}", codes=codes))
+        colours = tuple((code, float(w)) for code, w in zip(codes, palette.weights))
     flags = []
     if palette is None:
         flags.append("no palette")
@@ -314,29 +330,30 @@ def _wheel(rules, pal_a, pal_b, cat_a, cat_b, names):
 
 
 def _pick_suggestions(rows, limit):
-    """Best rank-1 feed rows, one per unordered product pair, varied over category pairs first."""
-    seen = set()
-    best = []
-    for row in sorted(rows, key=lambda r: (r["rank"], -r["score"], r["product"], r["partner"])):
-        key = frozenset((row["product"], row["partner"]))
-        if key in seen:
-            continue
-        seen.add(key)
-        best.append(row)
-    best.sort(key=lambda r: (-r["score"], r["product"], r["partner"]))
-    chosen, kinds = [], set()
-    for row in best:  # first pass: the best pair of each category pair
+    """The ``limit`` best feed rows by score, one per unordered product pair (the row of lower
+    rank, then higher score, speaks for the pair), the best pair of each category pair first;
+    in score order. One pass over the rows: a shop's feed has millions."""
+    rep = {}
+    for row in rows:
+        pair = frozenset((row["product"], row["partner"]))
+        key = (row["rank"], -row["score"], row["product"], row["partner"])
+        held = rep.get(pair)
+        if held is None or key < held[0]:
+            rep[pair] = (key, row)
+
+    def order(r):
+        return -r["score"], r["product"], r["partner"]
+
+    kinds = {}
+    for _, row in rep.values():
         kind = frozenset((str(row["category"]).casefold(), str(row["partner_category"]).casefold()))
-        if kind not in kinds:
-            kinds.add(kind)
-            chosen.append(row)
-    for row in best:
-        if len(chosen) >= limit:
-            break
-        if row not in chosen:
-            chosen.append(row)
-    chosen = chosen[:limit]
-    chosen.sort(key=lambda r: (-r["score"], r["product"], r["partner"]))
+        if kind not in kinds or order(row) < order(kinds[kind]):
+            kinds[kind] = row
+    chosen = sorted(kinds.values(), key=order)[:limit]
+    first = {id(r) for r in chosen}
+    best = heapq.nsmallest(limit, (row for _, row in rep.values()), key=order)
+    chosen += [r for r in best if id(r) not in first][: limit - len(chosen)]
+    chosen.sort(key=order)
     return chosen
 
 
@@ -592,8 +609,10 @@ def gather_report(
     palettes = dict(palettes)
     image_paths = dict(image_paths or {})
     views = {}
+    known = _palette_colours({str(p.id): palettes[str(p.id)] for p in products if str(p.id) in palettes})
     for p in products:
-        views[str(p.id)] = _product_view(p, palettes.get(str(p.id)), image_paths.get(str(p.id)), thumbnails)
+        pid = str(p.id)
+        views[pid] = _product_view(p, palettes.get(pid), image_paths.get(pid), thumbnails, known.get(pid))
 
     suggestions = []
     rows = list(feed_rows)

@@ -34,6 +34,7 @@ __all__ = [
     "ContrastCaution",
     "close_band",
     "surface_lrv",
+    "surface_lrvs",
     "required_difference",
     "contrast_caution",
     "is_floor_covering",
@@ -99,9 +100,18 @@ def surface_lrv(palette):
     -------
     float
     """
-    y = colour.lrv(palette.jab, space="jab")
-    w = np.asarray(palette.weights, dtype=float)
-    return float(np.clip(np.dot(w, y) / w.sum(), 0.0, 100.0))
+    return surface_lrvs([palette])[0]
+
+
+def surface_lrvs(palettes):
+    """:func:`surface_lrv` of each of ``palettes`` (a list), their colours converted in one call."""
+    sizes = [len(p.jab) for p in palettes]
+    y = np.split(colour.lrv(np.concatenate([p.jab for p in palettes]), space="jab"), np.cumsum(sizes)[:-1])
+    out = []
+    for palette, yi in zip(palettes, y):
+        w = np.asarray(palette.weights, dtype=float)
+        out.append(float(np.clip(np.dot(w, yi) / w.sum(), 0.0, 100.0)))
+    return out
 
 
 def required_difference(large_area=False, illuminance_lux=None):

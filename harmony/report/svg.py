@@ -61,7 +61,7 @@ def _num(x):
     return f"{float(x):.2f}".rstrip("0").rstrip(".")
 
 
-def palette_strip_svg(palette, width=240, height=24, label=None):
+def palette_strip_svg(palette, width=240, height=24, label=None, codes=None):
     """An SVG bar whose segments are the palette colours, each as wide as its weight.
 
     Parameters
@@ -71,6 +71,8 @@ def palette_strip_svg(palette, width=240, height=24, label=None):
         Size of the drawing in CSS pixels.
     label : str, optional
         Accessible name of the drawing (escaped); defaults to the colour codes and shares.
+    codes : list of str, optional
+        The palette's ``palette.hex``, when the caller has them already.
 
     Returns
     -------
@@ -81,7 +83,7 @@ def palette_strip_svg(palette, width=240, height=24, label=None):
         raise ValueError(f"width and height must be positive, got {width!r} x {height!r}")
     weights = np.asarray(palette.weights, dtype=float)
     edges = np.concatenate([[0.0], np.cumsum(weights) / weights.sum()]) * width
-    codes = palette.hex
+    codes = palette.hex if codes is None else codes
     parts = []
     for i, code in enumerate(codes):
         x0, x1 = edges[i], edges[i + 1]

@@ -685,3 +685,41 @@ def test_demo_needs_only_the_runtime_dependencies(small_shop, tmp_path):
                           capture_output=True, text=True, timeout=120)
     assert done.returncode == 0, done.stderr[-3000:]
     assert done.stdout.strip() == "True"
+
+
+def _pick_by_sorting(rows, limit):
+    # The selection written out as whole sorts (the definition the one-pass code must match):
+    # rows by (rank, -score, product, partner), the first of each unordered pair kept; those by
+    # (-score, product, partner); the first of each category pair, then the rest, cut at limit.
+    seen, best = set(), []
+    for row in sorted(rows, key=lambda r: (r["rank"], -r["score"], r["product"], r["partner"])):
+        key = frozenset((row["product"], row["partner"]))
+        if key not in seen:
+            seen.add(key)
+            best.append(row)
+    best.sort(key=lambda r: (-r["score"], r["product"], r["partner"]))
+    chosen, kinds = [], set()
+    for row in best:
+        kind = frozenset((row["category"].casefold(), row["partner_category"].casefold()))
+        if kind not in kinds:
+            kinds.add(kind)
+            chosen.append(row)
+    chosen += [r for r in best if not any(r is c for c in chosen)]
+    return sorted(chosen[:limit], key=lambda r: (-r["score"], r["product"], r["partner"]))
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_suggestions_picked_in_one_pass_match_the_sorted_definition(seed):
+    from harmony.report.page import _pick_suggestions
+
+    rng = np.random.default_rng(seed)
+    cats = ["sofa", "Rug", "lamp", "rug"]
+    products = [(f"P{i}", cats[i % 4]) for i in range(30)]
+    rows = []
+    for _ in range(400):
+        (a, ca), (b, cb) = (products[i] for i in rng.choice(30, 2, replace=False))
+        rows.append({"product": a, "category": ca, "partner": b, "partner_category": cb,
+                     "rank": int(rng.integers(1, 4)), "score": float(rng.integers(0, 8)) / 8})  # many ties
+    for limit in (1, 2, 3, 12, 500):
+        got = _pick_suggestions(rows, limit)
+        assert [id(r) for r in got] == [id(r) for r in _pick_by_sorting(rows, limit)]
