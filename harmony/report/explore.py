@@ -52,12 +52,10 @@ def explorer_json(views, feed_rows, flagged):
     """
     reasons = {f.product_id: [f"{kind}: {detail}" if detail else kind for kind, detail in f.reasons]
                for f in flagged}
-    partners = {}
+    partners = {}  # [partner id, score, rank, pinned 0/1]: the page finds the partner's title by its id
     for row in sorted(feed_rows, key=itemgetter("product", "partner_category", "rank")):
-        partner = views.get(row["partner"])
         partners.setdefault(row["product"], {}).setdefault(row["partner_category"], []).append(
-            [row["partner"], partner.title if partner else "", round(float(row["score"]), 3), int(row["rank"]),
-             bool(row.get("pinned", False))])
+            [row["partner"], round(float(row["score"]), 3), int(row["rank"]), int(bool(row.get("pinned", False)))])
     data = [
         {"id": v.id, "title": v.title, "category": v.category, "colours": [[h, round(w, 4)] for h, w in v.colours],
          "flags": reasons.get(v.id, []), "partners": partners.get(v.id, {})}

@@ -156,7 +156,7 @@ def test_finder_shows_one_product_from_the_address(url_shop, tmp_path):
     # The pinned rug is first among the rugs and marked.
     rug_rows = re.search(r"<h3>rug</h3>(.*?)</table>", card.group(1), re.S).group(1)
     first = re.search(r"<tr>(.*?)</tr>", rug_rows, re.S).group(1)
-    assert ">R2<" in first and "pinned" in first
+    assert ">R2<" in first and "pinned" in first and "Item R2" in first  # the title found by the id
     assert card.group(1).count('class="pstrip"') == 1
     # An unknown id in the address says so.
     done, _ = _run(browser, tmp_path / "profile", out.as_uri() + "#product=NOPE", "--dump-dom")
