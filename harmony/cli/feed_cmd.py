@@ -128,7 +128,8 @@ def feed(db, rules_path, top, targets, diversity, fmt, out, progress, blend, ble
             from harmony.suggest.lookalike import similar_rows
 
             if blend is not None:
-                rows = blend_from_store(store, rules, rows, read_candidates(blend), blend_weight, top)
+                rows = blend_from_store(store, rules, rows, read_candidates(blend), blend_weight, top,
+                                        targets=target_list, curation=curation)
             if similar:
                 rows = list(rows) + similar_rows(store, top=top, progress=progress)[0]
             # --- end issue 18 ---

@@ -88,6 +88,7 @@ class BlendRow(PartnerRow):
     candidate_score: float | None
     source: str
     relation: str = "partner"
+    pinned: bool = False
 
 
 def read_candidates(path):
@@ -128,6 +129,9 @@ def _candidate_rows(path):
             score = math.nan
         if not math.isfinite(score):
             problems.append((line, f"score: not a finite number: {score_text!r}"))
+            continue
+        if product == partner:
+            problems.append((line, f"partner: '{partner}' is the product itself"))
             continue
         first = seen.setdefault((product, partner), line)
         if first != line:
@@ -243,7 +247,8 @@ def blend_group(harmony, other, weight):
     return out
 
 
-def blend_feed(feed_rows, candidates, weight, top, extra=None, categories=None, excluded=()):
+def blend_feed(feed_rows, candidates, weight, top, extra=None, categories=None, excluded=(), targets=None,
+               curation=None):
     """Blend feed rows with a candidate list.
 
     Parameters
@@ -260,12 +265,21 @@ def blend_feed(feed_rows, candidates, weight, top, extra=None, categories=None, 
         Category of each store product (candidates' partners are grouped by it).
     excluded : set of str
         Store partners that must not appear (out of stock).
+    targets : collection of str, optional
+        The only partner categories to list (normalised), as the feed's ``--targets``.
+    curation : harmony.suggest.curation.Curation, optional
+        The stylist's file, applied to the blended rows as to the feed's: blocked category pairs
+        and partners left out, floors checked on harmony's score (a row harmony could not score
+        is kept), pinned partners (among ``feed_rows`` when the store can score them) placed at
+        their rank, and the number of partner categories cut.
 
     Returns
     -------
     list of BlendRow
         Sorted by product, partner category, rank.
     """
+    from harmony.suggest.curation import category_pair_allowed, curate, limit_partner_categories
+
     categories = dict(categories or {})
     extra = dict(extra or {})
     h_score, reason, own_cat = {}, {}, {}
@@ -284,24 +298,42 @@ def blend_feed(feed_rows, candidates, weight, top, extra=None, categories=None, 
             score, why = extra[(c.product, c.partner)]
             h_score.setdefault((c.product, cat), {})[c.partner] = float(score)
             reason[(c.product, c.partner)] = why
-    rows = []
+    pinned = {(r.product, r.partner) for r in feed_rows if getattr(r, "pinned", False)}
+    rows, run = [], []
     for key in sorted(set(h_score) | set(other)):
         product, cat = key
+        own = own_cat.get(product, categories.get(product, ""))
+        if targets is not None and cat not in targets:
+            continue
+        if curation is not None and not category_pair_allowed(curation, own, cat):
+            continue
         harmony, theirs = h_score.get(key, {}), other.get(key, {})
         mixed = blend_group(harmony, theirs, weight)
-        order = sorted(mixed, key=lambda pid: (-mixed[pid][0], pid))[: int(top)]
+        order = sorted(mixed, key=lambda pid: (-mixed[pid][0], pid))
+        group = []
         for rank, pid in enumerate(order, start=1):
             value, source = mixed[pid]
             why = reason.get((product, pid), "")
             if source == "not in store":
                 why = "not in the store: the candidate list's own score is kept"
-            rows.append(BlendRow(product, own_cat.get(product, categories.get(product, "")), pid, cat, rank,
-                                 float(value), why, harmony.get(pid), theirs.get(pid), source))
+            group.append(BlendRow(product, own, pid, cat, rank, float(value), why, harmony.get(pid),
+                                  theirs.get(pid), source, pinned=(product, pid) in pinned))
+        if curation is None:
+            rows.extend(group[: int(top)])
+            continue
+        if run and run[0].product != product:
+            rows.extend(limit_partner_categories(curation, run))
+            run = []
+        run.extend(curate(curation, product, cat, group, lambda _pid: None, int(top),
+                          floor_of=attrgetter("harmony_score")))
+    if run:
+        rows.extend(limit_partner_categories(curation, run))
     return rows
 
 
-def blend_from_store(store, rules, feed_rows, candidates, weight, top):
-    """:func:`blend_feed` with harmony's exact scores of every candidate pair the store can score."""
+def blend_from_store(store, rules, feed_rows, candidates, weight, top, targets=None, curation=None):
+    """:func:`blend_feed` with harmony's exact scores of every candidate pair the store can score;
+    ``targets`` are category names as given (normalised here)."""
     from harmony.rules.score import pair_scores
 
     products = {p.id: p for p in store.products()}
@@ -321,7 +353,10 @@ def blend_from_store(store, rules, feed_rows, candidates, weight, top):
             extra[(c.product, c.partner)] = (float(ps.score), ps.reason)
     categories = {pid: p.category_key for pid, p in products.items() if pid in palettes}
     excluded = {pid for pid, p in products.items() if not p.in_stock()}
-    return blend_feed(feed_rows, candidates, weight, top, extra=extra, categories=categories, excluded=excluded)
+    if targets is not None:
+        targets = {normalise_category(t) for t in targets}
+    return blend_feed(feed_rows, candidates, weight, top, extra=extra, categories=categories, excluded=excluded,
+                      targets=targets, curation=curation)
 
 
 @dataclass(frozen=True, eq=False)

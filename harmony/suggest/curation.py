@@ -338,7 +338,7 @@ def min_score_for(curation, cat_a, cat_b):
     return rule.min_score if rule is not None and rule.min_score is not None else curation.min_score
 
 
-def curate(curation, product, partner_category, rows, score_of, top):
+def curate(curation, product, partner_category, rows, score_of, top, floor_of=None):
     """One product's partner rows of one partner category, curated.
 
     Parameters
@@ -356,6 +356,9 @@ def curate(curation, product, partner_category, rows, score_of, top):
         (unknown, out of stock, no palette, or its category is not paired).
     top : int
         How many rows to return at most.
+    floor_of : callable (row) -> float or None, optional
+        The score a row's floor is checked on (default: its ``score``); None keeps the row (a
+        blended row harmony could not score).
 
     Returns
     -------
@@ -370,7 +373,8 @@ def curate(curation, product, partner_category, rows, score_of, top):
     for r in rows:
         if curation.block_of(product, r.partner, r.partner_category) is not None:
             continue
-        if r.score < min_score_for(curation, r.category, r.partner_category):
+        judged = r.score if floor_of is None else floor_of(r)
+        if judged is not None and judged < min_score_for(curation, r.category, r.partner_category):
             continue
         kept.append(r)
     pins = sorted(curation.pins_of(product), key=lambda p: (p.rank, p.line))

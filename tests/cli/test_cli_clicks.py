@@ -35,6 +35,40 @@ def test_feed_blend_and_similar_rows(db, tmp_path):
     assert "R1" not in {r["partner"] for r in similar}
 
 
+def test_feed_blend_keeps_the_targets_and_the_curation_file(db, tmp_path):
+    # The candidate list proposes what the stylist's file forbids; the blended feed must still
+    # obey it as the plain feed does (curation rules as the README's curation section states them).
+    cands = tmp_path / "cands.csv"
+    cands.write_text("product,partner,partner_category,score\n"
+                     "S0,R3,rug,9\nS0,R0,rug,8\nS0,R2,rug,7\nS0,R9,rug,6\nS0,L0,floor lamp,9\nS1,L1,floor lamp,5\n")
+    out = tmp_path / "t.jsonl"
+    res = run("feed", "--db", db, "--top", 3, "--blend", cands, "--targets", "Rug", "--out", out)
+    assert res.exit_code == 0, res.output
+    rows = [json.loads(line) for line in out.read_text().splitlines()]
+    assert rows and {r["partner_category"] for r in rows} == {"rug"}
+
+    cur = tmp_path / "cur.toml"
+    cur.write_text('format = 1\n\n[[pin]]\nproduct = "S0"\npartner = "R4"\nrank = 1\n\n'
+                   '[[block]]\nproduct = "S0"\npartner = "R3"\n\n'
+                   '[[category_pair]]\ncategories = ["sofa", "floor lamp"]\nblocked = true\n\n'
+                   '[[category_pair]]\ncategories = ["sofa", "rug"]\nmin_score = 0.6\n')
+    res = run("feed", "--db", db, "--top", 4, "--blend", cands, "--blend-weight", 1, "--curation", cur, "--out", out)
+    assert res.exit_code == 0, res.output
+    rows = [json.loads(line) for line in out.read_text().splitlines()]
+    s0 = [r for r in rows if r["product"] == "S0"]
+    assert s0[0]["partner"] == "R4" and s0[0]["rank"] == 1 and s0[0]["pinned"] is True
+    assert "R3" not in {r["partner"] for r in s0}  # blocked, though the list ranks it first
+    assert not [r for r in rows if r["category"] == "sofa" and r["partner_category"] == "floor lamp"]
+    floor = [r for r in rows if r["category"] == "sofa" and r["partner_category"] == "rug" and not r["pinned"]]
+    assert floor and all(r["harmony_score"] is None or r["harmony_score"] >= 0.6 for r in floor)
+    assert "R2" not in {r["partner"] for r in s0}  # proposed, but harmony scores it 0.58: under the floor
+    assert "R9" in {r["partner"] for r in s0}  # not in the store: harmony cannot judge it, so it stays
+
+    cands.write_text("product,partner,score\nS0,R0,1\nS0,S0,2\n")
+    res = run("feed", "--db", db, "--blend", cands, "--out", out)
+    assert res.exit_code == 2 and "cands.csv:3: partner: 'S0' is the product itself" in res.output
+
+
 def _click_log(path, rng, requests, theta, alpha):
     """An impression log drawn from the position-based model: each request shows len(theta) of
     the len(alpha) suggestions in random order, slot k examined with probability theta[k]."""
