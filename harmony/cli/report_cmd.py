@@ -55,6 +55,7 @@ def report(db_path, feed_path, evaluation_path, curation_path, bundle_paths, rul
     bundles = [read_bundles(p) for p in bundle_paths]
     with Store(db_path) as store:
         curation = load_curation_for(curation_path, store)
+        feed_rows = _rows_of_store(feed_rows, {str(p.id) for p in store.products()}, feed_path, db_path)
         if title is None:
             where = store.catalogue_path
             title = f"harmony report: {Path(where).parent.name}" if where else "harmony report"
@@ -68,3 +69,26 @@ def report(db_path, feed_path, evaluation_path, curation_path, bundle_paths, rul
         f"wrote {out} ({len(data.products)} products, {len(data.suggestions)} pairs, "
         f"{len(data.bundles)} sets, {len(data.flagged)} flagged, {len(data.cautions) + sum(f.caution is not None for f in data.floors)} contrast cautions)"
     )
+
+
+def _rows_of_store(rows, known, feed_path, db_path):
+    """The feed rows whose products the store has. A blended feed's rows of partners the store
+    does not have (``source`` "not in store") are left out with one warning; any other unknown
+    id means the feed is not from this store, and is an error naming the row."""
+    from harmony.errors import HarmonyError
+
+    from .feed_cmd import _warn
+
+    kept, foreign = [], 0
+    for n, row in enumerate(rows, start=1):
+        missing = next((row[k] for k in ("product", "partner") if row[k] not in known), None)
+        if missing is None:
+            kept.append(row)
+        elif row.get("source") == "not in store":
+            foreign += 1
+        else:
+            raise HarmonyError(f"{feed_path}: row {n}: product {missing!r} is not in {db_path} (is the feed from this store?)")
+    if foreign:
+        _warn(f"{feed_path}: {foreign} blended row(s) name partners the store does not have ('not in store'); "
+              "the report leaves them out")
+    return kept

@@ -69,6 +69,21 @@ def test_feed_blend_keeps_the_targets_and_the_curation_file(db, tmp_path):
     assert res.exit_code == 2 and "cands.csv:3: partner: 'S0' is the product itself" in res.output
 
 
+def test_report_reads_a_blended_feed_and_names_a_foreign_row(db, tmp_path):
+    cands = tmp_path / "cands.csv"
+    cands.write_text("product,partner,partner_category,score\nS0,R3,rug,5\nS0,R9,rug,9\n")  # R9: not in the store
+    feed = tmp_path / "blended.jsonl"
+    assert run("feed", "--db", db, "--blend", cands, "--out", feed).exit_code == 0
+    res = CliRunner().invoke(main, ["report", "--db", str(db), "--feed", str(feed), "--out", str(tmp_path / "r.html")])
+    assert res.exit_code == 0, res.output
+    assert "blended.jsonl: 1 blended row(s) name partners the store does not have" in res.stderr
+    rows = [json.loads(line) for line in feed.read_text().splitlines()]
+    rows[0]["partner"], rows[0]["source"] = "X404", "both"  # an id from another store
+    feed.write_text("".join(json.dumps(r) + "\n" for r in rows))
+    res = run("report", "--db", db, "--feed", feed, "--out", tmp_path / "r.html")
+    assert res.exit_code == 2 and "blended.jsonl: row 1: product 'X404' is not in" in res.output
+
+
 def _click_log(path, rng, requests, theta, alpha):
     """An impression log drawn from the position-based model: each request shows len(theta) of
     the len(alpha) suggestions in random order, slot k examined with probability theta[k]."""
