@@ -40,9 +40,7 @@ import fcntl
 import hashlib
 import math
 import os
-import signal
 import sys
-import threading
 import time
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from concurrent.futures.process import BrokenProcessPool
@@ -54,6 +52,7 @@ from harmony.errors import CatalogueError, HarmonyError, ImageError, StoreError
 from harmony.shop.catalogue import Catalogue, read_catalogue
 from harmony.shop.fetch import Known, fetch_images, is_url
 from harmony.shop.store import FileHash, Store
+from harmony.shop.workers import kill_workers, start_worker
 
 __all__ = [
     "ExtractionSummary",
@@ -483,7 +482,7 @@ def _run(chunks, key, settings, extractor, engine, workers, scheduler):
 def _run_local(chunks, settings, extractor, workers):
     pool = ProcessPoolExecutor(
         max_workers=min(workers, len(chunks)),
-        initializer=_worker_start,
+        initializer=start_worker,
         initargs=(os.getpid(), tuple(sorted(_HELD_LOCK_FDS))),
     )
     try:
@@ -498,57 +497,10 @@ def _run_local(chunks, settings, extractor, workers):
     except BaseException:
         # Interrupted (SIGTERM, Ctrl-C, an error, the caller stopped): the finished chunks are
         # stored; the ones running are dropped now rather than waited for.
-        _kill_workers(pool)
+        kill_workers(pool)
         raise
     finally:
         pool.shutdown(wait=True, cancel_futures=True)
-
-
-def _kill_workers(pool):
-    # ProcessPoolExecutor has no public way to stop running tasks; its worker table is
-    # ``_processes`` (CPython 3.8+). Without it the workers still die with this process.
-    for process in list((getattr(pool, "_processes", None) or {}).values()):
-        with contextlib.suppress(Exception):
-            process.kill()
-
-
-#: prctl(2) option that asks the kernel for a signal when the parent dies (linux/prctl.h).
-_PR_SET_PDEATHSIG = 1
-#: Seconds between two looks at the parent where the kernel cannot watch it for us.
-_PARENT_POLL = 0.5
-
-
-def _worker_start(parent_pid, lock_fds):
-    """Initialiser of each local worker process: never outlive the run, never hold its lock."""
-    for fd in lock_fds:  # inherited through fork; the lock must die with the parent alone
-        with contextlib.suppress(OSError):
-            os.close(fd)
-    # The parent handles SIGINT / SIGTERM sent to the whole process group and then kills us.
-    signal.signal(signal.SIGINT, signal.SIG_IGN)
-    signal.signal(signal.SIGTERM, signal.SIG_IGN)
-    if not _ask_kernel_for_parent_death():
-        threading.Thread(target=_watch_parent, args=(parent_pid,), daemon=True).start()
-    if os.getppid() != parent_pid:  # the parent died before the watch began
-        os._exit(1)
-
-
-def _ask_kernel_for_parent_death():
-    """PR_SET_PDEATHSIG = SIGKILL on Linux (prctl(2)); False where it is not available."""
-    if not sys.platform.startswith("linux"):
-        return False
-    try:
-        import ctypes
-
-        libc = ctypes.CDLL(None, use_errno=True)
-        return libc.prctl(_PR_SET_PDEATHSIG, int(signal.SIGKILL), 0, 0, 0) == 0
-    except (OSError, AttributeError):
-        return False
-
-
-def _watch_parent(parent_pid):
-    while os.getppid() == parent_pid:
-        time.sleep(_PARENT_POLL)
-    os._exit(1)
 
 
 def _run_dask(chunks, settings, extractor, workers, scheduler):

@@ -5,7 +5,9 @@ Each task (an unordered category pair, or a block of one, see
 worker process with one BLAS thread, exactly the arithmetic of the in-process run, and its
 chunks come back in task order, so the file is byte-for-byte the one-process file. Workers are
 forked from the calling process and inherit the plan's palettes and the rules without copying
-them; at most ``workers + 1`` tasks are in flight, so memory holds a few category pairs.
+them; at most ``workers + 1`` tasks are in flight, so memory holds a few category pairs. A
+signal to the process group is the parent's to handle; the workers are killed, never waited
+for, and die with the parent (:mod:`harmony.shop.workers`).
 """
 
 import multiprocessing
@@ -19,6 +21,7 @@ from threadpoolctl import threadpool_limits
 from tqdm import tqdm
 
 from harmony.errors import HarmonyError
+from harmony.shop.workers import kill_workers, start_worker
 
 __all__ = ["default_workers", "pool_chunks"]
 
@@ -68,24 +71,31 @@ def pool_chunks(plan, rules, jobs, workers, *, progress=False, fmt=None):
     _SHARED = (plan, rules, fmt)
     ctx = multiprocessing.get_context("fork")
     bar = tqdm(total=len(jobs), desc="feed", unit="task", disable=not progress, leave=False)
+    pool = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=start_worker,
+                               initargs=(os.getpid(),))
     try:
-        with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
-            waiting = deque()
-            todo = iter(jobs)
+        waiting = deque()
+        todo = iter(jobs)
+        for job in todo:
+            waiting.append(pool.submit(_run, job))
+            if len(waiting) > workers:
+                break
+        while waiting:
+            try:
+                chunks = waiting.popleft().result()
+            except BrokenProcessPool:
+                raise HarmonyError("a feed worker process died (out of memory?); no feed was written") from None
             for job in todo:
                 waiting.append(pool.submit(_run, job))
-                if len(waiting) > workers:
-                    break
-            while waiting:
-                try:
-                    chunks = waiting.popleft().result()
-                except BrokenProcessPool:
-                    raise HarmonyError("a feed worker process died (out of memory?); no feed was written") from None
-                for job in todo:
-                    waiting.append(pool.submit(_run, job))
-                    break
-                bar.update(1)
-                yield from chunks
+                break
+            bar.update(1)
+            yield from chunks
+    except BaseException:
+        # Stopped (SIGTERM, Ctrl-C, an error, the caller closed the generator): the workers are
+        # killed now, not waited for; they ignore the signal themselves (start_worker).
+        kill_workers(pool)
+        raise
     finally:
+        pool.shutdown(wait=True, cancel_futures=True)
         bar.close()
         _SHARED = None
