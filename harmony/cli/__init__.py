@@ -17,6 +17,7 @@ What reaches the user besides the command's own output, and the exit status:
 
 import errno
 import importlib
+import math
 import os
 import pkgutil
 import signal
@@ -28,7 +29,7 @@ import click
 
 from harmony.errors import HarmonyError, warn
 
-__all__ = ["main", "fail", "COMMAND_MODULES", "Terminated", "EXIT_TERMINATED", "EXIT_PIPE_CLOSED"]
+__all__ = ["main", "fail", "COMMAND_MODULES", "Terminated", "EXIT_TERMINATED", "EXIT_PIPE_CLOSED", "FiniteRange"]
 
 #: Exit status after SIGTERM: 128 + 15, as shells report a process ended by that signal.
 EXIT_TERMINATED = 128 + signal.SIGTERM
@@ -38,6 +39,17 @@ EXIT_PIPE_CLOSED = 128 + signal.SIGPIPE
 
 class Terminated(BaseException):
     """Raised in the main thread by SIGTERM; a BaseException so no ``except Exception`` keeps it."""
+
+
+class FiniteRange(click.FloatRange):
+    """A finite number within a range: ``click.FloatRange`` lets ``nan`` through (every comparison
+    with it is false) and ``inf`` past a range open at the top."""
+
+    def convert(self, value, param, ctx):
+        rv = super().convert(value, param, ctx)
+        if not math.isfinite(rv):
+            self.fail(f"{value!r} is not a finite number.", param, ctx)
+        return rv
 
 
 def _on_sigterm(signum, frame):

@@ -5,7 +5,7 @@ import sys
 
 import click
 
-from . import main
+from . import FiniteRange, main
 
 __all__ = ["clicks_command", "read_feed_order"]
 
@@ -86,7 +86,7 @@ def _print(report, top):
               help="A feed (JSONL, CSV or Parquet with product, partner, rank) whose order to estimate from the log; repeatable.")
 @click.option("--min-impressions", default=20, show_default=True, type=click.IntRange(min=1),
               help="Suggestions with fewer impressions are not rated.")
-@click.option("--max-weight", default=10.0, show_default=True, type=click.FloatRange(min=1.0),
+@click.option("--max-weight", default=10.0, show_default=True, type=FiniteRange(min=1.0),
               help="Clip of the inverse propensity 1/examination.")
 @click.option("--top", default=10, show_default=True, type=click.IntRange(min=1),
               help="Under- and over-rated suggestions shown each.")

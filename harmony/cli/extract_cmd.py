@@ -11,7 +11,7 @@ from harmony.errors import HarmonyError
 from harmony.fileio import is_stdout, spreadsheet_safe_row
 from harmony.shop import DEFAULT_DB_NAME, ENGINES, MAX_REMOVAL
 
-from . import fail, main
+from . import FiniteRange, fail, main
 
 __all__ = ["extract", "palettes", "PALETTE_CSV_COLUMNS", "SHOWN_FAILURES"]
 
@@ -38,7 +38,7 @@ PALETTE_CSV_COLUMNS = (
 @click.option("--strict", is_flag=True,
               help="Any catalogue problem is an error and nothing is written; any product left without "
                    "a palette exits with status 1 after the run is stored.")
-@click.option("--max-removal", "max_removal", type=click.FloatRange(0.0, 100.0), default=100.0 * MAX_REMOVAL,
+@click.option("--max-removal", "max_removal", type=FiniteRange(0.0, 100.0), default=100.0 * MAX_REMOVAL,
               show_default=True, metavar="PERCENT",
               help="Refuse a catalogue that would remove more than this percentage of the store's products "
                    "(a cut-short export is likelier than a real clear-out); 100 allows any removal.")

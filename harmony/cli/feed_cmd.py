@@ -9,7 +9,7 @@ from harmony.errors import HarmonyError
 from harmony.fileio import is_stdout
 from harmony.resources import DEFAULT_RULES
 
-from . import main
+from . import FiniteRange, main
 
 __all__ = ["feed", "suggest_cmd", "colour_blocks", "warn_unmatched_pairs", "load_curation_for", "STRIP_CELLS",
            "CURATION_HELP"]
@@ -64,7 +64,7 @@ def warn_unmatched_pairs(rule_sets, categories):
               help="Partners per product and target category.")
 @click.option("--targets", default=None, metavar="CAT,...",
               help="Partner categories to list, comma-separated (default: all).")
-@click.option("--diversity", type=click.FloatRange(0.0, 1.0), default=0.0, show_default=True,
+@click.option("--diversity", type=FiniteRange(0.0, 1.0), default=0.0, show_default=True,
               help="0 = best scores; higher spreads near-identical partners apart (maximal marginal relevance).")
 @click.option("--format", "fmt", type=click.Choice(["jsonl", "csv", "parquet"]), default=None,
               help="Output format (default: from the --out suffix).")
@@ -73,7 +73,7 @@ def warn_unmatched_pairs(rule_sets, categories):
 # --- issue 18: blend and look-alike options ---
 @click.option("--blend", "blend", default=None, type=click.Path(dir_okay=False),
               help="Candidate list of another system (CSV/JSONL: product, partner, score) to blend in.")
-@click.option("--blend-weight", "blend_weight", type=click.FloatRange(0.0, 1.0), default=0.5, show_default=True,
+@click.option("--blend-weight", "blend_weight", type=FiniteRange(0.0, 1.0), default=0.5, show_default=True,
               help="Weight of the candidate list's rank-normalised score (0 = harmony alone).")
 @click.option("--similar", is_flag=True, help="Also write same-category look-alike rows (relation 'similar').")
 # --- end issue 18 ---

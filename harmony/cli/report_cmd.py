@@ -6,7 +6,7 @@ import click
 
 from harmony.fileio import is_stdout
 
-from . import main
+from . import FiniteRange, main
 
 __all__ = ["report"]
 
@@ -22,9 +22,9 @@ __all__ = ["report"]
               help="A bundle result in JSON (from 'harmony bundle --json'); repeat for several rooms.")
 @click.option("--rules", "rules_path", metavar="FILE", help="Rules file the scores used (default: the bundled rules).")
 @click.option("--title", default=None, help="Heading of the report (default: from the catalogue's name).")
-@click.option("--floor-lrv", type=float, default=None, metavar="LRV",
+@click.option("--floor-lrv", type=FiniteRange(0.0, 100.0), default=None, metavar="LRV",
               help="LRV (0-100) of the floor the rugs will lie on, from a measured sample; each rug is checked against it.")
-@click.option("--lux", "illuminance_lux", type=float, default=None, metavar="LUX",
+@click.option("--lux", "illuminance_lux", type=FiniteRange(min=0.0), default=None, metavar="LUX",
               help="Illuminance on the floor; above 200 lux a rug and the floor need 20 LRV points, not 30.")
 @click.option("--out", "out_path", required=True, metavar="FILE.html", help="Where to write the report.")
 def report(db_path, feed_path, evaluation_path, curation_path, bundle_paths, rules_path, title, floor_lrv,

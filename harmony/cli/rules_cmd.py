@@ -5,7 +5,7 @@ import click
 from harmony.errors import RulesError
 from harmony.fileio import is_stdout
 
-from . import main
+from . import FiniteRange, main
 
 #: Most wheels ``rules show`` draws in one picture (about 240 x 8,000 pixels; this project's
 #: choice, to bound the time and memory of a picture a person can still read).
@@ -39,7 +39,7 @@ def check(files):
 @rules_group.command("show")
 @click.argument("file", type=click.Path(dir_okay=False))
 @click.option("--out", "out", required=True, type=click.Path(dir_okay=False), help="PNG file to write.")
-@click.option("--reference-hue", default=40.0, show_default=True, type=click.FloatRange(0.0, 360.0, max_open=True),
+@click.option("--reference-hue", default=40.0, show_default=True, type=FiniteRange(0.0, 360.0, max_open=True),
               help="CAM02-UCS hue of the first colour, at the top of each wheel.")
 def show(file, out, reference_hue):
     """Draw each hue rule of FILE, and each pair section's sum of them, around a hue wheel."""

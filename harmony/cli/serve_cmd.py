@@ -7,7 +7,7 @@ import click
 from harmony.errors import HarmonyError, warn
 from harmony.resources import DEFAULT_RULES, ROOMS_DIR
 
-from . import main
+from . import FiniteRange, main
 from .feed_cmd import CURATION_HELP, load_curation_for
 
 __all__ = ["serve", "DEFAULT_PORT", "KEEP_ALIVE_SECONDS"]
@@ -32,7 +32,7 @@ KEEP_ALIVE_SECONDS = 65
 @click.option("--host", default="127.0.0.1", show_default=True,
               help="Address to listen on; keep the loopback default behind a reverse proxy.")
 @click.option("--port", type=click.IntRange(1, 65535), default=DEFAULT_PORT, show_default=True)
-@click.option("--room-time-limit", type=click.FloatRange(0.05, 60.0), default=2.0, show_default=True,
+@click.option("--room-time-limit", type=FiniteRange(0.05, 60.0), default=2.0, show_default=True,
               help="Seconds one room-set search may take (the best found so far is returned, marked not exact).")
 @click.option("--access-log/--no-access-log", default=False, show_default=True, help="Log every request.")
 @click.option("--curation", "curation_path", type=click.Path(dir_okay=False), default=None, metavar="FILE",

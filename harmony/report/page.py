@@ -602,8 +602,8 @@ def gather_report(
                 v = float(value)
             except (TypeError, ValueError):
                 v = math.nan
-            if not (0.0 <= v <= top):
-                limit = "between 0 and 100" if top == 100.0 else "a non-negative number of lux"
+            if not (0.0 <= v <= top) or not math.isfinite(v):
+                limit = "between 0 and 100" if top == 100.0 else "a finite, non-negative number of lux"
                 raise HarmonyError(f"{name} must be {limit}, got {value!r}")
     products = sorted(products, key=lambda p: (str(p.category).casefold(), str(p.id)))
     palettes = dict(palettes)
