@@ -635,7 +635,8 @@ def test_floor_swatch_has_the_floor_lrv(shop):
 @pytest.mark.parametrize("kw, message", [
     ({"floor_lrv": 120.0}, r"floor LRV must be between 0 and 100, got 120\.0"),
     ({"floor_lrv": float("nan")}, r"floor LRV must be between 0 and 100"),
-    ({"illuminance_lux": -5.0}, r"illuminance must be a non-negative number of lux, got -5\.0"),
+    ({"illuminance_lux": -5.0}, r"illuminance must be a finite, non-negative number of lux, got -5\.0"),
+    ({"illuminance_lux": float("inf")}, r"illuminance must be a finite, non-negative number of lux, got inf"),
 ])
 def test_bad_floor_values_are_refused(shop, kw, message):
     products, palettes, _, _ = shop
@@ -646,8 +647,8 @@ def test_bad_floor_values_are_refused(shop, kw, message):
 def test_cli_report_floor_lrv(store_path, tmp_path):
     out = tmp_path / "r.html"
     bad = _cli("report", "--db", store_path, "--floor-lrv", "101", "--out", out)
-    assert bad.exit_code == 2 and bad.output.strip().splitlines() == [
-        "error: floor LRV must be between 0 and 100, got 101.0"]
+    assert bad.exit_code == 2 and len(bad.output.strip().splitlines()) == 1
+    assert "error: Invalid value for '--floor-lrv': 101.0 is not in the range 0.0<=x<=100.0" in bad.output
     assert not out.exists()
     good = _cli("report", "--db", store_path, "--floor-lrv", "40", "--lux", "300", "--out", out)
     assert good.exit_code == 0, good.output
