@@ -477,7 +477,7 @@ def load_rules(path=DEFAULT_RULES):
             f"{MAX_RULES} rules and {MAX_PAIR_SECTIONS} pair sections"
         )
     try:
-        text = raw.decode("utf-8")
+        text = raw.decode("utf-8-sig")  # a byte order mark (some editors write one) is dropped
     except UnicodeDecodeError as exc:
         raise RulesError(f"{path}: not UTF-8 text (byte {exc.start})") from None
     return parse_rules(text, where=str(path))

@@ -292,7 +292,7 @@ def load_curation(path):
     except OSError as exc:
         raise CurationError(f"{path}: cannot read the curation file: {exc.strerror or exc}") from None
     try:
-        text = raw.decode("utf-8")
+        text = raw.decode("utf-8-sig")  # a byte order mark (some editors write one) is dropped
     except UnicodeDecodeError as exc:
         raise CurationError(f"{path}: not UTF-8 text (byte {exc.start})") from None
     return parse_curation(text, where=str(path), sha256=hashlib.sha256(raw).hexdigest())

@@ -274,7 +274,7 @@ def load_room(path):
     """
     p = Path(path)
     try:
-        text = p.read_text(encoding="utf-8")
+        text = p.read_text(encoding="utf-8-sig")  # a byte order mark (some editors write one) is dropped
     except FileNotFoundError:
         raise RoomError(f"{p}: no such room template") from None
     except (OSError, UnicodeDecodeError) as exc:
