@@ -300,6 +300,11 @@ def _text(value):
 def _validate(record, root):
     """Check one record; return (Product or None, [(field, reason), ...])."""
     problems = []
+    for key in ("id", "category", "title", "currency"):  # a JSON list or object is no name
+        if isinstance(record.get(key), (dict, list)):
+            problems.append((key, f"must be text, not a JSON {'list' if isinstance(record[key], list) else 'object'}"))
+    if problems:
+        return None, problems
     pid = _text(record.get("id"))
     if not pid:
         problems.append(("id", "missing required field"))

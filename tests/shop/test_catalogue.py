@@ -155,3 +155,21 @@ def test_image_paths_are_joined_and_normalised_lexically(tmp_path):
     # os.path.normpath drops '.' and folds 'x/..' without touching the file system (Python docs).
     assert cat.image_file(product.images[0]) == want
     assert cat.image_path(product.images[0]) == Path(want)
+
+
+def test_jsonl_names_must_be_text_not_lists_or_objects(tmp_path):
+    # JSON Lines values can be lists and objects; an id, category, title or currency cannot be one
+    # (the category ["sofa"] would otherwise make a category of its own).
+    (tmp_path / "a.png").write_bytes(b"x")
+    (tmp_path / "c.jsonl").write_text(
+        '{"id": "S-1", "category": ["sofa"], "price": 1, "image": "a.png"}\n'
+        '{"id": {"n": 2}, "category": "sofa", "price": 1, "image": "a.png", "title": ["x"]}\n'
+        '{"id": "S-3", "category": "sofa", "price": 1, "image": "a.png"}\n')
+    cat = read_catalogue(tmp_path / "c.jsonl")
+    where = str(tmp_path / "c.jsonl")
+    assert [str(p) for p in cat.problems] == [
+        f"{where}:1: category: must be text, not a JSON list",
+        f"{where}:2: id: must be text, not a JSON object",
+        f"{where}:2: title: must be text, not a JSON list",
+    ]
+    assert [p.id for p in cat.products] == ["S-3"] and cat.skipped_rows == 2
