@@ -57,6 +57,10 @@ def is_stdout(path):
     return str(path) == STDOUT
 
 
+#: Bytes per write when a finished output is copied to standard output (a pipe holds 64 KiB).
+_STDOUT_PIECE = 1 << 16
+
+
 def _write_stdout(write):
     """Let ``write(tmp_path)`` fill a private temporary file, then copy it to standard output."""
     with tempfile.TemporaryDirectory(prefix="harmony-out-") as folder:
@@ -67,7 +71,10 @@ def _write_stdout(write):
     if stream is None:  # a text-only stdout (tests): the outputs are UTF-8 text or bytes
         sys.stdout.write(data.decode("utf-8", errors="replace"))
     else:
-        stream.write(data)
+        # In pieces: one large write to a pipe can end without an error when its reader has
+        # already gone (``| head``), so a closed reader is only noticed by the next write.
+        for start in range(0, len(data), _STDOUT_PIECE):
+            stream.write(data[start: start + _STDOUT_PIECE])
     sys.stdout.flush()
 
 

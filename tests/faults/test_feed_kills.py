@@ -81,3 +81,20 @@ def test_a_feed_stopped_at_random_moments_ends_cleanly_and_keeps_the_old_file(st
         assert not [p.name for p in feed.parent.iterdir() if p.name.endswith(".part")], trial
         outcomes.append(code)
     assert any(c in (130, 143) for c in outcomes), "no signal landed during a run"
+
+
+def test_a_feed_on_standard_output_read_by_head_ends_with_the_sigpipe_status(store):
+    # `| head -n 1` closes the pipe after one line of megabytes: the feed must notice (status
+    # 141 = 128 + SIGPIPE, as shells report a process that SIGPIPE ended) and say nothing.
+    import subprocess
+
+    db, _feed, clean, _seconds = store
+    assert len(clean) > 1 << 20  # far more than a pipe holds (64 KiB on Linux, pipe(7))
+    harmony = Path(sys.executable).parent / "harmony"
+    if not harmony.exists():
+        pytest.skip("the harmony script is not installed beside this Python")
+    done = subprocess.run(f"'{harmony}' feed --db '{db}' --out - --format jsonl --no-progress | head -n 1; "
+                          "exit ${PIPESTATUS[0]}", shell=True, executable="/bin/bash", capture_output=True,
+                          text=True, timeout=300)
+    assert done.stdout == clean.decode().splitlines(keepends=True)[0]
+    assert (done.returncode, done.stderr) == (141, "")
