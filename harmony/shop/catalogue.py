@@ -130,12 +130,17 @@ class Catalogue:
         The catalogue file, absolute.
     skipped_rows : int
         Number of rows left out because of at least one problem.
+    skipped_ids : tuple of str
+        The ids of those rows, where an id could be read and no valid row has it: a store keeps
+        such a product as it was (:meth:`harmony.shop.store.Store.sync_catalogue`), so one bad
+        cell in a nightly export does not remove it.
     """
 
     products: tuple
     problems: tuple
     path: Path
     skipped_rows: int = 0
+    skipped_ids: tuple = ()
 
     @property
     def root(self):
@@ -203,7 +208,7 @@ def read_catalogue(path):
         raise CatalogueError(f"{path}: cannot read: {exc.strerror or exc}") from None
     rows = _csv_rows(path, text) if kind == "csv" else _jsonl_rows(path, text)
     root = str(path.resolve().parent)
-    products, problems, seen = [], [], set()
+    products, problems, seen, skipped_ids = [], [], set(), []
     skipped = 0
     for line, record, early in rows:
         found = list(early)
@@ -216,10 +221,13 @@ def read_catalogue(path):
         if found or product is None:
             skipped += 1
             problems.extend(Problem(str(path), line, name, reason) for name, reason in found)
+            if record is not None and not isinstance(record.get("id"), (dict, list)) and _text(record.get("id")):
+                skipped_ids.append(_text(record.get("id")))
             continue
         seen.add(product.id)
         products.append(product)
-    return Catalogue(tuple(products), tuple(problems), path.resolve(), skipped)
+    kept = tuple(dict.fromkeys(i for i in skipped_ids if i not in seen))
+    return Catalogue(tuple(products), tuple(problems), path.resolve(), skipped, kept)
 
 
 def _csv_rows(path, text):

@@ -108,6 +108,9 @@ class ExtractionSummary:
         Products left with no palette at all.
     skipped_rows : int
         Catalogue rows skipped because of problems.
+    kept : int
+        Products of skipped rows that the store already held, kept as stored (and counted in
+        ``products``).
     seconds : float
         Wall-clock time of the whole run.
     engine : str
@@ -131,6 +134,7 @@ class ExtractionSummary:
     downloaded: int = 0
     unchanged: int = 0
     download_failed: int = 0
+    kept: int = 0
 
     def line(self):
         """The summary as one line for people."""
@@ -141,7 +145,8 @@ class ExtractionSummary:
         return (
             f"{self.products} products, {self.images} images: {self.new} new, {self.cached} cached, "
             f"{self.failed} failed, {self.scene_only} scene-only, {self.no_palette} without palette, "
-            f"{self.removed} removed, {self.skipped_rows} rows skipped{urls}; {self.seconds:.1f} s "
+            f"{self.removed} removed, {self.skipped_rows} rows skipped"
+            f"{f' ({self.kept} of their products kept as stored)' if self.kept else ''}{urls}; {self.seconds:.1f} s "
             f"({self.engine}, {self.workers} worker{'' if self.workers == 1 else 's'})"
         )
 
@@ -447,10 +452,12 @@ def run_extraction(
         finally:
             bar.close()
         with_palette, scene_only = store.coverage()
-        no_palette = len(cat.products) - with_palette
+        listed = {p.id for p in cat.products}
+        kept = sum(1 for p in store.products() if p.id not in listed)  # skipped rows' stored products
+        no_palette = len(cat.products) + kept - with_palette
         distinct = len({info.sha256 for info in hashes.values() if info.sha256 is not None})
     return ExtractionSummary(
-        products=len(cat.products),
+        products=len(cat.products) + kept,
         removed=removed,
         images=distinct + unreadable,
         new=new,
@@ -466,6 +473,7 @@ def run_extraction(
         downloaded=sum(1 for r in fetched.values() if r.status == "downloaded"),
         unchanged=sum(1 for r in fetched.values() if r.status == "unchanged"),
         download_failed=sum(1 for r in fetched.values() if r.status == "failed"),
+        kept=kept,
     )
 
 

@@ -598,7 +598,9 @@ class Store:
         Returns
         -------
         int
-            Products that were in the store and are not in ``catalogue`` (now removed).
+            Products that were in the store and are not in ``catalogue`` (now removed). A product
+            whose row the catalogue skipped for a problem (``catalogue.skipped_ids``) is kept as
+            stored, with its images and palettes, and not counted.
 
         Raises
         ------
@@ -632,7 +634,12 @@ class Store:
                 )
         with self._transaction() as db:
             before = {r[0] for r in db.execute("SELECT id FROM products")}
-            removed = len(before - {p[0] for p in products})
+            kept = sorted((set(getattr(catalogue, "skipped_ids", ())) & before) - {p[0] for p in products})
+            held, held_links = [], []
+            for pid in kept:  # rows the catalogue skipped for a problem: the stored product stays
+                held.extend(db.execute("SELECT * FROM products WHERE id = ?", (pid,)).fetchall())
+                held_links.extend(db.execute("SELECT * FROM product_images WHERE product_id = ?", (pid,)).fetchall())
+            removed = len(before - {p[0] for p in products} - set(kept))
             if before and removed > max_removal * len(before):
                 raise StoreError(
                     f"{self.path}: the catalogue {catalogue.path.name} would remove {removed} of the store's "
@@ -642,9 +649,9 @@ class Store:
                 )
             db.execute("DELETE FROM product_images")
             db.execute("DELETE FROM products")
-            db.executemany("INSERT INTO products VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)", products)
+            db.executemany("INSERT INTO products VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)", products + held)
             db.executemany("INSERT OR IGNORE INTO images (sha256, size) VALUES (?, ?)", images.items())
-            db.executemany("INSERT INTO product_images VALUES (?, ?, ?, ?, ?, ?, ?, ?)", links)
+            db.executemany("INSERT INTO product_images VALUES (?, ?, ?, ?, ?, ?, ?, ?)", links + held_links)
             db.execute("DELETE FROM images WHERE sha256 NOT IN (SELECT sha256 FROM product_images WHERE sha256 IS NOT NULL)")
             db.execute("INSERT OR REPLACE INTO meta VALUES ('catalogue_path', ?)", (str(catalogue.path),))
             db.execute("INSERT OR REPLACE INTO meta VALUES ('settings_key', ?)", (settings_key,))

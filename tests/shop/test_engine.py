@@ -636,3 +636,27 @@ def test_a_truncated_catalogue_reports_the_removed_products(tmp_path):
     assert cut.to_dict()["removed"] == 4
     with Store(tmp_path / "s.db") as store:
         assert [p.id for p in store.products()] == ["P000", "P001"]
+
+
+def test_a_row_skipped_for_a_bad_cell_keeps_its_stored_product(tmp_path):
+    # A nightly export with one mistyped price must not remove the product (and its palette);
+    # a product whose row is gone from the catalogue is removed as before.
+    csv = _shop(tmp_path, n=6)
+    db = tmp_path / "s.db"
+    first = _run(csv, db)
+    with Store(db) as store:
+        before = {p.id: p for p in store.products()}
+        palette = store.palettes()["P003"]
+    lines = csv.read_text().splitlines()
+    lines[4] = lines[4].replace(",13,", ',"1.079,00",')  # P003's price in a decimal-comma locale
+    csv.write_text("\n".join(lines) + "\n")
+    again = _run(csv, db)
+    assert (again.removed, again.skipped_rows, again.kept, again.products) == (0, 1, 1, 6)
+    assert "1 rows skipped (1 of their products kept as stored)" in again.line()
+    with Store(db) as store:
+        assert {p.id: p for p in store.products()} == before  # P003 as stored, its old price too
+        assert np.array_equal(store.palettes()["P003"].jab, palette.jab)
+    csv.write_text("\n".join(lines[:4] + lines[5:]) + "\n")  # the row gone: the product goes
+    gone = _run(csv, db)
+    assert (gone.removed, gone.kept, gone.products) == (1, 0, 5)
+    assert first.kept == 0
