@@ -299,16 +299,24 @@ def load_curation(path):
 
 
 def unknown_product_warnings(curation, product_ids, categories=()):
-    """One message per pin or block naming a product (or category) the store does not hold."""
+    """One message per pin, block or category pair naming a product (or category) the store does
+    not hold."""
     ids = set(product_ids)
     cats = set(categories)
     out = []
 
+    def hint(name, known):
+        close = difflib.get_close_matches(name, sorted(known), n=1)
+        return f" (did you mean '{close[0]}'?)" if close else ""
+
     def check(pid, line, what):
         if pid not in ids:
-            close = difflib.get_close_matches(pid, sorted(ids), n=1)
-            hint = f" (did you mean '{close[0]}'?)" if close else ""
-            out.append(f"{curation.path}:{line}: {what} names unknown product '{pid}'{hint}; ignored")
+            out.append(f"{curation.path}:{line}: {what} names unknown product '{pid}'{hint(pid, ids)}; ignored")
+
+    def check_category(cat, line, what):
+        if cats and cat not in cats:
+            out.append(f"{curation.path}:{line}: {what} names category '{cat}', which the store has none of"
+                       f"{hint(cat, cats)}")
 
     for p in curation.pins:
         check(p.product, p.line, "pin")
@@ -317,8 +325,11 @@ def unknown_product_warnings(curation, product_ids, categories=()):
         check(b.product, b.line, "block")
         if b.partner is not None:
             check(b.partner, b.line, "block")
-        elif cats and b.category not in cats:
-            out.append(f"{curation.path}:{b.line}: block names category '{b.category}', which the store has none of")
+        else:
+            check_category(b.category, b.line, "block")
+    for rule in curation.category_pairs:
+        for cat in dict.fromkeys(rule.categories):
+            check_category(cat, rule.line, "category_pair")
     return out
 
 

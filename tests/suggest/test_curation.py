@@ -89,7 +89,12 @@ def test_unknown_products_are_warnings_with_lines():
     assert out == [
         "cur.toml:5: pin names unknown product 'R9'; ignored",
         "cur.toml:14: block names category 'cushion', which the store has none of",
+        "cur.toml:18: category_pair names category 'armchair', which the store has none of",
     ]
+    # A category misspelt (the store says "desks"): the closest name is offered (difflib).
+    out = unknown_product_warnings(c, ["S1", "R1", "R9", "D1"], ["sofa", "rug", "desks", "armchair", "cushion"])
+    assert out == ["cur.toml:18: category_pair names category 'desk', which the store has none of "
+                   "(did you mean 'desks'?)"]
 
 
 def test_curate_blocks_floors_and_pins():
