@@ -48,6 +48,13 @@ def fork_cli(args, out_dir, stdout_fd=None):
     code = 70
     try:
         os.setpgid(0, 0)
+        # tqdm's default lock holds a multiprocessing semaphore that fork shares with this test
+        # process and every other child: one killed while holding it would block all the rest.
+        from threading import RLock
+
+        from tqdm import tqdm
+
+        tqdm.set_lock(RLock())
         err = os.open(err_path, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o644)
         out = stdout_fd if stdout_fd is not None else os.open(out_path, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o644)
         os.dup2(err, 2)
