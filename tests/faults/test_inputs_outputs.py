@@ -105,7 +105,8 @@ def test_a_stock_past_64_bits_is_a_row_problem(built, tmp_path):
     assert (f"warning: {big}:2: stock: stock {2**63} is larger than {2**63 - 1} "
             f"(the store keeps 64-bit whole numbers)") in result.stderr
     with Store(store) as s:
-        assert s.product("S01").stock == 2**63 - 1 and len(s) == 9
+        assert s.product("S01").stock == 2**63 - 1 and len(s) == 10
+        assert s.product("S00").stock == 0  # its row skipped: kept as stored, with its old stock
 
 
 # -- 4. full disks, closed and full standard output, damaged stores --------------------------
