@@ -6,9 +6,8 @@ filled slots. The search maximises that value subject to the budget, and returns
 bundles that differ from each other in at least ``min_difference`` slots.
 
 The core works on an abstract :class:`BundleProblem` (pools of :class:`Candidate` per slot, one
-pair-score matrix and one weight per slot pair), so it is testable on its own; the products of a
-store become such a problem through a networkx graph (:func:`problem_graph`,
-:func:`problem_from_graph`) and :func:`build_problem`.
+pair-score matrix and one weight per slot pair), testable on its own; a store's products become
+one through a networkx graph (:func:`problem_graph`, :func:`problem_from_graph`, :func:`build_problem`).
 
 References
 ----------
@@ -28,6 +27,7 @@ import networkx as nx
 import numpy as np
 
 from harmony.errors import RoomError
+from harmony.suggest.room import check_currency
 
 __all__ = [
     "Candidate",
@@ -625,7 +625,7 @@ def build_problem(store, room, rules, budget=None, anchor=None, exclude=(), pool
     RoomError
         A slot category with no products, or none usable; an anchor whose category is not in the
         room (or is excluded, out of stock, without a palette); a budget below the cheapest
-        complete set (the message names the cheapest possible total).
+        complete set (naming the cheapest total); prices in another currency than the budget's.
     StoreError
         An unknown anchor or excluded id.
     """
@@ -658,6 +658,7 @@ def build_problem(store, room, rules, budget=None, anchor=None, exclude=(), pool
             products = [store.product(anchor)]
         pals = store.palettes(slot.category)
         usable = [p for p in products if p.id not in exclude and p.in_stock(slot.quantity) and p.id in pals]
+        check_currency(room, slot, usable)
         if slot.name == anchor_slot and not usable:
             raise RoomError(f"anchor '{anchor}' cannot fill slot '{slot.name}': it needs {slot.quantity} "
                             "in stock and a palette")

@@ -37,7 +37,7 @@ from pathlib import Path
 from harmony.errors import RoomError
 from harmony.shop.catalogue import normalise_category
 
-__all__ = ["RoomSlot", "RoomTemplate", "load_room", "parse_room"]
+__all__ = ["RoomSlot", "RoomTemplate", "load_room", "parse_room", "check_currency"]
 
 _TOP_KEYS = {"name", "budget", "currency", "default_weight", "slot", "pair"}
 _SLOT_KEYS = {"name", "category", "quantity", "required", "visible_share"}
@@ -280,3 +280,13 @@ def load_room(path):
     except (OSError, UnicodeDecodeError) as exc:
         raise RoomError(f"{p}: cannot read room template: {exc}") from None
     return parse_room(text, path=str(p))
+
+
+def check_currency(room, slot, products):
+    """Refuse products of ``slot`` priced in another currency than the room's budget (a product
+    without a currency is taken to be in the room's): their prices cannot be added to it."""
+    other = [p for p in products if p.currency and p.currency.upper() != room.currency]
+    if other:
+        raise RoomError(f"room '{room.name}': slot '{slot.name}': the budget is in {room.currency} but "
+                        f"{len(other)} product(s) are priced in {other[0].currency} (first: '{other[0].id}'); "
+                        "give the template the catalogue's currency")

@@ -234,3 +234,13 @@ def test_pair_sections_are_checked_against_the_store(db, tmp_path):
         f"warning: {mine}:{line}: pair dining table / rugs: no products of category 'rugs' in the store "
         "(did you mean 'rug'?)"
     ]
+
+
+def test_a_budget_in_another_currency_than_the_prices_is_refused(db, tmp_path):
+    # The demo catalogue prices in EUR; a template budget in USD (ISO 4217) cannot be compared.
+    room = tmp_path / "usd.toml"
+    room.write_text((DEMO_DIR / "dining_corner.toml").read_text().replace('currency = "EUR"', 'currency = "USD"'))
+    assert 'currency = "USD"' in room.read_text()
+    res = run("--db", db, "--room", room)
+    assert res.exit_code == 2 and len(res.output.strip().splitlines()) == 1
+    assert "the budget is in USD but" in res.output and "priced in EUR" in res.output
