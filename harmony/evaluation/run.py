@@ -1,5 +1,6 @@
 """One whole evaluation from files: a store, an interaction log and rules files (``harmony evaluate``)."""
 
+import difflib
 import gc
 import os
 import sys
@@ -65,6 +66,12 @@ def _run(db, events, rules_files, weights, seed, resamples, attribute, progress,
     if not palettes:
         raise StoreError(f"{db}: the store holds no palettes (run 'harmony extract CATALOGUE --db {db}')")
     log = read_events(events, weights=event_weights, known_products={p.id for p in products})
+    present = log.counts()
+    given = {str(item).partition("=")[0].strip().casefold() for item in weights}
+    for kind in sorted(k for k in given if event_weights[k] > 0 and k not in present):  # misspelt?
+        close = difflib.get_close_matches(kind, sorted(present) + [k for k, _ in log.skipped], n=1)
+        warn(f"--event-weight {kind}: the log has no kept events of that kind"
+             + (f" (did you mean '{close[0]}'?)" if close else f" (kinds: {', '.join(sorted(present))})"))
     queries = build_queries(log, products, palettes)
     methods = standard_methods(rulesets, palettes, products, attribute=attribute)
     if extra_methods is not None:  # issue 18: blend weights side by side

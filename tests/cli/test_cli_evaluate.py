@@ -259,3 +259,17 @@ def test_blend_rows_are_drawn_as_their_own_kind(shop, tmp_path):
     plain = tmp_path / "plain.html"
     assert run("evaluate", "--db", db, "--events", log, "--rules", RIGHT, "--out", plain, "--resamples", 20).exit_code == 0
     assert 'class="blend"' not in plain.read_text() and "blend with another list" not in plain.read_text()
+
+
+def test_a_weighted_kind_the_log_lacks_is_warned_of(shop, tmp_path):
+    # A misspelt kind would otherwise weigh nothing without a word; the closest kind is offered
+    # (difflib), else the kinds the log has.
+    db, log = shop
+    base = ["evaluate", "--db", db, "--events", log, "--rules", RIGHT, "--resamples", 20]
+    res = run(*base, "--event-weight", "purchse=4")
+    assert res.exit_code == 0, res.output
+    assert ("warning: --event-weight purchse: the log has no kept events of that kind (did you mean 'purchase'?)"
+            in res.stderr)
+    res = run(*base, "--event-weight", "wishlist=2")
+    assert "warning: --event-weight wishlist: the log has no kept events of that kind (kinds: " in res.stderr
+    assert "--event-weight" not in run(*base, "--event-weight", "view=2").stderr
