@@ -110,8 +110,10 @@ def _candidate_rows(path):
     path = Path(path)
     try:
         text = path.read_text(encoding="utf-8-sig")  # a BOM (spreadsheet exports) is dropped
-    except (OSError, UnicodeDecodeError) as exc:
-        raise HarmonyError(f"{path}: cannot read the candidate list: {getattr(exc, 'strerror', None) or exc}") from None
+    except OSError as exc:
+        raise HarmonyError(f"{path}: cannot read the candidate list: {exc.strerror or exc}") from None
+    except UnicodeDecodeError as exc:
+        raise HarmonyError(f"{path}: not UTF-8 text (byte {exc.start}); a candidate list is CSV or JSON Lines") from None
     problems = []
     if path.suffix.lower() in (".jsonl", ".ndjson"):
         fields = _jsonl_fields(path, text, problems)

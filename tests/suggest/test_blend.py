@@ -229,3 +229,12 @@ def test_unreadable_candidate_csv_is_one_line(tmp_path):
     with pytest.raises(HarmonyError, match=r"c.csv:3: not a readable CSV row: field larger than field limit") as info:
         read_candidates(path)
     assert "\n" not in str(info.value)
+
+
+def test_a_binary_or_missing_candidate_list_is_one_line(tmp_path):
+    path = tmp_path / "c.csv"
+    path.write_bytes(b"\x89PNG\r\n\x1a\n\x00\x00")  # a PNG signature (ISO/IEC 15948), not text
+    with pytest.raises(HarmonyError, match=r"c.csv: not UTF-8 text \(byte 0\); a candidate list is CSV or JSON Lines"):
+        read_candidates(path)
+    with pytest.raises(HarmonyError, match=r"nope.csv: cannot read the candidate list: No such file"):
+        read_candidates(tmp_path / "nope.csv")
