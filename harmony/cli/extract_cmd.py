@@ -118,8 +118,12 @@ def palettes(db_path, fmt, out_path):
     """
     from harmony.fileio import write_text_whole
     from harmony.shop.store import Store
+    suffix = Path(out_path).suffix.lower() if out_path and out_path != "-" else ""
     if fmt is None:
-        fmt = "csv" if out_path and Path(out_path).suffix.lower() == ".csv" else "jsonl"
+        if suffix not in ("", ".csv", ".jsonl", ".ndjson"):
+            raise HarmonyError(f"{out_path}: palettes are written as JSONL or CSV, not '{suffix}' "
+                               "(name the file .jsonl or .csv, or give --format)")
+        fmt = "csv" if suffix == ".csv" else "jsonl"
     writer = _csv if fmt == "csv" else _jsonl
     with Store(db_path) as store:
         missing = len(store) - len(store.palettes())

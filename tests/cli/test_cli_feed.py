@@ -223,3 +223,14 @@ def test_feed_to_standard_output_keeps_the_summary_off_it(db, tmp_path):
     assert lines[0].startswith("product,category,partner,partner_category,rank,score")
     assert "wrote" not in res.stdout and "wrote" in res.stderr
     assert not (tmp_path / "-").exists()
+
+
+def test_palettes_refuse_an_output_name_of_another_format(db, tmp_path):
+    # Writing JSON Lines into a file named .parquet or .json would mislead the next reader.
+    for name in ("p.parquet", "p.json"):
+        res = run("palettes", "--db", db, "--out", tmp_path / name)
+        assert res.exit_code == 2 and "palettes are written as JSONL or CSV" in res.output
+        assert not (tmp_path / name).exists()
+    assert run("palettes", "--db", db, "--out", tmp_path / "p.txt", "--format", "csv").exit_code == 0
+    assert (tmp_path / "p.txt").read_text().startswith("product,")
+    assert run("palettes", "--db", db, "--out", tmp_path / "p.jsonl").exit_code == 0
