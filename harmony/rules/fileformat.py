@@ -38,6 +38,11 @@ MAX_RULES_BYTES = 512 * 1024
 MAX_RULES = 200
 #: Most ``[[pair]]`` sections in one file.
 MAX_PAIR_SECTIONS = 1000
+#: Largest size of a rule's weight and of a pair's multiplier: weights are relative to the
+#: reference weight 1.0, and a thousand times it already drives the logistic score (scale 0.43 in
+#: the shipped file) to 0 or 1 for every pair; far past it, sums of weights overflow (1e308).
+#: This project's choice.
+MAX_WEIGHT = 1000.0
 
 # --------------------------------------------------------------------------------------------
 # Reading and validation
@@ -264,7 +269,7 @@ def _read_rule(problems, name, table, path):
     if kind is _MISSING:
         return None
     problems.unknown_keys(table, _RULE_KEYS[kind], path)
-    weight = _get(problems, table, "weight", path, _number())
+    weight = _get(problems, table, "weight", path, _number(-MAX_WEIGHT, MAX_WEIGHT))
     phrase = _get(problems, table, "phrase", path, _string(), required=False, default="")
     ok = weight is not _MISSING
     if kind == "hue":
@@ -316,7 +321,7 @@ def _read_section(problems, table, path, rule_names, label):
                 hint = f" (did you mean '{close[0]}'?)" if close else ""
                 problems.add(path + ("rules", name), f"unknown rule{hint}; the file defines: {', '.join(sorted(rule_names)) or 'none'}")
                 continue
-            reason = _number(0.0)(mult)
+            reason = _number(0.0, MAX_WEIGHT)(mult)
             if reason:
                 problems.add(path + ("rules", name), "pair weight " + reason)
                 continue

@@ -266,6 +266,10 @@ rules = { a = 1.0 }
         ("centre = 0.0", "centre = 200.0", r"<string>:7: rule.a.centre: each angle must be <= 180"),
         ("centre = 0.0", 'centre = "zero"', r"<string>:7: rule.a.centre: each angle must be a number"),
         ("rules = { a = 1.0 }", "rules = { a = -1.0 }", r"<string>:11: default.rules.a: pair weight must be >= 0"),
+        # Weights past MAX_WEIGHT (1,000 times the reference) saturate every score and, near 1e308, overflow.
+        ("weight = 1.0", "weight = 1e308", r"<string>:9: rule.a.weight: must be <= 1000, got 1e\+308"),
+        ("weight = 1.0", "weight = -1001.0", r"<string>:9: rule.a.weight: must be >= -1000, got -1001"),
+        ("rules = { a = 1.0 }", "rules = { a = 1e4 }", r"<string>:11: default.rules.a: pair weight must be <= 1000"),
         ("rules = { a = 1.0 }", "rules = { a = 1.0 }\nscored = 1", r"<string>:12: default.scored: must be true or false"),
         ("[default]", "[defualt]", r"<string>:10: defualt: unknown key \(did you mean 'default'\?\)"),
         ('kind = "hue"', 'kind = "hue"\nwidth = 3.0', r"<string>:7: rule.a.width: unknown key"),
@@ -287,6 +291,9 @@ def test_small_valid_text_parses():
     rs = parse_rules(_SMALL)
     assert list(rs.rules) == ["a"]
     assert rs.default_rules().rule_names == ("a",)
+    # The weight bounds themselves are allowed (the other side of the checks above).
+    edge = parse_rules(_SMALL.replace("weight = 1.0", "weight = -1000.0").replace("a = 1.0 }", "a = 1000.0 }"))
+    assert edge.rules["a"].weight == -1000.0
 
 
 # ---- kernel properties (hypothesis) ----------------------------------------------------------
