@@ -29,7 +29,8 @@ import click
 
 from harmony.errors import HarmonyError, warn
 
-__all__ = ["main", "fail", "COMMAND_MODULES", "Terminated", "EXIT_TERMINATED", "EXIT_PIPE_CLOSED", "FiniteRange"]
+__all__ = ["main", "fail", "COMMAND_MODULES", "Terminated", "EXIT_TERMINATED", "EXIT_PIPE_CLOSED", "FiniteRange",
+           "refuse_other_suffix"]
 
 #: Exit status after SIGTERM: 128 + 15, as shells report a process ended by that signal.
 EXIT_TERMINATED = 128 + signal.SIGTERM
@@ -50,6 +51,16 @@ class FiniteRange(click.FloatRange):
         if not math.isfinite(rv):
             self.fail(f"{value!r} is not a finite number.", param, ctx)
         return rv
+
+
+def refuse_other_suffix(path, suffixes, what):
+    """Refuse an output name whose suffix says another format than ``what`` is written in (a page
+    named ``.pdf``, a picture ``.jpg``); no suffix, one of ``suffixes`` and ``-`` pass."""
+    if path is None or str(path) == "-":
+        return
+    suffix = os.path.splitext(str(path))[1].lower()
+    if suffix and suffix not in suffixes:
+        raise HarmonyError(f"{path}: {what} is written as {suffixes[0]}, not {suffix} (name the file {suffixes[0]})")
 
 
 def _on_sigterm(signum, frame):

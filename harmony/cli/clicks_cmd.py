@@ -5,7 +5,7 @@ import sys
 
 import click
 
-from . import FiniteRange, main
+from . import FiniteRange, main, refuse_other_suffix
 
 __all__ = ["clicks_command", "read_feed_order"]
 
@@ -105,6 +105,7 @@ def clicks_command(impressions, db, compare, min_impressions, max_weight, top, r
 
     from harmony.evaluation.clicks import analyse_clicks, read_impressions
 
+    refuse_other_suffix(out, (".html", ".htm"), "the page")
     log = read_impressions(impressions)
     orders = [(Path(f).name, read_feed_order(f)) for f in compare]
     if progress is None:

@@ -9,7 +9,7 @@ from harmony.errors import HarmonyError
 from harmony.fileio import is_stdout
 from harmony.resources import DEFAULT_RULES
 
-from . import main
+from . import main, refuse_other_suffix
 
 __all__ = ["evaluate_command"]
 
@@ -66,6 +66,7 @@ def evaluate_command(db, events, rules_files, as_json, out, weights, seed, resam
     """
     from harmony.evaluation import write_html
     from harmony.evaluation.run import collection_paused, run_evaluation
+    refuse_other_suffix(out, (".html", ".htm"), "the evaluation page")
     if out is not None and is_stdout(out) and as_json:
         raise HarmonyError("--out - and --json both write to standard output; give --out a file name")
     echo = functools.partial(click.echo, err=out is not None and is_stdout(out))

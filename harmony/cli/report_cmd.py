@@ -6,7 +6,7 @@ import click
 
 from harmony.fileio import is_stdout
 
-from . import FiniteRange, main
+from . import FiniteRange, main, refuse_other_suffix
 
 __all__ = ["report"]
 
@@ -49,6 +49,7 @@ def report(db_path, feed_path, evaluation_path, curation_path, bundle_paths, rul
 
     from .feed_cmd import _warn, load_curation_for
 
+    refuse_other_suffix(out_path, (".html", ".htm"), "the report")
     feed_rows = read_feed(feed_path) if feed_path else []
     feed_meta = read_provenance(feed_path) if feed_path else None
     evaluation = read_evaluation(evaluation_path) if evaluation_path else ()

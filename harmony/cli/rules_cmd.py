@@ -5,7 +5,7 @@ import click
 from harmony.errors import RulesError
 from harmony.fileio import is_stdout
 
-from . import FiniteRange, main
+from . import FiniteRange, main, refuse_other_suffix
 
 #: Most wheels ``rules show`` draws in one picture (about 240 x 8,000 pixels; this project's
 #: choice, to bound the time and memory of a picture a person can still read).
@@ -46,6 +46,7 @@ def show(file, out, reference_hue):
     from harmony.rules import load_rules
     from harmony.rules.wheel import draw_hue_rules
 
+    refuse_other_suffix(out, (".png",), "the picture")
     rule_set = load_rules(file)
     wheels = sum(1 for r in rule_set.rules.values() if r.kind == "hue") + 1 + len(rule_set.pairs)
     if wheels > MAX_WHEELS:
