@@ -46,6 +46,7 @@ __all__ = [
     "FORMULA_PREFIXES",
     "json_objects",
     "csv_records",
+    "repeated_name",
 ]
 
 #: The file name that means standard output, in every command that writes one file.
@@ -288,3 +289,14 @@ def csv_records(lines):
             yield reader.line_num, None, f"not readable CSV: {exc}"
 
     return header, records()
+
+
+def repeated_name(header):
+    """The first name a CSV header gives twice, or None: which of the two columns a reader should
+    take cannot be known (an export that repeats a column by mistake), so callers refuse it."""
+    seen = set()
+    for name in header:
+        if name in seen:
+            return name
+        seen.add(name)
+    return None

@@ -56,7 +56,7 @@ from pathlib import Path
 import numpy as np
 
 from harmony.errors import EventsError, HarmonyError
-from harmony.fileio import csv_records, json_objects
+from harmony.fileio import csv_records, json_objects, repeated_name
 
 __all__ = [
     "IMPRESSION_COLUMNS",
@@ -153,6 +153,8 @@ def _raw_rows(path):
                     yield line, obj if problem is None else problem
             else:
                 header, records = csv_records(handle)
+                if repeated_name(header):
+                    raise EventsError(f"{path}:1: column {repeated_name(header)!r} appears twice")
                 missing = [c for c in IMPRESSION_COLUMNS if c not in header]
                 if missing:
                     raise EventsError(f"{path}:1: missing column(s) {', '.join(missing)} "

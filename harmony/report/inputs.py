@@ -8,7 +8,7 @@ import math
 from pathlib import Path
 
 from harmony.errors import HarmonyError
-from harmony.fileio import csv_records, json_objects
+from harmony.fileio import csv_records, json_objects, repeated_name
 
 __all__ = ["FEED_KEYS", "feed_records", "read_feed", "read_evaluation"]
 
@@ -28,7 +28,9 @@ def _jsonl_records(path, text):
 
 
 def _csv_records(path, text):
-    _, records = csv_records(io.StringIO(text, newline=""))
+    header, records = csv_records(io.StringIO(text, newline=""))
+    if repeated_name(header):
+        raise HarmonyError(f"{path}:1: column {repeated_name(header)!r} appears twice")
     for n, row, problem in records:
         if problem:
             raise HarmonyError(f"{path}:{n}: {problem}")

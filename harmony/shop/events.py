@@ -29,7 +29,7 @@ from operator import itemgetter
 from pathlib import Path
 
 from harmony.errors import EventsError
-from harmony.fileio import json_objects
+from harmony.fileio import json_objects, repeated_name
 
 __all__ = [
     "DEFAULT_EVENT_WEIGHTS",
@@ -197,7 +197,7 @@ _FIELDS = ("session", "user", "product", "event", "timestamp")
 
 def _csv_rows(path):
     """``(line, (session, user, product, event, timestamp))`` of each non-blank row, as text
-    stripped at both ends ("" for a missing field; of a column named twice, the last counts), or
+    stripped at both ends ("" for a missing field; a column named twice is refused), or
     ``(line, error)``."""
     with open(path, newline="", encoding="utf-8-sig") as handle:
         reader = csv.reader(handle)
@@ -230,6 +230,8 @@ def _jsonl_rows(path):
 
 
 def _check_header(path, header):
+    if repeated_name(header):
+        raise EventsError(f"{path}: header gives column {repeated_name(header)!r} twice")
     missing = []
     if "session" not in header and "user" not in header:
         missing.append("session (or user)")

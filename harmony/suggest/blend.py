@@ -36,7 +36,7 @@ from pathlib import Path
 import numpy as np
 
 from harmony.errors import HarmonyError
-from harmony.fileio import json_objects, spreadsheet_safe_row, write_text_whole
+from harmony.fileio import json_objects, repeated_name, spreadsheet_safe_row, write_text_whole
 from harmony.shop.catalogue import normalise_category
 from harmony.suggest.ranks import mid_ranks
 from harmony.suggest.rows import PartnerRow
@@ -154,12 +154,14 @@ def _candidate_rows(path):
 
 def _csv_fields(path, text, problems):
     """``(line, product, partner, score, partner_category)`` of each non-blank CSV row, stripped
-    ("" for a missing field; of a column named twice, the last counts), as a list; a row with
+    ("" for a missing field; a column named twice is refused), as a list; a row with
     more fields than the header (an unquoted comma shifts every later field) goes to ``problems``
     as ``(line, reason)``."""
     reader = csv.reader(io.StringIO(text, newline=""))
     try:
         header = [name.strip() for name in next(reader, None) or ()]
+        if repeated_name(header):
+            raise HarmonyError(f"{path}:1: column {repeated_name(header)!r} appears twice")
         column = {name: i for i, name in enumerate(header)}
         missing = [c for c in CANDIDATE_COLUMNS if c not in column]
         if missing:

@@ -225,6 +225,7 @@ def test_a_log_where_nothing_moves_is_refused():
         ("request,product,partner,position,clicked\n", r"no rows"),
         # An unquoted comma in a field shifts the ones after it: refused, not read by name.
         ("request,product,partner,position,clicked\na,P,Rug, round,1,0\n", r"log.csv:2: 6 fields, the header has 5"),
+        ("request,product,partner,position,clicked,position\na,P,x,1,0,2\n", r"log.csv:1: column 'position' appears twice"),
     ],
 )
 def test_bad_rows_are_named(tmp_path, text, message):

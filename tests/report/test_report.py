@@ -318,6 +318,9 @@ def test_read_feed_csv_refuses_a_shifted_row_and_parquet_is_named_when_broken(tm
     path.write_text(header + 'a,sofa,b,rug,1,0.5,"warm, calm",false\n' + "a,sofa,c,rug,2,0.4,warm, calm,false\n")
     with pytest.raises(HarmonyError, match=r"f.csv:3: 9 fields, the header has 8"):
         read_feed(path)
+    path.write_text(header.replace("pinned", "rank") + "a,sofa,b,rug,1,0.5,calm,2\n")
+    with pytest.raises(HarmonyError, match=r"f.csv:1: column 'rank' appears twice"):
+        read_feed(path)
     broken = tmp_path / "f.parquet"
     broken.write_bytes(b"PAR1 this is not parquet")
     with pytest.raises(HarmonyError, match=r"f.parquet: not a readable Parquet feed"):

@@ -163,12 +163,12 @@ def test_unknown_ids_keep_first_appearance_among_equal_counts(tmp_path):
 
 def test_csv_reads_as_the_standard_dict_reader(tmp_path):
     # Reference: the standard library's csv.DictReader over the same text (blank lines skipped,
-    # short rows padded with None, of a column named twice the last one kept, the line a row ends
-    # on), with the header trimmed and case-folded as the module notes say.
+    # short rows padded with None, the line a row ends on), with the header trimmed and
+    # case-folded as the module notes say; a column that is not read (note) is ignored.
     import csv
     import io
 
-    text = (" Product ,USER,event,Session,timestamp,session\n"
+    text = (" Product ,USER,event,note,timestamp,session\n"
             "A,u1,view,s0,2026-03-01T10:00:00Z,s1\n"
             "\n"
             "B,u1,\"pur\nchase\",s0,,s2\n"  # an event over two lines: its own kind
@@ -187,6 +187,14 @@ def test_csv_reads_as_the_standard_dict_reader(tmp_path):
         want.append((session, row["product"].strip(), row["event"].strip().casefold(), stamp, reader.line_num))
     assert [(e.session, e.product, e.event, e.timestamp, e.line) for e in log.events] == want
     assert [e.line for e in log.events] == [2, 5, 6, 7, 10]
+
+
+def test_a_column_named_twice_is_refused(tmp_path):
+    # Which of the two an export meant cannot be known: the header is refused (case and spaces
+    # aside, as the header is read).
+    path = write(tmp_path / "log.csv", "session,product,event,Session\ns,A,view,t\n")
+    with pytest.raises(EventsError, match=r"log.csv: header gives column 'session' twice"):
+        read_events(path)
 
 
 def test_short_and_long_rows_are_named(tmp_path):
