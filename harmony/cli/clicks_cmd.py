@@ -22,19 +22,16 @@ def read_feed_order(path):
         A file that cannot be read, or a row without a whole-number rank (named by line).
     """
     from harmony.errors import HarmonyError
-    from harmony.report.inputs import feed_records
+    from harmony.report.inputs import feed_rank, feed_records
 
     order = {}
     for where, row in feed_records(path):
         if row.get("relation") not in (None, "", "partner"):
             continue
         product, partner = row.get("product"), row.get("partner")
-        try:
-            rank = int(row["rank"])
-            if product in (None, "") or partner in (None, ""):
-                raise ValueError
-        except (KeyError, TypeError, ValueError):
-            raise HarmonyError(f"{where}: needs product, partner and a whole-number rank") from None
+        if product in (None, "") or partner in (None, "") or "rank" not in row:
+            raise HarmonyError(f"{where}: needs product, partner and a whole-number rank")
+        rank = feed_rank(row["rank"], where)
         key = (str(product), str(partner))
         order.setdefault(key, (rank, str(row.get("partner_category") or "")))
     if not order:

@@ -10,7 +10,7 @@ from pathlib import Path
 from harmony.errors import HarmonyError
 from harmony.fileio import csv_records, json_objects, repeated_name
 
-__all__ = ["FEED_KEYS", "feed_records", "read_feed", "read_evaluation"]
+__all__ = ["FEED_KEYS", "feed_records", "feed_rank", "read_feed", "read_evaluation"]
 
 #: Keys every feed row must carry (the feed format of ``harmony feed``); ``pinned`` is optional
 #: (feeds written before curation existed lack it).
@@ -79,6 +79,18 @@ def feed_records(path):
     return _csv_records(path, text) if suffix == ".csv" else _jsonl_records(path, text)
 
 
+def feed_rank(value, where):
+    """A feed row's rank as an int: a whole number from 1 (``3``, ``"3"``, ``3.0``), else a
+    HarmonyError naming ``where``."""
+    try:
+        number = float(str(value).strip()) if not isinstance(value, bool) else math.nan
+    except ValueError:
+        number = math.nan
+    if not (number >= 1 and number.is_integer()):
+        raise HarmonyError(f"{where}: rank must be a whole number from 1, got {value!r}")
+    return int(number)
+
+
 def _pinned(value, where):
     if value is None or isinstance(value, bool):
         return bool(value)
@@ -95,21 +107,22 @@ def read_feed(path):
     Raises
     ------
     HarmonyError
-        ``FILE:LINE: reason`` (``FILE: row N`` for Parquet) for a row that lacks a key or whose
-        score or rank is not a number; an unreadable file or unknown suffix.
+        ``FILE:LINE: reason`` (``FILE: row N`` for Parquet) for a row that lacks a key, whose
+        rank is not a whole number from 1 or whose score is not in [0, 1]; an unreadable file or
+        unknown suffix.
     """
     rows = []
     for where, row in feed_records(path):
         missing = [k for k in FEED_KEYS if k not in row or row[k] is None]
         if missing:
             raise HarmonyError(f"{where}: feed row lacks key {missing[0]!r}")
+        rank = feed_rank(row["rank"], where)
         try:
             score = float(row["score"])
-            rank = int(row["rank"])
         except (TypeError, ValueError):
-            raise HarmonyError(f"{where}: score and rank must be numbers") from None
-        if not math.isfinite(score):
-            raise HarmonyError(f"{where}: score must be finite")
+            raise HarmonyError(f"{where}: score must be a number, got {row['score']!r}") from None
+        if not 0.0 <= score <= 1.0:  # harmony's scores, plain or blended, lie in [0, 1]
+            raise HarmonyError(f"{where}: score must lie in [0, 1], got {row['score']!r}")
         rows.append({**row, "product": str(row["product"]), "partner": str(row["partner"]),
                      "category": str(row["category"]), "partner_category": str(row["partner_category"]),
                      "score": score, "rank": rank, "reason": str(row["reason"]),

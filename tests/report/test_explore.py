@@ -32,7 +32,7 @@ def test_a_feed_without_the_pinned_column_still_reads(tmp_path):
     path.write_text("product,category,partner,partner_category,rank,score,reason\nS1,sofa,R1,rug,1,0.5,x\n")
     assert read_feed(path)[0]["pinned"] is False
     path.write_text("product,category,partner,partner_category,rank,score,reason\nS1,sofa,R1,rug,one,0.5,x\n")
-    with pytest.raises(HarmonyError, match=r"old.csv:2: score and rank must be numbers"):
+    with pytest.raises(HarmonyError, match=r"old.csv:2: rank must be a whole number from 1, got .one."):
         read_feed(path)
 
 

@@ -301,7 +301,14 @@ def test_write_report(report, tmp_path):
         ('{"product": "a"}\n', r"f.jsonl:1: feed row lacks key 'category'"),
         ("\n[1, 2]\n", r"f.jsonl:2: a feed row must be a JSON object"),
         ('{"product": "a", "category": "c", "partner": "b", "partner_category": "d", "rank": 1, '
-         '"score": "high", "reason": ""}\n', r"f.jsonl:1: score and rank must be numbers"),
+         '"score": "high", "reason": ""}\n', r"f.jsonl:1: score must be a number, got 'high'"),
+        # A rank counts slots from 1 (a whole number); harmony's scores lie in [0, 1].
+        ('{"product": "a", "category": "c", "partner": "b", "partner_category": "d", "rank": 1.5, '
+         '"score": 0.5, "reason": ""}\n', r"f.jsonl:1: rank must be a whole number from 1, got 1.5"),
+        ('{"product": "a", "category": "c", "partner": "b", "partner_category": "d", "rank": 0, '
+         '"score": 0.5, "reason": ""}\n', r"f.jsonl:1: rank must be a whole number from 1, got 0"),
+        ('{"product": "a", "category": "c", "partner": "b", "partner_category": "d", "rank": 2, '
+         '"score": -0.1, "reason": ""}\n', r"f.jsonl:1: score must lie in \[0, 1\], got -0.1"),
     ],
 )
 def test_read_feed_errors(tmp_path, text, message):
