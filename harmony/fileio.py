@@ -39,6 +39,7 @@ __all__ = [
     "write_whole",
     "write_text_whole",
     "write_bytes_whole",
+    "check_writable",
     "output_target",
     "sweep_stale_parts",
     "spreadsheet_safe",
@@ -167,17 +168,7 @@ def write_whole(path, write, what="file"):
         _write_stdout(write)
         return STDOUT
     given = Path(path)
-    target = output_target(given, what)
-    folder = target.parent if str(target.parent) else Path(".")
-    try:
-        folder.mkdir(parents=True, exist_ok=True)
-        sweep_stale_parts(target)
-        fd, tmp = tempfile.mkstemp(
-            prefix=f".{target.name}.{os.getpid()}~{_host_tag()}.", suffix=".part", dir=folder
-        )
-        os.close(fd)
-    except OSError as exc:
-        raise HarmonyError(f"{given}: cannot write the {what}: {exc.strerror or exc}") from None
+    target, tmp = _temp_beside(given, what)
     try:
         write(tmp)
         # mkstemp makes the file private (0600); give it the mode a plain open() would have had,
@@ -191,6 +182,32 @@ def write_whole(path, write, what="file"):
             raise HarmonyError(f"{given}: cannot write the {what}: {reason}") from None
         raise
     return given
+
+
+def check_writable(path, what="file"):
+    """Fail now, as :func:`write_whole` would at the end, when ``path`` cannot be written (a
+    folder that cannot be made, no permission, a full disk): for commands that work long before
+    they write. Makes missing parent folders, as the write would; ``-`` always passes."""
+    if not is_stdout(path):
+        _, tmp = _temp_beside(Path(path), what)
+        Path(tmp).unlink(missing_ok=True)
+
+
+def _temp_beside(given, what):
+    """(the file to replace, a new empty temporary file beside it); parent folders made, stale
+    temporary files of a killed run removed; a one-line HarmonyError when that fails."""
+    target = output_target(given, what)
+    folder = target.parent if str(target.parent) else Path(".")
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        sweep_stale_parts(target)
+        fd, tmp = tempfile.mkstemp(
+            prefix=f".{target.name}.{os.getpid()}~{_host_tag()}.", suffix=".part", dir=folder
+        )
+        os.close(fd)
+    except OSError as exc:
+        raise HarmonyError(f"{given}: cannot write the {what}: {exc.strerror or exc}") from None
+    return target, tmp
 
 
 def _target_mode(path):

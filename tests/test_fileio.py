@@ -146,3 +146,18 @@ def test_csv_records_name_an_unreadable_row_and_stop():
     assert got[0] == (2, {"a": "1", "b": "2"}, None)
     assert got[1][0] == 3 and got[1][1] is None and got[1][2].startswith("not readable CSV: field larger")
     assert len(got) == 2
+
+
+def test_check_writable_fails_early_and_leaves_nothing(tmp_path):
+    # The same one-line error write_text_whole gives at the end; nothing is left behind.
+    from harmony.fileio import check_writable
+
+    blocker = tmp_path / "a-file"
+    blocker.write_text("x")
+    with pytest.raises(HarmonyError, match=r"a-file/t.toml: cannot write the tuned rules file: "):
+        check_writable(blocker / "t.toml", "tuned rules file")
+    with pytest.raises(HarmonyError, match=r"a-file/t.toml: cannot write the tuned rules file: "):
+        write_text_whole(blocker / "t.toml", "x", "tuned rules file")
+    check_writable(tmp_path / "new" / "t.toml", "tuned rules file")
+    assert sorted(p.name for p in tmp_path.rglob("*")) == ["a-file", "new"]  # the folder made, no file
+    check_writable("-")  # standard output

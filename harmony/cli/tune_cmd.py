@@ -37,7 +37,7 @@ def tune_command(events, rules_in, out, db, split, seed, resamples, progress):
 
     from harmony.errors import HarmonyError, StoreError
     from harmony.evaluation.tune import tune_note, tune_rules, tuned_rules_text
-    from harmony.fileio import write_text_whole
+    from harmony.fileio import check_writable, write_text_whole
     from harmony.resources import DEFAULT_RULES
     from harmony.rules import load_rules
     from harmony.shop.events import read_events
@@ -47,6 +47,7 @@ def tune_command(events, rules_in, out, db, split, seed, resamples, progress):
         shipped = Path(DEFAULT_RULES).parent
         if _same_file(out, rules_in) or any(_same_file(out, p) for p in shipped.glob("*.toml")):
             raise HarmonyError(f"--out: {out} is the input or a shipped rules file; tune writes a new file and never changes those")
+    check_writable(out, "tuned rules file")  # now, not after the fit
     if progress is None:
         progress = sys.stderr.isatty()
     rules = load_rules(rules_in)
