@@ -25,7 +25,8 @@ def load_curation_for(path, store):
     from harmony.suggest.curation import load_curation, unknown_product_warnings
 
     curation = load_curation(path)
-    for message in unknown_product_warnings(curation, [p.id for p in store.products()], store.categories()):
+    for message in unknown_product_warnings(curation, {p.id: p.category_key for p in store.products()},
+                                            store.categories()):
         _warn(message)
     return curation
 

@@ -344,7 +344,8 @@ class LiveStore:
 
         curation = load_curation(path)
         snap = self.snapshot
-        for message in unknown_product_warnings(curation, list(snap._products), snap.categories()):
+        products = {pid: p.category_key for pid, p in snap._products.items()}
+        for message in unknown_product_warnings(curation, products, snap.categories()):
             log.warning("%s", message.replace(str(path), os.path.basename(str(path))))
         return curation
 

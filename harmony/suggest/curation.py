@@ -45,6 +45,7 @@ import difflib
 import hashlib
 import math
 import tomllib
+from collections.abc import Mapping
 from pathlib import Path
 
 from harmony.errors import HarmonyError
@@ -300,8 +301,10 @@ def load_curation(path):
 
 def unknown_product_warnings(curation, product_ids, categories=()):
     """One message per pin, block or category pair naming a product (or category) the store does
-    not hold."""
+    not hold; with ``product_ids`` a mapping of id to normalised category, also per pin joining
+    two products of one category (the feed pairs different categories, so it never shows)."""
     ids = set(product_ids)
+    category_of = product_ids if isinstance(product_ids, Mapping) else {}
     cats = set(categories)
     out = []
 
@@ -321,6 +324,10 @@ def unknown_product_warnings(curation, product_ids, categories=()):
     for p in curation.pins:
         check(p.product, p.line, "pin")
         check(p.partner, p.line, "pin")
+        cat = category_of.get(p.product)
+        if cat is not None and cat == category_of.get(p.partner):
+            out.append(f"{curation.path}:{p.line}: pin {p.product} -> {p.partner}: both are {cat}; the feed pairs "
+                       "products of different categories, so the pin is ignored")
     for b in curation.blocks:
         check(b.product, b.line, "block")
         if b.partner is not None:

@@ -91,6 +91,12 @@ def test_unknown_products_are_warnings_with_lines():
         "cur.toml:14: block names category 'cushion', which the store has none of",
         "cur.toml:18: category_pair names category 'armchair', which the store has none of",
     ]
+    # With each product's category known, a pin inside one category is named: the feed only
+    # pairs different categories.
+    out = unknown_product_warnings(c, {"S1": "sofa", "R9": "sofa", "R1": "rug", "D1": "desk"},
+                                   ["sofa", "rug", "desk", "armchair", "cushion"])
+    assert out == ["cur.toml:5: pin S1 -> R9: both are sofa; the feed pairs products of different categories, "
+                   "so the pin is ignored"]
     # A category misspelt (the store says "desks"): the closest name is offered (difflib).
     out = unknown_product_warnings(c, ["S1", "R1", "R9", "D1"], ["sofa", "rug", "desks", "armchair", "cushion"])
     assert out == ["cur.toml:18: category_pair names category 'desk', which the store has none of "
