@@ -1,5 +1,6 @@
 """``harmony score A B``: the exact harmony score of two products, with its reason."""
 
+import difflib
 import json
 import math
 from pathlib import Path
@@ -52,6 +53,12 @@ def score(a, b, rules_file, categories, as_json):
         if len(parts) != 2 or not all(parts):
             raise HarmonyError(f"--categories: expected two names separated by a comma, got {categories!r}")
         pair_rules = rule_set.for_pair(*parts)
+        known = rule_set.categories
+        for name in pair_rules.categories:  # normalised
+            close = difflib.get_close_matches(name, known, n=1) if name not in known else []
+            if close:
+                click.echo(f"note: {rules_file} has no pair section naming '{name}' (did you mean "
+                           f"'{close[0]}'?); the [default] rules apply to it", err=True)
     pal_a = read_palette(a)
     pal_b = read_palette(b)
     result = pair_score(pal_a, pal_b, pair_rules)

@@ -183,6 +183,16 @@ def test_score_of_a_pair_the_rules_never_score(runner, palettes):
     assert json.loads(result.stdout)["scored"] is True and result.stderr == ""
 
 
+def test_score_names_a_category_no_pair_section_knows(runner, palettes):
+    # "rugs" is in no section of rules/default.toml, "rug" is: the [default] rules would score
+    # the pair, so the command says which name was probably meant (difflib).
+    rug, sofa = palettes
+    result = runner.invoke(main, ["score", str(rug), str(sofa), "--categories", "rugs,sofa", "--json"])
+    assert result.exit_code == 0, result.stderr
+    assert "has no pair section naming 'rugs' (did you mean 'rug'?)" in result.stderr
+    assert json.loads(result.stdout)["section"] == "default"
+
+
 def test_rules_show_to_standard_output_writes_the_png_only(tmp_path):
     from harmony.resources import DEFAULT_RULES
 
