@@ -138,5 +138,10 @@ def write_feed_stream(store, rules, path, fmt=None, *, top=10, targets=None, div
             products.update(chunk.product)
             yield chunk
 
-    written, rows = write_chunks(counted(), path, fmt)
+    try:
+        written, rows = write_chunks(counted(), path, fmt)
+    finally:  # stopped (a signal, a full disk): the worker processes go now, not when collected
+        close = getattr(chunks, "close", None)
+        if close is not None:
+            close()
     return written, rows, len(products)
