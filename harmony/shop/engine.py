@@ -452,8 +452,7 @@ def run_extraction(
         finally:
             bar.close()
         with_palette, scene_only = store.coverage()
-        listed = {p.id for p in cat.products}
-        kept = sum(1 for p in store.products() if p.id not in listed)  # skipped rows' stored products
+        kept = len(store) - len(cat.products)  # the stored products of skipped rows
         no_palette = len(cat.products) + kept - with_palette
         distinct = len({info.sha256 for info in hashes.values() if info.sha256 is not None})
     return ExtractionSummary(
