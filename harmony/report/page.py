@@ -30,7 +30,6 @@ from harmony.report.safety import (
     is_floor_covering,
     required_difference,
     stands_on_floor,
-    surface_lrv,
     surface_lrvs,
 )
 from harmony.report.explore import curation_changes, explorer_json, group_flags, made_by, plural
@@ -267,13 +266,13 @@ def _palette_colours(palettes):
     return {i: (codes[end - n: end], lrv) for i, n, end, lrv in zip(ids, sizes, ends, lrvs)}
 
 
-def _product_view(product, palette, image_path, thumbnails=True, known=None):
+def _product_view(product, palette, image_path, thumbnails, known):
     """``known``: the palette's (colour codes, surface LRV) from :func:`_palette_colours`."""
     strip = Markup("")
     colours = ()
     lrv = None
     if palette is not None:
-        codes, lrv = known if known is not None else (palette.hex, surface_lrv(palette))
+        codes, lrv = known
         strip = Markup(palette_strip_svg(palette, label=f"palette of {product.title}", codes=codes))
         colours = tuple((code, float(w)) for code, w in zip(codes, palette.weights))
     flags = []
