@@ -60,7 +60,7 @@ def refuse_other_suffix(path, suffixes, what):
         return
     suffix = os.path.splitext(str(path))[1].lower()
     if suffix and suffix not in suffixes:
-        raise HarmonyError(f"{path}: {what} is written as {suffixes[0]}, not {suffix} (name the file {suffixes[0]})")
+        raise HarmonyError(f"{path}: {suffix} is not a name for {what} (use {' or '.join(suffixes)})")
 
 
 def _on_sigterm(signum, frame):

@@ -11,7 +11,7 @@ from harmony.errors import HarmonyError
 from harmony.fileio import is_stdout, spreadsheet_safe_row
 from harmony.shop import DEFAULT_DB_NAME, ENGINES, MAX_REMOVAL
 
-from . import FiniteRange, fail, main
+from . import FiniteRange, fail, main, refuse_other_suffix
 
 __all__ = ["extract", "palettes", "PALETTE_CSV_COLUMNS", "SHOWN_FAILURES"]
 
@@ -118,12 +118,9 @@ def palettes(db_path, fmt, out_path):
     """
     from harmony.fileio import write_text_whole
     from harmony.shop.store import Store
-    suffix = Path(out_path).suffix.lower() if out_path and out_path != "-" else ""
     if fmt is None:
-        if suffix not in ("", ".csv", ".jsonl", ".ndjson"):
-            raise HarmonyError(f"{out_path}: palettes are written as JSONL or CSV, not '{suffix}' "
-                               "(name the file .jsonl or .csv, or give --format)")
-        fmt = "csv" if suffix == ".csv" else "jsonl"
+        refuse_other_suffix(out_path, (".jsonl", ".ndjson", ".csv"), "palettes written without --format")
+        fmt = "csv" if out_path and Path(out_path).suffix.lower() == ".csv" else "jsonl"
     writer = _csv if fmt == "csv" else _jsonl
     with Store(db_path) as store:
         missing = len(store) - len(store.palettes())

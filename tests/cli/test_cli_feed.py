@@ -229,7 +229,7 @@ def test_palettes_refuse_an_output_name_of_another_format(db, tmp_path):
     # Writing JSON Lines into a file named .parquet or .json would mislead the next reader.
     for name in ("p.parquet", "p.json"):
         res = run("palettes", "--db", db, "--out", tmp_path / name)
-        assert res.exit_code == 2 and "palettes are written as JSONL or CSV" in res.output
+        assert res.exit_code == 2 and "is not a name for palettes written without --format (use .jsonl" in res.output
         assert not (tmp_path / name).exists()
     assert run("palettes", "--db", db, "--out", tmp_path / "p.txt", "--format", "csv").exit_code == 0
     assert (tmp_path / "p.txt").read_text().startswith("product,")

@@ -8,10 +8,10 @@ from harmony.cli import main
 from harmony.resources import DEFAULT_RULES
 
 CASES = [
-    (["rules", "show", str(DEFAULT_RULES), "--out", "w.jpg"], "w.jpg: the picture is written as .png, not .jpg"),
-    (["report", "--db", "x.db", "--out", "r.pdf"], "r.pdf: the report is written as .html, not .pdf"),
-    (["evaluate", "--db", "x.db", "--events", "e.csv", "--out", "e.txt"], "e.txt: the evaluation page is written as .html"),
-    (["clicks", "--impressions", "i.csv", "--out", "c.png"], "c.png: the page is written as .html, not .png"),
+    (["rules", "show", str(DEFAULT_RULES), "--out", "w.jpg"], "w.jpg: .jpg is not a name for the picture (use .png)"),
+    (["report", "--db", "x.db", "--out", "r.pdf"], "r.pdf: .pdf is not a name for the report (use .html or .htm)"),
+    (["evaluate", "--db", "x.db", "--events", "e.csv", "--out", "e.txt"], "e.txt: .txt is not a name for the evaluation page (use .html or .htm)"),
+    (["clicks", "--impressions", "i.csv", "--out", "c.png"], "c.png: .png is not a name for the page (use .html or .htm)"),
 ]
 
 
