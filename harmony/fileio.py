@@ -59,7 +59,8 @@ def is_stdout(path):
     return str(path) == STDOUT
 
 
-#: Bytes per write when a finished output is copied to standard output (a pipe holds 64 KiB).
+#: Bytes per write when a finished output is copied to standard output: a Linux pipe's default
+#: capacity, 64 KiB (pipe(7)).
 _STDOUT_PIECE = 1 << 16
 
 
@@ -283,7 +284,8 @@ def csv_records(lines):
     ``(header, records)``: the header's names, stripped ([] for empty text), and an iterator of
     ``(line number, record, problem)`` for each non-blank row, like :func:`json_objects`.
     ``record`` maps each name to its field (a row shorter than the header lacks the last names;
-    of a name given twice, the last field counts) and ``problem`` is None, or ``record`` is None
+    callers refuse a header naming a column twice, see :func:`repeated_name`) and ``problem`` is
+    None, or ``record`` is None
     and ``problem`` says why: a row with more fields than the header (an unquoted comma shifts
     every later field, so no field of it can be trusted) or one the csv module cannot read,
     after which reading stops. The line number is the row's last physical line.
