@@ -312,9 +312,12 @@ def csv_records(lines):
 
 def repeated_name(header):
     """The first name a CSV header gives twice, or None: which of the two columns a reader should
-    take cannot be known (an export that repeats a column by mistake), so callers refuse it."""
+    take cannot be known (an export that repeats a column by mistake), so callers refuse it.
+    Empty names are never read (a spreadsheet's trailing empty columns) and may repeat."""
     seen = set()
     for name in header:
+        if not name:
+            continue
         if name in seen:
             return name
         seen.add(name)

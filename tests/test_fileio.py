@@ -161,3 +161,13 @@ def test_check_writable_fails_early_and_leaves_nothing(tmp_path):
     check_writable(tmp_path / "new" / "t.toml", "tuned rules file")
     assert sorted(p.name for p in tmp_path.rglob("*")) == ["a-file", "new"]  # the folder made, no file
     check_writable("-")  # standard output
+
+
+def test_repeated_name_finds_a_column_given_twice_and_lets_empty_ones_be():
+    # Both sides: a repeated name is found; the empty names of a spreadsheet's trailing empty
+    # columns ("a,b,,") are never read, and do not make the header refused.
+    from harmony.fileio import repeated_name
+
+    assert repeated_name(["product", "rank", "score", "rank"]) == "rank"
+    assert repeated_name(["product", "rank", "", ""]) is None
+    assert repeated_name(["product", "rank"]) is None

@@ -153,8 +153,8 @@ def _raw_rows(path):
                     yield line, obj if problem is None else problem
             else:
                 header, records = csv_records(handle)
-                if repeated_name(header):
-                    raise EventsError(f"{path}:1: column {repeated_name(header)!r} appears twice")
+                if (twice := repeated_name(header)) is not None:
+                    raise EventsError(f"{path}:1: column {twice!r} appears twice")
                 missing = [c for c in IMPRESSION_COLUMNS if c not in header]
                 if missing:
                     raise EventsError(f"{path}:1: missing column(s) {', '.join(missing)} "

@@ -29,8 +29,8 @@ def _jsonl_records(path, text):
 
 def _csv_records(path, text):
     header, records = csv_records(io.StringIO(text, newline=""))
-    if repeated_name(header):
-        raise HarmonyError(f"{path}:1: column {repeated_name(header)!r} appears twice")
+    if (twice := repeated_name(header)) is not None:
+        raise HarmonyError(f"{path}:1: column {twice!r} appears twice")
     for n, row, problem in records:
         if problem:
             raise HarmonyError(f"{path}:{n}: {problem}")

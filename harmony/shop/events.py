@@ -230,8 +230,8 @@ def _jsonl_rows(path):
 
 
 def _check_header(path, header):
-    if repeated_name(header):
-        raise EventsError(f"{path}: header gives column {repeated_name(header)!r} twice")
+    if (twice := repeated_name(header)) is not None:
+        raise EventsError(f"{path}: header gives column {twice!r} twice")
     missing = []
     if "session" not in header and "user" not in header:
         missing.append("session (or user)")

@@ -160,8 +160,8 @@ def _csv_fields(path, text, problems):
     reader = csv.reader(io.StringIO(text, newline=""))
     try:
         header = [name.strip() for name in next(reader, None) or ()]
-        if repeated_name(header):
-            raise HarmonyError(f"{path}:1: column {repeated_name(header)!r} appears twice")
+        if (twice := repeated_name(header)) is not None:
+            raise HarmonyError(f"{path}:1: column {twice!r} appears twice")
         column = {name: i for i, name in enumerate(header)}
         missing = [c for c in CANDIDATE_COLUMNS if c not in column]
         if missing:
