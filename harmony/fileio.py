@@ -48,6 +48,7 @@ __all__ = [
     "json_objects",
     "csv_records",
     "repeated_name",
+    "shifted",
 ]
 
 #: The file name that means standard output, in every command that writes one file.
@@ -286,8 +287,9 @@ def csv_records(lines):
     ``record`` maps each name to its field (a row shorter than the header lacks the last names;
     callers refuse a header naming a column twice, see :func:`repeated_name`) and ``problem`` is
     None, or ``record`` is None
-    and ``problem`` says why: a row with more fields than the header (an unquoted comma shifts
-    every later field, so no field of it can be trusted) or one the csv module cannot read,
+    and ``problem`` says why: a row with text past the header's columns (:func:`shifted`: an
+    unquoted comma shifts every later field, so no field of it can be trusted) or one the csv
+    module cannot read,
     after which reading stops. The line number is the row's last physical line.
     """
     reader = csv.reader(lines)
@@ -300,7 +302,7 @@ def csv_records(lines):
         width = len(header)
         try:
             for row in reader:
-                if len(row) > width:
+                if shifted(row, width):
                     yield reader.line_num, None, f"{len(row)} fields, the header has {width}"
                 elif row:
                     yield reader.line_num, dict(zip(header, row)), None
@@ -308,6 +310,12 @@ def csv_records(lines):
             yield reader.line_num, None, f"not readable CSV: {exc}"
 
     return header, records()
+
+
+def shifted(row, width):
+    """Whether a CSV row holds text past the header's ``width`` columns: an unquoted comma has
+    shifted its fields. Empty fields past it (a spreadsheet's trailing empty cells) do not count."""
+    return len(row) > width and any(field.strip() for field in row[width:])
 
 
 def repeated_name(header):

@@ -171,3 +171,15 @@ def test_repeated_name_finds_a_column_given_twice_and_lets_empty_ones_be():
     assert repeated_name(["product", "rank", "score", "rank"]) == "rank"
     assert repeated_name(["product", "rank", "", ""]) is None
     assert repeated_name(["product", "rank"]) is None
+
+
+def test_csv_records_let_trailing_empty_cells_be_and_refuse_text_past_the_header():
+    # Both sides of the shifted-row check: a spreadsheet's trailing empty cells past the header
+    # carry nothing and are read as the row without them; any text past the header is refused.
+    import io
+
+    from harmony.fileio import csv_records
+
+    _, records = csv_records(io.StringIO("a,b\n1,2,,\n3,4, \n5,6,x\n", newline=""))
+    assert list(records) == [(2, {"a": "1", "b": "2"}, None), (3, {"a": "3", "b": "4"}, None),
+                             (4, None, "3 fields, the header has 2")]

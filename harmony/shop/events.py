@@ -29,7 +29,7 @@ from operator import itemgetter
 from pathlib import Path
 
 from harmony.errors import EventsError
-from harmony.fileio import json_objects, repeated_name
+from harmony.fileio import json_objects, repeated_name, shifted
 
 __all__ = [
     "DEFAULT_EVENT_WEIGHTS",
@@ -211,7 +211,7 @@ def _csv_rows(path):
         # Each row is padded with "" to width + 1 fields: a missing column reads the last.
         pick = itemgetter(*(column.get(name, width) for name in _FIELDS))
         for row in reader:
-            if len(row) > width:
+            if shifted(row, width):
                 yield reader.line_num, "more fields than the header has"
             elif row:
                 row += [""] * (width + 1 - len(row))

@@ -36,7 +36,7 @@ from pathlib import Path
 import numpy as np
 
 from harmony.errors import HarmonyError
-from harmony.fileio import json_objects, repeated_name, spreadsheet_safe_row, write_text_whole
+from harmony.fileio import json_objects, repeated_name, shifted, spreadsheet_safe_row, write_text_whole
 from harmony.shop.catalogue import normalise_category
 from harmony.suggest.ranks import mid_ranks
 from harmony.suggest.rows import PartnerRow
@@ -170,7 +170,7 @@ def _csv_fields(path, text, problems):
         product, partner, score, category = at
         longest, width, out = max(at), len(header), []
         for row in reader:
-            if len(row) > width:
+            if shifted(row, width):
                 problems.append((reader.line_num, f"{len(row)} fields, the header has {width}"))
             elif len(row) > longest:  # every column present
                 out.append((reader.line_num, row[product].strip(), row[partner].strip(), row[score].strip(),

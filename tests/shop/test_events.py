@@ -201,3 +201,13 @@ def test_short_and_long_rows_are_named(tmp_path):
     path = write(tmp_path / "log.csv", "session,product,event\ns,A\ns,B,view,x\n\ns,C,view\n")
     with pytest.raises(EventsError, match=r"2 bad rows: line 2: empty event; line 3: more fields than the header has$"):
         read_events(path)
+
+
+def test_trailing_empty_cells_past_the_header_are_read_and_text_there_is_refused(tmp_path):
+    # Spreadsheets often save empty cells past the last named column ("s,A,view,,"): those rows
+    # read as without them; a row with text there has shifted fields and is named.
+    path = write(tmp_path / "log.csv", "session,product,event\ns,A,view,,\ns,B,cart, \n")
+    assert [(e.product, e.event) for e in read_events(path).events] == [("A", "view"), ("B", "cart")]
+    path = write(tmp_path / "log.csv", "session,product,event\ns,A,view,,x\n")
+    with pytest.raises(EventsError, match=r"line 2: more fields than the header has"):
+        read_events(path)
