@@ -36,13 +36,30 @@ def start_worker(parent_pid, close_fds=()):
         os._exit(1)
 
 
+#: Seconds to wait for a killed worker to be gone.
+_KILL_WAIT = 10.0
+
+
 def kill_workers(pool):
-    """Kill the worker processes of a ProcessPoolExecutor now, running tasks and all."""
+    """Kill the worker processes of a ProcessPoolExecutor now, running tasks and all, so that
+    ``pool.shutdown(wait=True)`` returns at once."""
     # ProcessPoolExecutor has no public way to stop running tasks; its worker table is
     # ``_processes`` (CPython 3.8+). Without it the workers still die with this process.
-    for process in list((getattr(pool, "_processes", None) or {}).values()):
+    processes = list((getattr(pool, "_processes", None) or {}).values())
+    for process in processes:
         with contextlib.suppress(Exception):
             process.kill()
+    for process in processes:
+        with contextlib.suppress(Exception):
+            process.join(_KILL_WAIT)
+    # A worker killed while it sent a result leaves half a message in the result pipe, and the
+    # pool's manager thread would wait for the rest for ever (and shutdown, and the interpreter's
+    # exit, for that thread). With every writer gone (the workers dead, this process's copy
+    # closed: ``_result_queue._writer``, CPython 3.8+) it reads end-of-file instead and stops.
+    writer = getattr(getattr(pool, "_result_queue", None), "_writer", None)
+    if writer is not None:
+        with contextlib.suppress(Exception):
+            writer.close()
 
 
 def _ask_kernel_for_parent_death():

@@ -19,7 +19,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "suggest"))
 from test_feed import make_store, random_palettes  # noqa: E402
 
 #: Trials: (signal) each this many times.
-TRIALS_EACH = 6
+TRIALS_EACH = 10
 #: Seconds a stopped feed may take to end; far more than it needs (a hang fails the test).
 STOP_LIMIT = 60
 
