@@ -375,36 +375,36 @@ def backdrop_model(jab, ring, usable, tolerance, iterations=3):
     return np.moveaxis(surface, 0, -1), residual, inlier
 
 
-def _strip_sum(strip, axis):
-    """``np.add.reduce(strip, axis)``. numpy adds a short strided last axis (under 8) in order,
-    one column after another, which is slow; the same additions as whole columns are fast."""
-    if axis != strip.ndim - 1 or not 1 < strip.shape[axis] < 8:
-        return np.add.reduce(strip, axis=axis)
-    total = strip[..., 0] + strip[..., 1]
-    for i in range(2, strip.shape[axis]):
-        total += strip[..., i]
-    return total
+@lru_cache(maxsize=16)
+def _ring_sides(h, w, width):
+    """Flat pixel indices of the ring's four sides as two (index, length) pairs: top and bottom
+    rows, shape (2, width, w), then left and right columns, shape (2, width, h)."""
+    flat = np.arange(h * w).reshape(h, w)
+    sides = ((np.stack([flat[:width], flat[-width:]]), w),
+             (np.stack([flat[:, :width].T, flat[:, -width:].T]), h))
+    for index, _ in sides:
+        index.setflags(write=False)
+    return sides
 
 
 def _ring_steps(planes, surface, width, tolerance):
     """Largest ΔE between backdrop-like points 4 px apart along the four sides of the ring
     (``planes`` and ``surface`` shape (3, h, w)).
 
-    Each side's profile is its mean across the ring's width (``mean`` as numpy takes it: the sum,
-    then one division); sides of one length are taken together."""
+    Each side's profile is its mean across the ring's width; sides of one length are gathered
+    and taken together."""
     h, w = planes.shape[1:]
+    flat_planes, flat_surface = planes.reshape(3, -1), surface.reshape(3, -1)
     worst = 0.0
-    for across, length in ((1, w), (2, h)):  # top and bottom rows, then left and right columns
+    for index, length in _ring_sides(h, w, width):
         if length < 6:
             continue
-        ends = (np.s_[:, :width], np.s_[:, -width:]) if across == 1 else (np.s_[:, :, :width], np.s_[:, :, -width:])
-        count = planes[ends[0]].shape[across]
-        profile = np.stack([_strip_sum(planes[end], across) for end in ends]) / count
-        model = np.stack([_strip_sum(surface[end], across) for end in ends]) / count
-        ok = np.sqrt(((profile - model) ** 2).sum(axis=1)) <= tolerance
+        profile = flat_planes.take(index, axis=1).mean(axis=2)  # (3, 2, length)
+        model = flat_surface.take(index, axis=1).mean(axis=2)
+        ok = np.sqrt(((profile - model) ** 2).sum(axis=0)) <= tolerance
         both = ok[:, 4:] & ok[:, :-4]
         if both.any():
-            step = ((profile[:, :, 4:] - profile[:, :, :-4]) ** 2).sum(axis=1)
+            step = ((profile[..., 4:] - profile[..., :-4]) ** 2).sum(axis=0)
             worst = max(worst, float(np.sqrt(step[both].max())))
     return worst
 

@@ -31,12 +31,12 @@ def basis(y, x):
 
 
 @lru_cache(maxsize=16)
-def grid_basis(h, w):
+def grid_basis(h, w, dtype=np.float64):
     """:func:`basis` at every pixel of an (h, w) image, transposed: shape (6, h * w), read-only
     (one row per basis function, so the surface comes out as channel planes)."""
     y = np.linspace(-0.5, 0.5, h)[:, None] * np.ones((1, w))
     x = np.ones((h, 1)) * np.linspace(-0.5, 0.5, w)[None, :]
-    grid = np.ascontiguousarray(basis(y, x).reshape(-1, 6).T)
+    grid = np.ascontiguousarray(basis(y, x).reshape(-1, 6).T, dtype=dtype)
     grid.setflags(write=False)
     return grid
 
@@ -52,15 +52,20 @@ def ring_basis(h, w, width):
     return index, design
 
 
-def median_rows(x):
+def median_rows(x, dtype=None):
     """``np.median(x, axis=-1)`` of finite values through one partition (the same bits: the mean
-    of the middle pair is their sum, plus 0.0 as numpy's sum starts from it, halved)."""
+    of the middle pair is their sum, plus 0.0 as numpy's sum starts from it, halved). With
+    ``dtype``, the middle values are taken in that type first (float32 values partitioned as
+    stored, averaged in float64: the median of their float64 copies)."""
     n = x.shape[-1]
     half = n // 2
     if n % 2:
-        return np.partition(x, half, axis=-1)[..., half] + 0.0
+        return np.partition(x, half, axis=-1)[..., half].astype(dtype or x.dtype) + 0.0
     part = np.partition(x, (half - 1, half), axis=-1)
-    return (part[..., half - 1] + part[..., half] + 0.0) / 2
+    lo, hi = part[..., half - 1], part[..., half]
+    if dtype is not None:
+        lo, hi = lo.astype(dtype), hi.astype(dtype)
+    return (lo + hi + 0.0) / 2
 
 
 _RIDGE = {cols: 1e-9 * np.eye(cols) for cols in (3, 6)}  # keeps the normal equations regular
@@ -70,15 +75,17 @@ def fit_surface(planes, index, design, tolerance, iterations):
     """The fit of :func:`backdrop_model` on the ring pixels ``index`` (flat) with basis rows
     ``design``; returns the surface as planes, shape (3, h, w), float like ``planes``.
 
-    The fitted ring colours come from the same matrix products in either orientation (one
-    product per element, the same bits), here as planes; the median start is the constant
-    itself (``design @ coef`` with only the first row gives it exactly)."""
+    The ring colours sit beside their basis rows in one matrix, so one product of its inlier
+    rows gives both sides of the normal equations. The median start is the constant itself."""
     h, w = planes.shape[1:]
-    pts_planes = planes.reshape(3, -1).take(index, axis=1).astype(float)
-    pts = np.ascontiguousarray(pts_planes.T)  # rows, for the solves
+    stored = planes.reshape(3, -1).take(index, axis=1)
+    pts_planes = stored.astype(float)
+    joined = np.empty((len(index), 9))
+    joined[:, :6] = design
+    joined[:, 6:] = pts_planes.T
     design_planes = np.ascontiguousarray(design.T)
     coef = np.zeros((6, 3))
-    coef[0] = median_rows(pts_planes)
+    coef[0] = median_rows(stored, float)
     fitted = None  # the inliers of the last full (quadratic) fit
     for it in range(iterations + 1):
         if it == 0:
@@ -95,15 +102,14 @@ def fit_surface(planes, index, design, tolerance, iterations):
         if fitted is not None and np.array_equal(inlier, fitted):
             break  # a fixed point: every further fit gives the same coefficients
         cols = 3 if it == 0 else 6
-        rows = np.flatnonzero(inlier)
-        a = design.take(rows, axis=0)[:, :cols]
-        sol = np.linalg.solve(a.T @ a + _RIDGE[cols], a.T @ pts.take(rows, axis=0))  # normal equations
+        rows = joined if inlier.all() else joined[inlier]
+        normal = rows.T @ rows
         coef = np.zeros((6, 3))
-        coef[:cols] = sol
+        coef[:cols] = np.linalg.solve(normal[:cols, :cols] + _RIDGE[cols], normal[:cols, 6:])
         if cols == 6:
             fitted = inlier
-    surface = np.empty((3, h * w), dtype=planes.dtype)
-    surface[...] = np.dot(np.ascontiguousarray(coef.T), grid_basis(h, w))
+    dtype = planes.dtype if planes.dtype in (np.float32, np.float64) else np.float64
+    surface = np.dot(coef.T.astype(dtype), grid_basis(h, w, dtype)).astype(planes.dtype, copy=False)
     return surface.reshape(3, h, w), residual, inlier
 
 
