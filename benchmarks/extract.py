@@ -6,6 +6,12 @@ Prints a table and, as its last line, one JSON object with ``images_per_s``,
 with, :func:`harmony.photo.image.decode_image` at the working size), all measured in this run.
 Targets: at least 200 images/s and at most 3x the draft-mode decode.
 
+Extraction is timed twice: with the numpy steps (``numpy_*`` in the JSON), which small jobs
+run, and with the compiled kernels (numba, :mod:`harmony.photo.kernels`), which extraction
+jobs of at least ``COMPILED_MIN_IMAGES`` images load; the targets are judged on the latter.
+Both give the same palettes (``tests/photo/test_kernels.py``). The time to load the kernels is
+printed too (from numba's cache, or compiling when the cache is cold).
+
 The generated shots are flat drawings with a dozen colours; a second set, cut-outs of real
 photographs (scikit-image's and scikit-learn's sample images, when installed) composited onto a
 studio sweep at the same size, shows the cost on photo texture (hundreds to thousands of colour
@@ -35,7 +41,7 @@ from threadpoolctl import threadpool_limits  # noqa: E402
 from _revision import load_average, run_child  # noqa: E402
 from harmony.demo.synthetic import cutout_composite, cutout_mask, encode_jpeg, studio_shot  # noqa: E402
 from harmony.photo.image import decode_image  # noqa: E402
-from harmony.photo.palette import PaletteSettings, extract_palette  # noqa: E402
+from harmony.photo.palette import COMPILED_MIN_IMAGES, PaletteSettings, extract_palette, load_kernels  # noqa: E402
 
 TARGET_IMAGES_PER_S = 200.0
 TARGET_RATIO = 3.0  # against the draft-mode decode
@@ -98,25 +104,42 @@ def _baseline(checkout, jpegs, repeats):
         for i, data in enumerate(jpegs):
             with open(os.path.join(folder, f"{i:04d}.jpg"), "wb") as fh:
                 fh.write(data)
-        return run_child(_CHILD, checkout, [folder, repeats], env=dict(os.environ, OMP_NUM_THREADS="1"))
+        env = dict(os.environ, OMP_NUM_THREADS="1", HARMONY_NUMBA="1")  # its fastest path
+        return run_child(_CHILD, checkout, [folder, repeats], env=env)
+
+
+def _numpy_steps(on):
+    """Extract with the numpy steps (``on``) or with the compiled kernels."""
+    if on:
+        os.environ["HARMONY_NUMBA"] = "0"
+    else:
+        os.environ.pop("HARMONY_NUMBA", None)
 
 
 def _time_set(jpegs, settings, repeats, baseline):
-    """(draft-decode s, extract s, baseline result or None) per image of ``jpegs``: both revisions
-    twice, alternating (this, baseline, this, baseline), so both see the same machine and get as
-    many chances; the best of each counts."""
+    """(draft-decode s, numpy-steps extract s, compiled extract s, baseline result or None) per
+    image of ``jpegs``: the revisions twice, alternating (numpy steps, compiled, baseline, and
+    again), so all see the same machine and get as many chances; the best of each counts."""
 
     def decode_draft(data):
         decode_image(data, max_side=settings.max_side, max_pixels=settings.max_pixels)
 
     draft_s = _best_of(decode_draft, jpegs, repeats)
-    extract_s, base = float("inf"), None
-    for _ in range(2 if baseline else 1):
-        extract_s = min(extract_s, _best_of(lambda d: extract_palette(d, settings), jpegs, repeats))
+    numpy_s = compiled_s = float("inf")
+    base = None
+    for _ in range(2):
+        for numpy_steps in (True, False):
+            _numpy_steps(numpy_steps)
+            took = _best_of(lambda d: extract_palette(d, settings), jpegs, repeats)
+            if numpy_steps:
+                numpy_s = min(numpy_s, took)
+            else:
+                compiled_s = min(compiled_s, took)
         if baseline:
             got = _baseline(baseline, jpegs, repeats)
             base = got if base is None or got["extract_s"] < base["extract_s"] else base
-    return draft_s, extract_s, base
+    _numpy_steps(False)
+    return draft_s, numpy_s, compiled_s, base
 
 
 def main():
@@ -130,6 +153,10 @@ def main():
     photos = _photo_cutouts(rng)
     settings = PaletteSettings()
     extract_palette(jpegs[0], settings)  # warm-up: imports, caches
+    t0 = time.perf_counter()
+    if load_kernels() is None:
+        raise SystemExit("the compiled kernels did not load (numba missing, or HARMONY_NUMBA=0)")
+    load_s = time.perf_counter() - t0
 
     def decode_full(data):
         Image.open(io.BytesIO(data)).convert("RGB").load()
@@ -137,9 +164,10 @@ def main():
     load_before = load_average()
     with threadpool_limits(limits=1):
         decode_s = _best_of(decode_full, jpegs, args.repeats)
-        draft_s, extract_s, base = _time_set(jpegs, settings, args.repeats, args.baseline)
+        draft_s, numpy_s, extract_s, base = _time_set(jpegs, settings, args.repeats, args.baseline)
         if photos:
-            photo_draft_s, photo_s, photo_base = _time_set(photos, settings, args.repeats, args.baseline)
+            photo_draft_s, photo_numpy_s, photo_s, photo_base = _time_set(photos, settings, args.repeats,
+                                                                          args.baseline)
 
     rate = 1.0 / extract_s
     ratio = extract_s / decode_s
@@ -153,22 +181,28 @@ def main():
     row("decode (draft, working)", draft_s, draft_s)
     if base:
         row("extract_palette (baseline)", base["extract_s"], draft_s)
-    row("extract_palette", extract_s, draft_s)
+    row("extract_palette (numpy steps)", numpy_s, draft_s)
+    row("extract_palette (compiled)", extract_s, draft_s)
     if photos:
         print(f"{len(photos)} real-photo cut-outs, 800 x 800 (not the target set)")
         row("decode (draft, working)", photo_draft_s, photo_draft_s)
         if photo_base:
             row("extract_palette (baseline)", photo_base["extract_s"], photo_draft_s)
-        row("extract_palette", photo_s, photo_draft_s)
+        row("extract_palette (numpy steps)", photo_numpy_s, photo_draft_s)
+        row("extract_palette (compiled)", photo_s, photo_draft_s)
     else:
         print("real-photo cut-outs: skipped (scikit-image and scikit-learn are not installed)")
+    saved = numpy_s - extract_s
+    print(f"compiled kernels loaded in {load_s:.2f} s; they save {saved * 1e3:.2f} ms an image, so a job breaks "
+          f"even after about {load_s / max(saved, 1e-9):.0f} images on one core "
+          f"(jobs of {COMPILED_MIN_IMAGES} or more load them)")
     if base:
         print(f"baseline: {args.baseline} ({base['key']}); this revision takes "
               f"{extract_s / base['extract_s']:.2f}x its time on the shots"
               + (f", {photo_s / photo_base['extract_s']:.2f}x on the cut-outs" if photos else ""))
     print(f"load average: {load_before} before, {load_average()} after")
-    print(f"targets (generated shots): >= {TARGET_IMAGES_PER_S:.0f} images/s, <= {TARGET_RATIO:.0f}x draft decode; "
-          f"{'met' if rate >= TARGET_IMAGES_PER_S and ratio_draft <= TARGET_RATIO else 'NOT met'}")
+    print(f"targets (generated shots, compiled): >= {TARGET_IMAGES_PER_S:.0f} images/s, <= {TARGET_RATIO:.0f}x "
+          f"draft decode; {'met' if rate >= TARGET_IMAGES_PER_S and ratio_draft <= TARGET_RATIO else 'NOT met'}")
     summary = {
         "images": args.images,
         "decode_ms": round(decode_s * 1e3, 3),
@@ -177,6 +211,10 @@ def main():
         "ratio_to_decode": round(ratio, 2),
         "draft_decode_ms": round(draft_s * 1e3, 3),
         "ratio_to_draft_decode": round(ratio_draft, 2),
+        "numpy_extract_ms": round(numpy_s * 1e3, 3),
+        "numpy_images_per_s": round(1.0 / numpy_s, 1),
+        "numpy_ratio_to_draft_decode": round(numpy_s / draft_s, 2),
+        "kernel_load_s": round(load_s, 3),
         "settings": settings.key,
     }
     if base:
@@ -187,6 +225,7 @@ def main():
         summary["photos_extract_ms"] = round(photo_s * 1e3, 3)
         summary["photos_images_per_s"] = round(1.0 / photo_s, 1)
         summary["photos_ratio_to_draft_decode"] = round(photo_s / photo_draft_s, 2)
+        summary["photos_numpy_extract_ms"] = round(photo_numpy_s * 1e3, 3)
         if photo_base:
             summary["photos_baseline_extract_ms"] = round(photo_base["extract_s"] * 1e3, 3)
             summary["photos_ratio_to_baseline"] = round(photo_s / photo_base["extract_s"], 2)

@@ -53,8 +53,9 @@ def _kmeans_once(points, weights, k, rng, max_iter, inertia=True):
         cand = np.minimum(np.searchsorted(cum, rng.random(trials) * total, side="right"), n - 1)
         d_cand = sq_dist_planes(planes, points[cand])
         np.minimum(d_cand, closest, out=d_cand)
-        # The product as before, over an (n, trials) array, so its sums keep their order.
-        best = int(np.argmin(weights @ np.ascontiguousarray(d_cand.T)))
+        # Each candidate's potential summed point by point in order (cumsum adds in order), as
+        # the compiled start (harmony.photo.kernels) adds it.
+        best = int(np.argmin(np.cumsum(d_cand * weights, axis=1)[:, -1]))
         chosen.append(int(cand[best]))
         closest = d_cand[best]
     centres = points[chosen].copy()
@@ -110,7 +111,7 @@ def _uniform_run(seed, count):
     return values
 
 
-def weighted_kmeans(points, weights, k, rng, max_iter=100, n_init=3):
+def weighted_kmeans(points, weights, k, rng, max_iter=100, n_init=3, kernels=None):
     """Lloyd's k-means with point weights and a greedy k-means++ start; best of ``n_init`` starts.
 
     Parameters
@@ -124,6 +125,9 @@ def weighted_kmeans(points, weights, k, rng, max_iter=100, n_init=3):
         Lloyd iterations per start (stops earlier once the assignment no longer changes).
     n_init : int
         Independent starts; the one with the lowest weighted inertia wins (the first on ties).
+    kernels : module, optional
+        :mod:`harmony.photo.kernels`: one start of three-dimensional points drawn by
+        :class:`SeededDraws` then runs compiled, with the same result.
 
     Returns
     -------
@@ -146,6 +150,10 @@ def weighted_kmeans(points, weights, k, rng, max_iter=100, n_init=3):
     weights = np.asarray(weights, dtype=float)
     if points.shape[0] <= k:
         return points.copy(), np.arange(points.shape[0])
+    if kernels is not None and n_init <= 1 and points.shape[1] == 3 and isinstance(rng, SeededDraws):
+        trials = 2 + int(np.log(k))
+        return kernels.kmeans_once(np.ascontiguousarray(points.T), weights, k, rng.random(1 + (k - 1) * trials),
+                                   trials, max_iter)
     best = None
     for _ in range(max(1, n_init)):
         run = _kmeans_once(points, weights, k, rng, max_iter, inertia=n_init > 1)

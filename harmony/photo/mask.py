@@ -68,7 +68,7 @@ from functools import lru_cache
 import numpy as np
 from scipy import ndimage
 
-from harmony.photo.regions import CROSS, connected_to_edge, dilate_cross, grow_along, grow_within, label_box
+from harmony.photo.regions import connected_to_edge, dilate_cross, grow_along, grow_within, label_box, label_cross
 from harmony.photo.surface import basis, border_ring, fit_surface, median_rows, ring_basis, ring_index
 
 __all__ = [
@@ -259,7 +259,7 @@ def _planes(jab):
     return np.ascontiguousarray(np.moveaxis(jab, -1, 0))
 
 
-def _shadow(lightness, dj, coloured, like, flood, shadow_edge):
+def _shadow(lightness, dj, coloured, like, flood, shadow_edge, kernels=None):
     """Shadow pixels: shadow-coloured, smooth and without a step of ``shadow_edge`` to a
     neighbour; decided only where it matters, outside the ``flood`` (elsewhere False).
 
@@ -279,6 +279,10 @@ def _shadow(lightness, dj, coloured, like, flood, shadow_edge):
     inner = np.s_[rows[0]: rows[-1] + 1, cols[0]: cols[-1] + 1]
     box = np.s_[max(rows[0] - 1, 0): rows[-1] + 2, max(cols[0] - 1, 0): cols[-1] + 2]
     exact = lightness.dtype == np.float32 and 1.0 <= lightness.min() and lightness.max() < 128.0
+    if exact and kernels is not None and shadow_edge > 0 and dj.dtype == np.float32:
+        return kernels.shadow_found(lightness, dj, coloured, like, rows[0], rows[-1], cols[0], cols[-1],
+                                    np.float32(shadow_edge), np.float32(SHADOW_CURVATURE),
+                                    np.float32(SHADOW_RELATIVE_CURVATURE))
     if not exact:
         box = np.s_[0:h, 0:w]
     # ``inner`` as seen from inside ``box``
@@ -534,6 +538,7 @@ def foreground_mask(
     shadow_depth=45.0,
     shadow_edge=6.0,
     step_sq=None,
+    kernels=None,
 ):
     """Separate product from backdrop and shadow.
 
@@ -620,10 +625,11 @@ def foreground_mask(
     ringing_zone = dilate_cross(strong, 2)
     ringing = ringing_zone & (d2 <= tolerance**2)
     candidate = near | ringing
-    labels, count = ndimage.label(candidate, CROSS)
+    label = label_cross if kernels is None else kernels.label_cross
+    labels, count = label(candidate)
     edge_regions = connected_to_edge(labels, count)
     flood = edge_regions[labels]
-    shadow = _shadow(lightness, dj, coloured, coloured | near, flood, shadow_edge)
+    shadow = _shadow(lightness, dj, coloured, coloured | near, flood, shadow_edge, kernels)
     # Shadows lie on the floor around the product and reach only so far from the backdrop: a
     # product as dark as its own contact shadow where it stands on it is not flooded beyond the
     # shadow's width, and a flat panel inside an opening is not taken for a shadow of it.
@@ -641,7 +647,7 @@ def foreground_mask(
         labels = relabel[labels]
         n = count
     else:
-        box_labels, n, box = label_box(candidate & ~back)
+        box_labels, n, box = label_box(candidate & ~back, label)
         labels = np.zeros((h, w), dtype=np.int32)
         labels[box] = box_labels
     keep = _enclosed_backdrop(labels, n, near, ringing_zone, diff, opening,
@@ -657,7 +663,7 @@ def foreground_mask(
     close_y = np.abs(lightness[1:, :] - lightness[:-1, :]) < SHADOW_GROW_STEP
     back = grow_along(back, coloured & ~back, close_x, close_y, 2)
     # Specks the flood went round (noise on a shadow failing the smoothness test) are background.
-    left_labels, m, box = label_box(~back)
+    left_labels, m, box = label_box(~back, label)
     if m:
         speck = np.bincount(left_labels.ravel(), minlength=m + 1) < max(3, int(0.0003 * h * w))
         speck[0] = False

@@ -4,6 +4,7 @@ A :class:`Palette` is what every later stage (scores, screen, sets, feeds, repor
 """
 
 import json
+import os
 from dataclasses import dataclass
 from functools import lru_cache
 
@@ -394,7 +395,7 @@ def _pixel_codes(channels, levels):
     return both >> 24, both & ((1 << 24) - 1)
 
 
-def _jab_planes(rows, blocks=None):
+def _jab_planes(rows, blocks=None, kernels=None):
     """J'a'b' planes, shape (3, n) float32, of pixels given by their table rows.
 
     ``blocks`` lists the table blocks the pixels fall in, when the caller knows them."""
@@ -402,6 +403,8 @@ def _jab_planes(rows, blocks=None):
         side = FINE_LEVELS // _BLOCK
         blocks = np.flatnonzero(np.bincount(rows // _BLOCK**3, minlength=side**3))
     _fill_table(blocks)
+    if kernels is not None:
+        return kernels.table_rows(_TABLE, rows)
     return _TABLE.take(rows, axis=1)
 
 
@@ -421,14 +424,18 @@ def srgb8_to_jab(srgb8):
     return np.moveaxis(planes.reshape((3,) + srgb8.shape[:-1]), 0, -1)
 
 
-def _bin_colours(srgb8, levels):
+def _bin_colours(srgb8, levels, kernels=None):
     """Quantise pixels into ``levels``^3 bins.
 
     Returns the bin index of every pixel (into the occupied bins), the number of occupied bins
     and the J'a'b' of every pixel (:func:`srgb8_to_jab`) as planes, shape (3, n). No colour is
-    converted twice.
+    converted twice. ``kernels``: :mod:`harmony.photo.kernels`, the same result compiled.
     """
     bits = levels.bit_length() - 1
+    if kernels is not None:
+        rows, inverse, n_bins, blocks = kernels.pixel_bins(
+            srgb8.reshape(-1, 3), _channel_codes(levels), levels**3, _BLOCK**3, (FINE_LEVELS // _BLOCK) ** 3)
+        return inverse, n_bins, _jab_planes(rows, blocks, kernels)
     rows, code = _pixel_codes(np.ascontiguousarray(srgb8.reshape(-1, 3).T), levels)
     counts = np.bincount(code, minlength=levels**3)
     occupied = np.flatnonzero(counts > 0)
@@ -481,6 +488,63 @@ def _unmix(px, back, centres):
     return k, alpha[np.arange(k.size), k]
 
 
+#: Images an extraction job must have before it loads the compiled kernels. Loading them costs
+#: about 0.5 s from numba's cache (about 10 s the first time, compiling) and saves about 1 ms per
+#: image per core (measured on a 2-core machine, benchmarks/extract.py): smaller jobs finish
+#: sooner with the numpy steps, which give the same palettes.
+COMPILED_MIN_IMAGES = 1000
+
+_KERNELS = []  # harmony.photo.kernels, once loaded in this process
+
+
+def _numba_setting():
+    return os.environ.get("HARMONY_NUMBA", "").strip()
+
+
+def load_kernels():
+    """Load the compiled kernels (:mod:`harmony.photo.kernels`, numba) in this process, run
+    each once on a small drawn shot, and return them; None where numba does not import or the
+    environment variable ``HARMONY_NUMBA`` is ``0``. Palettes are the same either way."""
+    if _numba_setting() == "0":
+        return None
+    if not _KERNELS:
+        try:
+            from harmony.photo import kernels
+        except (ImportError, OSError):  # numba missing, or built for another numpy
+            return None
+        _KERNELS.append(kernels)
+        palette_from_decoded(_warm_up_shot(), PaletteSettings())
+    return _KERNELS[0]
+
+
+def compiled_kernels():
+    """The kernels palettes are extracted with in this process: those :func:`load_kernels` has
+    loaded (large extraction jobs load them), always with ``HARMONY_NUMBA=1``, never with ``0``."""
+    setting = _numba_setting()
+    if setting == "0":
+        return None
+    if setting == "1" and not _KERNELS:
+        return load_kernels()
+    return _KERNELS[0] if _KERNELS else None
+
+
+def _warm_up_shot(size=96):
+    """A small noisy studio shot (a light sweep, a dark block with a soft shadow below it) that
+    takes every compiled step once."""
+    from harmony.photo.image import DecodedImage
+
+    rng = np.random.default_rng(0)
+    y, x = np.mgrid[0:size, 0:size] / size
+    img = np.full((size, size, 3), 0.92) - 0.05 * y[..., None]
+    block = (abs(x - 0.5) < 0.2) & (abs(y - 0.45) < 0.25)
+    img *= (1.0 - 0.35 * np.exp(-(((y - 0.72) / 0.03) ** 2)) * (abs(x - 0.5) < 0.25))[..., None]
+    img[block] = (0.35, 0.2, 0.12)
+    img += rng.normal(0.0, 0.03, img.shape) * block[..., None] + rng.normal(0.0, 0.004, img.shape)
+    srgb8 = np.round(np.clip(img, 0.0, 1.0) * 255).astype(np.uint8)
+    srgb8.setflags(write=False)  # as decoded images come (numba compiles per array type)
+    return DecodedImage(srgb8=srgb8, opaque=None, width=size, height=size, sha256="", source="<warm-up>")
+
+
 def palette_from_decoded(decoded, settings=PaletteSettings()):
     """Extract the palette of an already decoded image (:class:`harmony.photo.image.DecodedImage`).
 
@@ -488,16 +552,18 @@ def palette_from_decoded(decoded, settings=PaletteSettings()):
     """
     from harmony.photo.mask import colour_step_sq, foreground_mask
 
+    fast = compiled_kernels()
     h, w = decoded.srgb8.shape[:2]
-    inverse, n_bins, jab_planes = _bin_colours(decoded.srgb8, settings.levels)
+    inverse, n_bins, jab_planes = _bin_colours(decoded.srgb8, settings.levels, fast)
     pixel_jab = np.moveaxis(jab_planes.reshape(3, h, w), 0, -1)  # a view of the planes
-    step_sq = colour_step_sq(pixel_jab)
+    step_sq = colour_step_sq(pixel_jab) if fast is None else fast.colour_step_sq(jab_planes.reshape(3, h, w))
     mask = foreground_mask(
         pixel_jab,
         decoded.opaque,
         tolerance=settings.tolerance,
         uniform_share=settings.uniform_share,
         step_sq=step_sq,
+        kernels=fast,
     )
     product = mask.weights.ravel()
     if np.count_nonzero(product > 0) < max(16, 0.002 * h * w):
@@ -523,13 +589,15 @@ def palette_from_decoded(decoded, settings=PaletteSettings()):
     if clean.sum() < 16:
         clean = product
     inner = np.where(outline, 0.0, product)
-    bin_planes, clean_mass, inner_mass = _bin_sums(inverse, n_bins, jab_planes, product, clean, inner)
+    bin_planes, clean_mass, inner_mass = (_bin_sums if fast is None else fast.bin_sums)(
+        inverse, n_bins, jab_planes, product, clean, inner)
     fit = clean_mass > 0
     rng = SeededDraws(settings.seed, settings.colours)
     # One k-means++ start: the greedy seeding with 2 + ln k trials per centre is already close
     # to the best of several starts on these few thousand bins (the ColorChecker chart at k = 24
     # comes out the same with 1 to 6 starts), and each start costs as much as the rest.
-    centres, _ = weighted_kmeans(bin_planes[:, fit].T, clean_mass[fit], settings.colours, rng, n_init=1)
+    centres, _ = weighted_kmeans(bin_planes[:, fit].T, clean_mass[fit], settings.colours, rng, n_init=1,
+                                 kernels=fast)
     nearest = np.argmin(sq_dist_planes(bin_planes, centres), axis=0)
     mass = np.bincount(nearest, weights=inner_mass, minlength=len(centres))
     edge = np.flatnonzero(outline)
@@ -542,10 +610,10 @@ def palette_from_decoded(decoded, settings=PaletteSettings()):
             mass += np.bincount(k[pure], weights=product[edge][pure], minlength=len(centres))
         else:
             back = np.moveaxis(mask.backdrop, -1, 0).reshape(3, -1).take(edge, axis=1)
-            k, a = _unmix(px, back, centres)
+            k, a = (_unmix if fast is None else fast.unmix)(px, back, centres)
             mass += np.bincount(k, weights=a * product[edge], minlength=len(centres))
     centres, mass = centres[mass > 0], mass[mass > 0]
-    centres, mass = merge_close(centres, mass, settings.merge_delta_e)
+    centres, mass = (merge_close if fast is None else fast.merge_close)(centres, mass, settings.merge_delta_e)
     share = mass / mass.sum()
     big = share >= settings.min_share
     if not big.any():

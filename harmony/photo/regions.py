@@ -14,6 +14,7 @@ __all__ = [
     "from_bits",
     "grow_within",
     "grow_along",
+    "label_cross",
     "label_box",
     "connected_to_edge",
 ]
@@ -105,16 +106,22 @@ def grow_along(seed, free, close_x, close_y, steps):
     return seed if grown == start else from_bits(grown, (h, w), stride)
 
 
-def label_box(mask):
+def label_cross(mask):
+    """``scipy.ndimage.label(mask)`` with the 4-neighbour cross: the labels and their number."""
+    return ndimage.label(mask, CROSS)
+
+
+def label_box(mask, label=label_cross):
     """``scipy.ndimage.label(mask)`` (4-connected), run on the bounding box of ``mask`` only: the
     box keeps the raster order, so the labels are the same. Returns the labels of the box, their
-    number and the box (slices)."""
+    number and the box (slices). ``label``: the labelling, :func:`label_cross` or its compiled
+    twin (:func:`harmony.photo.kernels.label_cross`)."""
     rows = np.flatnonzero(mask.any(axis=1))
     if rows.size == 0:
         return np.zeros((0, 0), dtype=np.int32), 0, np.s_[0:0, 0:0]
     cols = np.flatnonzero(mask.any(axis=0))
     box = np.s_[rows[0]: rows[-1] + 1, cols[0]: cols[-1] + 1]
-    labels, n = ndimage.label(mask[box], CROSS)
+    labels, n = label(mask[box])
     return labels, n, box
 
 

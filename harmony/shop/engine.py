@@ -292,7 +292,7 @@ def _default_extractor():
     return extract_palette
 
 
-def extract_chunk(items, settings, extractor=None):
+def extract_chunk(items, settings, extractor=None, compiled=False):
     """Extract the palettes of one chunk; runs in a worker process or on a Dask worker.
 
     Parameters
@@ -302,6 +302,9 @@ def extract_chunk(items, settings, extractor=None):
         Passed to ``extractor``.
     extractor : callable (path, settings) -> Palette, optional
         Default :func:`harmony.photo.palette.extract_palette`. Must be picklable.
+    compiled : bool
+        Load the compiled kernels first (:func:`harmony.photo.palette.load_kernels`; at once
+        where the worker was forked from a process that loaded them).
 
     Returns
     -------
@@ -309,6 +312,10 @@ def extract_chunk(items, settings, extractor=None):
         A failure of one image is its reason; it never stops the chunk.
     """
     extractor = extractor or _default_extractor()
+    if compiled:
+        from harmony.photo.palette import load_kernels
+
+        load_kernels()
     results = []
     for sha, path in items:
         name = path
@@ -439,10 +446,18 @@ def run_extraction(
             total=len(todo), unit="img", desc="extract", disable=not _show_progress(progress),
             file=sys.stderr, dynamic_ncols=True,
         )
+        from harmony.photo.palette import COMPILED_MIN_IMAGES, load_kernels
+
+        compiled = len(todo) >= COMPILED_MIN_IMAGES
+        if compiled and engine == "local":  # here, once: the forked workers inherit them
+            bar.set_description("extract (loading compiled kernels)")
+            load_kernels()
+            bar.set_description("extract")
         new = failed = 0
         try:
             # closing(): an exception here stops the engine (and its workers) at once.
-            with contextlib.closing(_run(chunks, key, settings, extractor, engine, workers, scheduler)) as done_chunks:
+            run = _run(chunks, key, settings, extractor, engine, workers, scheduler, compiled)
+            with contextlib.closing(run) as done_chunks:
                 for results in done_chunks:
                     store.record(results, key)
                     ok = sum(1 for _sha, palette, _reason in results if palette is not None)
@@ -476,24 +491,24 @@ def run_extraction(
     )
 
 
-def _run(chunks, key, settings, extractor, engine, workers, scheduler):
+def _run(chunks, key, settings, extractor, engine, workers, scheduler, compiled=False):
     """Yield the results of each chunk as it finishes (in completion order)."""
     if not chunks:
         return
     if engine == "local":
-        yield from _run_local(chunks, settings, extractor, workers)
+        yield from _run_local(chunks, settings, extractor, workers, compiled)
     else:
-        yield from _run_dask(chunks, settings, extractor, workers, scheduler)
+        yield from _run_dask(chunks, settings, extractor, workers, scheduler, compiled)
 
 
-def _run_local(chunks, settings, extractor, workers):
+def _run_local(chunks, settings, extractor, workers, compiled=False):
     pool = ProcessPoolExecutor(
         max_workers=min(workers, len(chunks)),
         initializer=start_worker,
         initargs=(os.getpid(), tuple(sorted(_HELD_LOCK_FDS))),
     )
     try:
-        futures = [pool.submit(extract_chunk, chunk, settings, extractor) for chunk in chunks]
+        futures = [pool.submit(extract_chunk, chunk, settings, extractor, compiled) for chunk in chunks]
         try:
             for future in as_completed(futures):
                 yield future.result()
@@ -510,7 +525,7 @@ def _run_local(chunks, settings, extractor, workers):
         pool.shutdown(wait=True, cancel_futures=True)
 
 
-def _run_dask(chunks, settings, extractor, workers, scheduler):
+def _run_dask(chunks, settings, extractor, workers, scheduler, compiled=False):
     try:
         from distributed import Client, KilledWorker, LocalCluster
         from distributed import as_completed as dask_completed
@@ -529,7 +544,8 @@ def _run_dask(chunks, settings, extractor, workers, scheduler):
             )
             client = Client(cluster)
         try:
-            futures = client.map(extract_chunk, chunks, settings=settings, extractor=extractor, pure=False)
+            futures = client.map(extract_chunk, chunks, settings=settings, extractor=extractor, compiled=compiled,
+                                 pure=False)
             try:
                 for future in dask_completed(futures):
                     yield future.result()

@@ -373,6 +373,25 @@ def test_real_extractor_dask_equals_local(tmp_path):
         assert np.array_equal(pa["S3"].jab, direct.jab) and np.array_equal(pa["S3"].weights, direct.weights)
 
 
+def test_a_large_job_loads_the_compiled_kernels_and_stores_the_same_palettes(tmp_path, monkeypatch):
+    # A job of at least COMPILED_MIN_IMAGES images (here lowered to 4) loads the kernels once in
+    # this process, before the workers fork; a smaller one runs the numpy steps. Both store the
+    # same palettes, byte for byte.
+    from harmony.photo import palette as palette_module
+
+    monkeypatch.delenv("HARMONY_NUMBA", raising=False)
+    monkeypatch.setattr(palette_module, "_KERNELS", [])
+    csv = _studio_shop(tmp_path)
+    small = run_extraction(csv, tmp_path / "numpy.db", workers=2, chunk_size=2, progress=False)
+    assert palette_module._KERNELS == []
+    monkeypatch.setattr(palette_module, "COMPILED_MIN_IMAGES", 4)
+    large = run_extraction(csv, tmp_path / "compiled.db", workers=2, chunk_size=2, progress=False)
+    assert len(palette_module._KERNELS) == 1
+    assert (small.new, large.new, small.failed, large.failed) == (6, 6, 0, 0)
+    with Store(tmp_path / "numpy.db") as a, Store(tmp_path / "compiled.db") as b:
+        assert _as_arrays(a.palettes()) == _as_arrays(b.palettes())
+
+
 def test_cli_extract_summary_warnings_and_strict(tmp_path):
     from click.testing import CliRunner
 
