@@ -16,8 +16,8 @@ when a palette is extracted.
 import numba
 import numpy as np
 
-__all__ = ["pixel_bins", "table_rows", "colour_step_sq", "label_cross", "shadow_found", "bin_sums", "unmix",
-           "kmeans_once", "merge_close"]
+__all__ = ["pixel_bins", "table_rows", "colour_step_sq", "label_cross", "shadow_found", "region_offsets",
+           "grow_within", "grow_along", "bin_sums", "unmix", "kmeans_once", "merge_close"]
 
 
 def _compiled(fn):
@@ -261,18 +261,54 @@ def kmeans_once(planes, weights, k, draws, trials, max_iter):
 
 
 @_compiled
-def shadow_found(lightness, dj, coloured, like, top, bottom, left, right, edge, curvature, relative):
-    """The shadow test of :func:`harmony.photo.mask._shadow` on the pixels of rows ``top`` to
-    ``bottom`` and columns ``left`` to ``right`` (inclusive; elsewhere False), for float32 J'
-    from 1 to 128: each 3 x 3 mean is that of ``uniform_filter1d`` down then across (mode
-    "nearest"), whose sums of three such values are exact in float64, so a direct sum over the
-    clamped neighbours gives the same bits. ``edge``, ``curvature`` and ``relative`` are float32,
-    as numpy casts the Python numbers it compares float32 arrays with."""
+def shadow_found(lightness, dj, coloured, like, flood, edge, curvature, relative):
+    """The shadow test of :func:`harmony.photo.mask._shadow`, on the box around the coloured
+    pixels outside the ``flood`` (elsewhere False), for float32 J' from 1 to 128: each 3 x 3
+    mean is that of ``uniform_filter1d`` down then across (mode "nearest"), whose sums of three
+    such values are exact in float64, so a direct sum over the clamped neighbours gives the same
+    bits. ``edge``, ``curvature`` and ``relative`` are float32, as numpy casts the Python numbers
+    it compares float32 arrays with. Returns the shadow and False when J' is outside that range
+    (the numpy step then decides)."""
     h, w = lightness.shape
     found = np.zeros((h, w), dtype=np.bool_)
-    floor = np.float32(1e-6)
+    outside = 0
+    for y in range(h):
+        for x in range(w):
+            v = lightness[y, x]
+            outside += (v < 1.0) | (v >= 128.0) | (v != v)
+    if outside:
+        return found, False
+    top, bottom, left, right = h, -1, w, -1
+    for y in range(h):
+        first = 0
+        while first < w and not (coloured[y, first] and not flood[y, first]):
+            first += 1
+        if first == w:
+            continue
+        last = w - 1
+        while not (coloured[y, last] and not flood[y, last]):
+            last -= 1
+        top, bottom = min(top, y), y
+        left, right = min(left, first), max(right, last)
+    if bottom < 0:
+        return found, True
+    # The first pass: column means down, on the box and a column either side (clamped).
+    x0, x1 = max(left - 1, 0), min(right + 1, w - 1)
+    down_w = np.empty((bottom - top + 1, x1 - x0 + 1), dtype=np.float32)
+    down_l = np.empty_like(down_w)
     for y in range(top, bottom + 1):
         ys = (max(y - 1, 0), y, min(y + 1, h - 1))
+        for x in range(x0, x1 + 1):
+            col_w = 0.0
+            col_l = 0.0
+            for yy in ys:
+                if like[yy, x]:
+                    col_w += 1.0
+                    col_l += np.float64(lightness[yy, x])
+            down_w[y - top, x - x0] = np.float32(col_w / 3.0)
+            down_l[y - top, x - x0] = np.float32(col_l / 3.0)
+    floor = np.float32(1e-6)
+    for y in range(top, bottom + 1):
         for x in range(left, right + 1):
             if not coloured[y, x]:
                 continue
@@ -284,24 +320,18 @@ def shadow_found(lightness, dj, coloured, like, top, bottom, left, right, edge, 
                         calm = False
             if not calm:
                 continue
-            # Column means down (the first pass), then their mean across (the second).
+            # The second pass: the mean across of the column means.
             sum_w = 0.0
             sum_l = 0.0
             for xx in (max(x - 1, 0), x, min(x + 1, w - 1)):
-                col_w = 0.0
-                col_l = 0.0
-                for yy in ys:
-                    if like[yy, xx]:
-                        col_w += 1.0
-                        col_l += np.float64(lightness[yy, xx])
-                sum_w += np.float64(np.float32(col_w / 3.0))
-                sum_l += np.float64(np.float32(col_l / 3.0))
+                sum_w += np.float64(down_w[y - top, xx - x0])
+                sum_l += np.float64(down_l[y - top, xx - x0])
             weight = np.float32(sum_w / 3.0)
             light = np.float32(sum_l / 3.0)
             local = light / max(weight, floor)
             bend = abs(lightness[y, x] - local)
             found[y, x] = bend < max(curvature, relative * abs(dj[y, x]))
-    return found
+    return found, True
 
 
 @_compiled
@@ -414,3 +444,104 @@ def label_cross(mask):
         for x in range(w):
             labels[y, x] = number[labels[y, x]]
     return labels, count
+
+
+@_compiled
+def region_offsets(labels, n, near, ringing_zone, diff):
+    """The region means of :func:`harmony.photo.mask._enclosed_backdrop`: per region 1..n, the
+    number of its pixels within the opening tolerance (``near``) and their mean offset from the
+    surface (``diff``, (3, h, w)), then the same for those of them away from strong edges (not
+    ``ringing_zone``); sums in raster order, as bincount adds them. The first value says whether
+    any labelled pixel is near at all."""
+    h, w = labels.shape
+    count = np.zeros((2, n + 1), dtype=np.int64)
+    sums = np.zeros((2, n + 1, 3))
+    found = False
+    for y in range(h):
+        for x in range(w):
+            label = labels[y, x]
+            if label == 0 or not near[y, x]:
+                continue
+            found = True
+            for kind in range(2):
+                if kind == 1 and ringing_zone[y, x]:
+                    break
+                count[kind, label] += 1
+                for c in range(3):
+                    sums[kind, label, c] += np.float64(diff[c, y, x])
+    means = np.empty((2, n, 3))
+    for kind in range(2):
+        for label in range(1, n + 1):
+            for c in range(3):
+                means[kind, label - 1, c] = sums[kind, label, c] / max(count[kind, label], 1)
+    return found, count[0, 1:], means[0], count[1, 1:], means[1]
+
+
+@numba.njit(inline="always")
+def _joined(ny, nx, y, x, close_x, close_y):
+    """Whether the neighbour pair (ny, nx), (y, x) is marked close (``close_y`` for a pixel and
+    the one below, ``close_x`` for a pixel and its right neighbour); None marks every pair."""
+    if close_x is None:
+        return True
+    if ny != y:
+        return close_y[min(y, ny), x]
+    return close_x[y, min(x, nx)]
+
+
+@numba.njit
+def _grow(seed, free, steps, close_x, close_y):
+    """Layer by layer, ``steps`` rounds of adding the ``free`` pixels beside the grown set (across
+    a close pair, when pairs are given). Returns the grown mask and the number of pixels added."""
+    h, w = seed.shape
+    grown = seed.copy()
+    n_free = 0
+    for y in range(h):
+        for x in range(w):
+            if free[y, x] and not seed[y, x]:
+                n_free += 1
+    layer = np.empty(n_free, dtype=np.int64)
+    size = 0
+    if n_free and steps > 0:  # the first layer: free pixels beside the seed
+        for y in range(h):
+            for x in range(w):
+                if not free[y, x] or seed[y, x]:
+                    continue
+                for ny, nx in ((y - 1, x), (y + 1, x), (y, x - 1), (y, x + 1)):
+                    if 0 <= ny < h and 0 <= nx < w and seed[ny, nx] and _joined(ny, nx, y, x, close_x, close_y):
+                        layer[size] = y * w + x
+                        size += 1
+                        break
+    for i in range(size):
+        grown.flat[layer[i]] = True
+    total, start = size, 0
+    for _ in range(1, steps):  # each further layer: free pixels beside the last one
+        end = total
+        for i in range(start, end):
+            y, x = divmod(layer[i], w)
+            for ny, nx in ((y - 1, x), (y + 1, x), (y, x - 1), (y, x + 1)):
+                if (0 <= ny < h and 0 <= nx < w and free[ny, nx] and not grown[ny, nx]
+                        and _joined(ny, nx, y, x, close_x, close_y)):
+                    grown[ny, nx] = True
+                    layer[total] = ny * w + nx
+                    total += 1
+        if total == end:
+            break
+        start = end
+    return grown, total, n_free
+
+
+@_compiled
+def grow_within(seed, allowed, steps):
+    """``scipy.ndimage.binary_dilation(seed, iterations=steps, mask=seed | allowed)`` with the
+    4-neighbour cross. Returns the grown mask and whether any pixel was free to take."""
+    grown, _, n_free = _grow(seed, allowed, steps, None, None)
+    return grown, n_free > 0
+
+
+@_compiled
+def grow_along(seed, free, close_x, close_y, steps):
+    """:func:`harmony.photo.regions.grow_along`: ``steps`` rounds of adding the ``free`` pixels
+    beside the grown set across a neighbour pair marked close. Returns the grown mask and
+    whether it added any pixel."""
+    grown, added, _ = _grow(seed, free, steps, close_x, close_y)
+    return grown, added > 0

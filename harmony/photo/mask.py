@@ -270,6 +270,11 @@ def _shadow(lightness, dj, coloured, like, flood, shadow_edge, kernels=None):
     scipy 1.0); for J' from 1 to 128 in float32 (the palette's pixel table) every such sum is
     exact in double, so a line started at the box gives the same bits as one started at the
     image edge. Other input is filtered whole."""
+    if kernels is not None and lightness.dtype == dj.dtype == np.float32 and shadow_edge > 0:
+        found, done = kernels.shadow_found(lightness, dj, coloured, like, flood, np.float32(shadow_edge),
+                                           np.float32(SHADOW_CURVATURE), np.float32(SHADOW_RELATIVE_CURVATURE))
+        if done:
+            return found
     h, w = lightness.shape
     rows = np.flatnonzero((coloured & ~flood).any(axis=1))
     shadow = np.zeros((h, w), dtype=bool)
@@ -279,10 +284,6 @@ def _shadow(lightness, dj, coloured, like, flood, shadow_edge, kernels=None):
     inner = np.s_[rows[0]: rows[-1] + 1, cols[0]: cols[-1] + 1]
     box = np.s_[max(rows[0] - 1, 0): rows[-1] + 2, max(cols[0] - 1, 0): cols[-1] + 2]
     exact = lightness.dtype == np.float32 and 1.0 <= lightness.min() and lightness.max() < 128.0
-    if exact and kernels is not None and shadow_edge > 0 and dj.dtype == np.float32:
-        return kernels.shadow_found(lightness, dj, coloured, like, rows[0], rows[-1], cols[0], cols[-1],
-                                    np.float32(shadow_edge), np.float32(SHADOW_CURVATURE),
-                                    np.float32(SHADOW_RELATIVE_CURVATURE))
     if not exact:
         box = np.s_[0:h, 0:w]
     # ``inner`` as seen from inside ``box``
@@ -447,7 +448,7 @@ def _patch_bias(diff, width):
     return max(0.0, max(float(np.sqrt(m.dot(m))) for m in medians))
 
 
-def _enclosed_backdrop(labels, n, near, ringing_zone, diff, opening, bias):
+def _enclosed_backdrop(labels, n, near, ringing_zone, diff, opening, bias, kernels=None):
     """Which of the ``n`` enclosed regions (``labels``) continue the backdrop: a lookup by label,
     or None when no region has a pixel within the opening tolerance.
 
@@ -457,26 +458,32 @@ def _enclosed_backdrop(labels, n, near, ringing_zone, diff, opening, bias):
     opening tolerance, against ``opening``. Means come from bincount (fast with many small
     regions), over the pixels in raster order; the pixels are already within the opening
     tolerance, so no outlier can pull a mean far."""
-    enclosed_near = (labels != 0) & near
-    pick_near = np.flatnonzero(enclosed_near)
-    if pick_near.size == 0:
-        return None
-    pick_clear = np.flatnonzero(enclosed_near & ~ringing_zone)  # away from strong edges: own colour
-    flat_labels, flat_diff = labels.ravel(), diff.reshape(3, -1)
+    if kernels is not None:
+        found, n_near, off, n_clear, off_clear = kernels.region_offsets(labels, n, near, ringing_zone, diff)
+        if not found:
+            return None
+    else:
+        enclosed_near = (labels != 0) & near
+        pick_near = np.flatnonzero(enclosed_near)
+        if pick_near.size == 0:
+            return None
+        pick_clear = np.flatnonzero(enclosed_near & ~ringing_zone)  # away from strong edges: own colour
+        flat_labels, flat_diff = labels.ravel(), diff.reshape(3, -1)
 
-    def region_means(pick):
-        region = flat_labels[pick]
-        count = np.bincount(region, minlength=n + 1)
-        offsets = flat_diff.take(pick, axis=1)
-        sums = np.stack([np.bincount(region, weights=offsets[c], minlength=n + 1) for c in range(3)], axis=-1)
-        return count[1:], sums[1:] / np.maximum(count[1:, None], 1)
+        def region_means(pick):
+            region = flat_labels[pick]
+            count = np.bincount(region, minlength=n + 1)
+            offsets = flat_diff.take(pick, axis=1)
+            sums = np.stack([np.bincount(region, weights=offsets[c], minlength=n + 1) for c in range(3)], axis=-1)
+            return count[1:], sums[1:] / np.maximum(count[1:, None], 1)
 
-    n_near, off = region_means(pick_near)
-    n_clear = np.bincount(flat_labels[pick_clear], minlength=n + 1)[1:]
+        n_near, off = region_means(pick_near)
+        n_clear = np.bincount(flat_labels[pick_clear], minlength=n + 1)[1:]
+        off_clear = None
     wide = n_clear >= ENCLOSED_CLEAR_PIXELS
     limit = opening
     if wide.any():  # judged by their own colour against the backdrop's unevenness
-        off = np.where(wide[:, None], region_means(pick_clear)[1], off)
+        off = np.where(wide[:, None], region_means(pick_clear)[1] if off_clear is None else off_clear, off)
         limit = np.where(wide, bias(), opening)
     keep = np.zeros(n + 1, dtype=bool)
     keep[1:] = (n_near > 0) & (np.sqrt((off**2).sum(axis=-1)) <= limit)
@@ -634,7 +641,7 @@ def foreground_mask(
     # product as dark as its own contact shadow where it stands on it is not flooded beyond the
     # shadow's width, and a flat panel inside an opening is not taken for a shadow of it.
     reach = max(2, int(round(SHADOW_REACH * min(h, w))))
-    back = grow_within(flood, shadow, reach)
+    back = grow_within(flood, shadow, reach, kernels)
     # Enclosed regions that continue the backdrop: regions within the opening tolerance, apart
     # from the flood, whose median colour lies as close to the surface as the backdrop's own
     # patches do. Shadow-coloured pixels do not join them, so a flat light panel set into an
@@ -652,7 +659,7 @@ def foreground_mask(
         labels[box] = box_labels
     keep = _enclosed_backdrop(labels, n, near, ringing_zone, diff, opening,
                               lambda: min(max(ENCLOSED_BIAS_FACTOR * _patch_bias(diff, width),
-                                              ENCLOSED_MIN_DELTA_E), cap))
+                                              ENCLOSED_MIN_DELTA_E), cap), kernels)
     if keep is not None:
         back |= keep[labels]
     if transparent is not None:
@@ -661,7 +668,7 @@ def foreground_mask(
     # curvature test; take those that continue a background neighbour within a small J' step.
     close_x = np.abs(lightness[:, 1:] - lightness[:, :-1]) < SHADOW_GROW_STEP
     close_y = np.abs(lightness[1:, :] - lightness[:-1, :]) < SHADOW_GROW_STEP
-    back = grow_along(back, coloured & ~back, close_x, close_y, 2)
+    back = grow_along(back, coloured & ~back, close_x, close_y, 2, kernels)
     # Specks the flood went round (noise on a shadow failing the smoothness test) are background.
     left_labels, m, box = label_box(~back, label)
     if m:

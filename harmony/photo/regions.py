@@ -54,14 +54,17 @@ def from_bits(value, shape, stride):
     return np.unpackbits(raw, count=h * stride, bitorder="little").reshape(h, stride)[:, :w].astype(bool)
 
 
-def grow_within(seed, allowed, steps):
+def grow_within(seed, allowed, steps, kernels=None):
     """``scipy.ndimage.binary_dilation(seed, iterations=steps, mask=seed | allowed)`` (the 4-neighbour
     cross, nothing beyond the edge), run only on the bounding box of the pixels it may add (plus
     one pixel): every path of the growth runs through those pixels, so the result is the same.
 
     The box is grown as one integer, a bit per pixel (:func:`to_bits`): each step is a handful of
     shifts, or-s and one and over the whole box, where ``binary_dilation`` visits pixel by
-    pixel."""
+    pixel. ``kernels``: :mod:`harmony.photo.kernels`, the same growth compiled."""
+    if kernels is not None:
+        grown, free = kernels.grow_within(seed, allowed, steps)
+        return grown if free else seed
     free = allowed & ~seed
     rows = np.flatnonzero(free.any(axis=1))
     if rows.size == 0:
@@ -83,11 +86,15 @@ def grow_within(seed, allowed, steps):
     return out
 
 
-def grow_along(seed, free, close_x, close_y, steps):
+def grow_along(seed, free, close_x, close_y, steps, kernels=None):
     """``steps`` rounds of adding the ``free`` pixels beside the grown set across a neighbour
     pair marked close, as bit operations (:func:`to_bits`). ``close_x`` (h, w - 1) marks the pair
     of a pixel and its right neighbour, ``close_y`` (h - 1, w) that of a pixel and the one below.
-    Returns ``seed`` itself when nothing is added."""
+    Returns ``seed`` itself when nothing is added. ``kernels``: :mod:`harmony.photo.kernels`, the
+    same growth compiled."""
+    if kernels is not None:
+        grown, added = kernels.grow_along(seed, free, close_x, close_y, steps)
+        return grown if added else seed
     h, w = seed.shape
     stride = w + 1
     close = np.zeros((2, h, w), dtype=bool)

@@ -133,6 +133,25 @@ def test_shadow_test_matches_the_numpy_test():
         assert _same(got, want)
 
 
+def test_enclosed_regions_match_the_numpy_means():
+    # mask._enclosed_backdrop's numpy path: bincount means of each region's near pixels.
+    rng = np.random.default_rng(10)
+    for trial in range(300):
+        h, w = (int(v) for v in rng.integers(2, 40, 2))
+        labels, n = ndimage.label(rng.random((h, w)) < rng.random(), CROSS)
+        near = rng.random((h, w)) < rng.random()
+        ringing_zone = rng.random((h, w)) < 0.3
+        diff = (rng.normal(size=(3, h, w)) * rng.choice([0.5, 3.0])).astype(np.float32)
+        opening = float(rng.choice([1.0, 3.0, 4.5]))
+
+        def bias():
+            return 2.0
+
+        want = mask_module._enclosed_backdrop(labels, n, near, ringing_zone, diff, opening, bias)
+        got = mask_module._enclosed_backdrop(labels, n, near, ringing_zone, diff, opening, bias, kernels)
+        assert (got is None and want is None) or _same(got, want)
+
+
 def _photo(name):
     skimage_data = pytest.importorskip("skimage.data")
     if name.endswith(".jpg"):

@@ -13,8 +13,13 @@ from harmony.photo.regions import (
     grow_along,
     grow_within,
     label_box,
+    label_cross,
     to_bits,
 )
+from harmony.photo import kernels
+
+# Each function's numpy form, and the compiled kernel standing for it (harmony.photo.kernels).
+BOTH = pytest.mark.parametrize("compiled", [None, kernels], ids=["numpy", "compiled"])
 
 
 def _masks(seed, count, high=40):
@@ -42,25 +47,28 @@ def test_dilate_cross_matches_binary_dilation():
         assert np.array_equal(dilate_cross(mask, times), ndimage.binary_dilation(mask, iterations=times))
 
 
-def test_grow_within_matches_masked_binary_dilation():
+@BOTH
+def test_grow_within_matches_masked_binary_dilation(compiled):
     # scipy.ndimage.binary_dilation(seed, iterations=steps, mask=seed | allowed).
     for rng, seed in _masks(3, 600, high=70):
         seed &= rng.random(seed.shape) < 0.3
         allowed = rng.random(seed.shape) < rng.random()
         steps = int(rng.integers(1, 20))
         want = ndimage.binary_dilation(seed, iterations=steps, mask=seed | allowed)
-        assert np.array_equal(grow_within(seed, allowed, steps), want)
+        assert np.array_equal(grow_within(seed, allowed, steps, compiled), want)
 
 
-def test_grow_along_matches_a_pixel_by_pixel_loop():
+@BOTH
+def test_grow_along_matches_a_pixel_by_pixel_loop(compiled):
     # Reference: each round, every free pixel with a grown 4-neighbour across a close pair joins.
     for rng, seed in _masks(4, 300, high=25):
         h, w = seed.shape
         free = (rng.random((h, w)) < 0.6) & ~seed
         close_x = rng.random((h, max(w - 1, 0))) < 0.7
         close_y = rng.random((max(h - 1, 0), w)) < 0.7
+        steps = int(rng.integers(1, 5))
         want = seed.copy()
-        for _ in range(2):
+        for _ in range(steps):
             new = want.copy()
             for r in range(h):
                 for c in range(w):
@@ -72,13 +80,15 @@ def test_grow_along_matches_a_pixel_by_pixel_loop():
                             (r < h - 1 and want[r + 1, c] and close_y[r, c]))
                     new[r, c] = bool(near)
             want = new
-        assert np.array_equal(grow_along(seed, free, close_x, close_y, 2), want)
+        got = grow_along(seed, free, close_x, close_y, steps, compiled)
+        assert np.array_equal(got, want) and (got is seed) == np.array_equal(want, seed)
 
 
-def test_label_box_matches_label():
+@BOTH
+def test_label_box_matches_label(compiled):
     # scipy.ndimage.label (4-connected): the same numbering, within the mask's bounding box.
     for _, mask in _masks(5, 200):
-        labels, n, box = label_box(mask)
+        labels, n, box = label_box(mask, label_cross if compiled is None else compiled.label_cross)
         want, count = ndimage.label(mask)
         full = np.zeros(mask.shape, dtype=want.dtype)
         full[box] = labels
