@@ -12,7 +12,7 @@ import numpy as np
 
 from harmony import colour
 from harmony.colour.neutral import NEUTRAL_COLOURFULNESS, NEUTRAL_FADE, neutrality
-from harmony.errors import HarmonyError, ImageError
+from harmony.errors import HarmonyError, ImageError, warn
 from harmony.photo.clusters import SeededDraws, merge_close, sq_dist_planes, weighted_kmeans
 
 __all__ = [
@@ -494,7 +494,7 @@ def _unmix(px, back, centres):
 #: sooner with the numpy steps, which give the same palettes.
 COMPILED_MIN_IMAGES = 1000
 
-_KERNELS = []  # harmony.photo.kernels, once loaded in this process
+_KERNELS = []  # [] not tried in this process; [harmony.photo.kernels] loaded; [None] unusable here
 
 
 def _numba_setting():
@@ -504,16 +504,25 @@ def _numba_setting():
 def load_kernels():
     """Load the compiled kernels (:mod:`harmony.photo.kernels`, numba) in this process, run
     each once on a small drawn shot, and return them; None where numba does not import or the
-    environment variable ``HARMONY_NUMBA`` is ``0``. Palettes are the same either way."""
+    kernels fail (a one-line warning says why), or where the environment variable
+    ``HARMONY_NUMBA`` is ``0``. Palettes are the same either way."""
     if _numba_setting() == "0":
         return None
     if not _KERNELS:
         try:
             from harmony.photo import kernels
-        except (ImportError, OSError):  # numba missing, or built for another numpy
-            return None
+        except (ImportError, OSError) as exc:  # numba missing, or built for another numpy
+            kernels = None
+            warn(f"numba does not import ({exc}); extracting with the numpy steps, which give the same "
+                 "palettes, more slowly")
         _KERNELS.append(kernels)
-        palette_from_decoded(_warm_up_shot(), PaletteSettings())
+        if kernels is not None:
+            try:
+                palette_from_decoded(_warm_up_shot(), PaletteSettings())
+            except Exception as exc:  # noqa: BLE001 - a compiler failure must not stop extraction
+                _KERNELS[0] = None
+                warn(f"the compiled palette kernels failed ({type(exc).__name__}: {exc}); "
+                     "extracting with the numpy steps, which give the same palettes, more slowly")
     return _KERNELS[0]
 
 

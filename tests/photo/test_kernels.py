@@ -217,6 +217,41 @@ def test_loading_runs_every_kernel_once():
     assert out.stdout.strip() == "[]"
 
 
+def test_kernels_that_fail_leave_the_numpy_steps_with_one_warning(monkeypatch, capsys):
+    # A compiler or runtime failure of a kernel (here a kernel that raises) must not stop an
+    # extraction: one warning line, then the numpy steps.
+    monkeypatch.setattr(palette_module, "_KERNELS", [])
+    monkeypatch.delenv("HARMONY_NUMBA", raising=False)
+
+    def broken(*args):
+        raise RuntimeError("LLVM ERROR: out of cheese")
+
+    monkeypatch.setattr(kernels, "colour_step_sq", broken)
+    assert palette_module.load_kernels() is None and palette_module.load_kernels() is None
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "compiled palette kernels failed (RuntimeError: LLVM ERROR" in err
+    assert compiled_kernels() is None
+    assert len(palette_from_decoded(palette_module._warm_up_shot())) >= 1
+
+
+def test_without_numba_the_numpy_steps_serve_after_one_warning(monkeypatch, capsys):
+    import builtins
+
+    real_import = builtins.__import__
+
+    def no_numba(name, *args, **kwargs):
+        if name == "harmony.photo" and args[2] and "kernels" in args[2]:
+            raise ImportError("No module named 'numba'")
+        return real_import(name, *args, **kwargs)
+
+    monkeypatch.setattr(palette_module, "_KERNELS", [])
+    monkeypatch.setenv("HARMONY_NUMBA", "1")
+    monkeypatch.setattr(builtins, "__import__", no_numba)
+    assert compiled_kernels() is None and compiled_kernels() is None
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "numba does not import (No module named 'numba')" in err
+
+
 def test_kernels_compile_without_a_writable_cache(monkeypatch):
     # numba refuses cache=True where no cache folder can be written (RuntimeError "cannot cache
     # function ... no locator available"); the kernel is then compiled without its cache.
