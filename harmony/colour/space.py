@@ -75,9 +75,21 @@ def srgb1_to_jab(srgb1):
     return cspace_convert(as_triplets(srgb1, "srgb1"), "sRGB1", CAM02UCS)
 
 
+def _from_jab(jab, space):
+    """``cspace_convert`` from CAM02-UCS, with J' <= 0 taken as black: no light, and CIECAM02's
+    inverse divides by J there (colorspacious warns and returns nan)."""
+    jab = as_triplets(jab, "jab")
+    dark = jab[..., 0] <= 0.0
+    if not np.any(dark):
+        return cspace_convert(jab, CAM02UCS, space)
+    out = cspace_convert(np.where(dark[..., None], [1.0, 0.0, 0.0], jab), CAM02UCS, space)
+    out[dark] = 0.0
+    return out
+
+
 def jab_to_srgb1(jab):
     """Convert CAM02-UCS J'a'b' to sRGB in [0, 1]; out-of-gamut colours fall outside [0, 1]."""
-    return cspace_convert(as_triplets(jab, "jab"), CAM02UCS, "sRGB1")
+    return _from_jab(jab, "sRGB1")
 
 
 def srgb1_to_xyz100(srgb1):
@@ -87,7 +99,7 @@ def srgb1_to_xyz100(srgb1):
 
 def jab_to_xyz100(jab):
     """CAM02-UCS J'a'b' to CIE XYZ (Y of white = 100) under :data:`VIEWING_CONDITIONS`."""
-    return cspace_convert(as_triplets(jab, "jab"), CAM02UCS, "XYZ100")
+    return _from_jab(jab, "XYZ100")
 
 
 def lightness(jab):

@@ -21,6 +21,7 @@ __all__ = [
     "PaletteSettings",
     "JND_DELTA_E",
     "JSON_JAB_LIMIT",
+    "JSON_J_RANGE",
     "extract_palette",
     "palette_from_decoded",
     "weighted_kmeans",
@@ -33,10 +34,15 @@ __all__ = [
 #: colour's proportion ``share`` (format 1 called it ``weight``; both are read).
 PALETTE_JSON_FORMAT = 2
 
-#: Largest magnitude of a J', a' or b' value read from palette JSON. Colours of the sRGB gamut
+#: Largest magnitude of an a' or b' value read from palette JSON. Colours of the sRGB gamut
 #: stay within about J' 0-100 and |a'|, |b'| < 50 in CAM02-UCS (Luo, Cui & Li 2006); 1000 leaves
 #: room for any real colour while keeping products of them far from float overflow.
 JSON_JAB_LIMIT = 1000.0
+
+#: Range of J' read from palette JSON. The sRGB white is J' 100 and black 0 (colorspacious,
+#: tests/photo/test_palette.py); 120 leaves room for a brighter source while staying well below
+#: J' = 100 + 1 / c1 = 242.9 (c1 = 0.007, Luo, Cui & Li 2006), past which J' has no J to invert to.
+JSON_J_RANGE = (0.0, 120.0)
 
 
 def _json_number(value, key, high, low=None):
@@ -193,8 +199,9 @@ class Palette:
     def from_dict(cls, data, where="palette"):
         """Rebuild a palette from :meth:`to_dict` output; ``where`` names the source in errors.
 
-        Every number must be finite and in its range (:data:`JSON_JAB_LIMIT` for J'a'b'), so a
-        NaN, an infinity or a 1e308 is an error naming the key, never a score of "nan".
+        Every number must be finite and in its range (:data:`JSON_J_RANGE` for J',
+        :data:`JSON_JAB_LIMIT` for a'b'), so a NaN, an infinity, a 1e308 or a J' no colour has is
+        an error naming the key, never a score of "nan".
         """
         try:
             colours = data["colours"]
@@ -204,7 +211,8 @@ class Palette:
             for i, c in enumerate(colours):
                 if not isinstance(c, dict):
                     raise HarmonyError(f"{where}: colours[{i}]: must be an object")
-                jab.append([_json_number(c[key], f"{where}: colours[{i}].{key}", JSON_JAB_LIMIT) for key in "Jab"])
+                jab.append([_json_number(c["J"], f"{where}: colours[{i}].J", JSON_J_RANGE[1], low=JSON_J_RANGE[0])]
+                           + [_json_number(c[key], f"{where}: colours[{i}].{key}", JSON_JAB_LIMIT) for key in "ab"])
                 # "weight" is the name format 1 (before harmony 0.2) gave the share.
                 name = "share" if "share" in c else "weight"
                 weights.append(_json_number(c[name], f"{where}: colours[{i}].{name}", 1.0, low=0.0))

@@ -85,3 +85,18 @@ def test_bad_hex_codes(code):
 
 def test_hex_round_trip():
     assert hc.srgb1_to_hex(hc.hex_to_srgb1("#a1b2c3")) == "#a1b2c3"
+
+
+def test_zero_lightness_is_black_and_just_above_it_is_converted():
+    # J' = 0 is no light: black in sRGB and XYZ, without colorspacious's division by J = 0
+    # (it warns and gives nan there). Just above 0 the conversion runs as usual: near black.
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        dark = np.array([[0.0, 0.0, 0.0], [0.0, 5.0, -5.0], [-0.0, 1.0, 1.0]])
+        assert np.array_equal(hc.jab_to_srgb1(dark), np.zeros((3, 3)))
+        assert np.array_equal(hc.jab_to_xyz100(dark[1]), np.zeros(3))
+        assert hc.jab_to_hex(dark[1]) == "#000000"
+        near = hc.jab_to_xyz100([0.01, 0.0, 0.0])
+        assert np.all(near > 0) and np.all(near < 1e-4)
+        mixed = hc.jab_to_srgb1([[0.0, 3.0, 3.0], [100.0, -1.91, -1.15]])
+        assert np.array_equal(mixed[0], np.zeros(3)) and np.allclose(mixed[1], 1.0, atol=1e-3)

@@ -405,7 +405,10 @@ def test_rules_files_past_the_bounds_are_refused_in_one_line(tmp_path):
 @pytest.mark.parametrize("value, reason", [
     ("NaN", "colours[0].J: not a finite number (nan)"),
     ("Infinity", "colours[0].J: not a finite number (inf)"),
-    ("1e308", "colours[0].J: 1e+308 is outside [-1000, 1000]"),
+    ("1e308", "colours[0].J: 1e+308 is outside [0, 120]"),
+    # J' past 242.9 has no CAM02-UCS J to invert to: it once scored with numpy warnings.
+    ("500", "colours[0].J: 500 is outside [0, 120]"),
+    ("-1", "colours[0].J: -1 is outside [0, 120]"),
 ])
 def test_palette_json_with_nan_inf_or_huge_numbers_is_one_line_naming_the_key(built, tmp_path, value, reason):
     folder, csv_path, db = built
@@ -420,6 +423,21 @@ def test_palette_json_with_nan_inf_or_huge_numbers_is_one_line_naming_the_key(bu
     assert scored.exit_code == 2
     assert error_lines(scored.stderr) == [f"error: {bad}: {reason}"]
     assert "nan" not in scored.stdout
+
+
+def test_palette_json_at_the_ends_of_the_lightness_range_scores_without_warnings(built, tmp_path):
+    # Both ends of JSON_J_RANGE are read: J' 0 (black) and 120 score, with no warning line.
+    folder, csv_path, db = built
+    good = tmp_path / "good.json"
+    good.write_text(_invoke(["palettes", "--db", db]).stdout.splitlines()[0])
+    data = json.loads(good.read_text())
+    for value in (0, 120):
+        for c in data["colours"]:
+            c["J"] = value
+        edge = tmp_path / f"edge{value}.json"
+        edge.write_text(json.dumps(data))
+        scored = _invoke(["score", edge, good])
+        assert scored.exit_code == 0 and scored.stdout.startswith("score ") and not scored.stderr.strip(), scored.stderr
 
 
 # -- 9. formulas in CSV -----------------------------------------------------------------------
