@@ -118,6 +118,12 @@ class Curation:
     max_partner_categories: int | None = None
     only_listed_category_pairs: bool = False
 
+    @property
+    def empty(self):
+        """True when the file changes nothing: no pin, block, category pair, floor or limit."""
+        return (not (self.pins or self.blocks or self.category_pairs or self.only_listed_category_pairs)
+                and self.min_score == 0.0 and self.max_partner_categories is None)
+
     def pins_of(self, product):
         return [p for p in self.pins if p.product == product]
 
@@ -301,12 +307,15 @@ def load_curation(path):
 
 def unknown_product_warnings(curation, product_ids, categories=()):
     """One message per pin, block or category pair naming a product (or category) the store does
-    not hold; with ``product_ids`` a mapping of id to normalised category, also per pin joining
+    not hold, and one for a file that changes nothing; with ``product_ids`` a mapping of id to normalised category, also per pin joining
     two products of one category (the feed pairs different categories, so it never shows)."""
     ids = set(product_ids)
     category_of = product_ids if isinstance(product_ids, Mapping) else {}
     cats = set(categories)
     out = []
+    if curation.empty:  # an empty or all-comment file, most likely not the one meant
+        out.append(f"{curation.path}: no pin, block, category pair, min_score or limit; the feed is as it would "
+                   "be without this file")
 
     def hint(name, known):
         close = difflib.get_close_matches(name, sorted(known), n=1)

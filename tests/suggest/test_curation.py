@@ -103,6 +103,26 @@ def test_unknown_products_are_warnings_with_lines():
                    "(did you mean 'desks'?)"]
 
 
+@pytest.mark.parametrize("text, empty", [
+    ("", True),
+    ("# pins go here\nformat = 1\n", True),
+    ("min_score = 0.0\nonly_listed_category_pairs = false\n", True),
+    ("min_score = 0.05\n", False),
+    ("max_partner_categories = 3\n", False),
+    ("only_listed_category_pairs = true\n", False),
+    ('[[pin]]\nproduct = "S1"\npartner = "R1"\nrank = 1\n', False),
+])
+def test_a_file_that_changes_nothing_is_warned_of(text, empty):
+    # Both sides: an empty or all-comment file (most likely not the one meant) gets one warning;
+    # any one rule, floor or limit is a file that changes something.
+    c = parse_curation(text, where="c.toml")
+    assert c.empty is empty
+    out = unknown_product_warnings(c, ["S1", "R1"], ["sofa", "rug"])
+    assert [m for m in out if "the feed is as it would be without this file" in m] == (
+        ["c.toml: no pin, block, category pair, min_score or limit; the feed is as it would be without this file"]
+        if empty else [])
+
+
 def test_curate_blocks_floors_and_pins():
     c = parse_curation(EXAMPLE, "cur.toml")
     ranked = rows("S1", "sofa", "rug", [("R1", 0.9), ("R2", 0.8), ("R3", 0.6), ("R4", 0.45)])
