@@ -103,6 +103,14 @@ def clicks_command(impressions, db, compare, min_impressions, max_weight, top, r
     from harmony.evaluation.clicks import analyse_clicks, read_impressions
 
     refuse_other_suffix(out, (".html", ".htm"), "the page")
+    if db is not None and out is None:
+        from harmony.errors import warn
+
+        warn(f"--db {db}: the store only adds photos to the page, and without --out there is no page; not read")
+    elif db is not None:  # a wrong path is named before the analysis, not after it
+        from harmony.shop.store import Store
+
+        Store(db).close()
     log = read_impressions(impressions)
     orders = [(Path(f).name, read_feed_order(f)) for f in compare]
     if progress is None:

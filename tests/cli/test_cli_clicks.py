@@ -110,6 +110,25 @@ def test_clicks_command_prints_the_curve_and_writes_the_page(tmp_path):
     assert data["examination"][0]["examination"] == 1.0 and len(data["suggestions"]) == 6
 
 
+def test_clicks_db_is_checked_before_the_analysis_and_warned_of_without_a_page(db, tmp_path, monkeypatch):
+    # With --out, a store path that is no store is one line before any analysis; without --out
+    # the store is not read, and one warning says so; a real store with --out is read.
+    from harmony.evaluation import clicks as clicks_module
+
+    log = _click_log(tmp_path / "log.csv", np.random.default_rng(6), 200, [1.0, 0.5], [0.3] * 4)
+    analysed = []
+    real = clicks_module.analyse_clicks
+    monkeypatch.setattr(clicks_module, "analyse_clicks", lambda *a, **k: analysed.append(1) or real(*a, **k))
+    res = run("clicks", "--impressions", log, "--db", tmp_path / "nope.db", "--out", tmp_path / "p.html")
+    assert res.exit_code == 2 and "nope.db: no palette store here" in res.output and not analysed
+    assert not (tmp_path / "p.html").exists() and not (tmp_path / "nope.db").exists()
+    res = run("clicks", "--impressions", log, "--db", tmp_path / "nope.db", "--resamples", 3)
+    assert res.exit_code == 0 and analysed
+    assert "warning: --db " in res.output and "without --out there is no page; not read" in res.output
+    res = run("clicks", "--impressions", log, "--db", db, "--resamples", 3, "--out", tmp_path / "q.html")
+    assert res.exit_code == 0 and "warning" not in res.output and (tmp_path / "q.html").exists()
+
+
 def test_compare_feed_reads_every_feed_format_alike(tmp_path):
     # The same order as JSON Lines, CSV (with the reason's comma quoted, RFC 4180) and Parquet
     # gives the same estimate; a CSV row with a field too many is named, not read by name.
