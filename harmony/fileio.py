@@ -46,6 +46,8 @@ __all__ = [
     "spreadsheet_safe_row",
     "FORMULA_PREFIXES",
     "json_objects",
+    "header_names",
+    "folded_keys",
     "csv_records",
     "repeated_name",
     "shifted",
@@ -260,9 +262,10 @@ def json_objects(lines, not_object="not a JSON object", column=False):
     """``(line number, object, problem)`` of each non-blank line of JSON Lines text.
 
     ``lines`` is any iterable of lines (``text.splitlines()``, an open file); numbers start at 1.
-    ``object`` is the line's JSON object and ``problem`` None, or ``object`` is None and ``problem``
-    says why: ``"not JSON: <reason>"`` (with ``" (column N)"`` when ``column``) or ``not_object``
-    for JSON that is not an object.
+    ``object`` is the line's JSON object, its keys case-folded (:func:`folded_keys`), and
+    ``problem`` None, or ``object`` is None and ``problem`` says why: ``"not JSON: <reason>"``
+    (with ``" (column N)"`` when ``column``), ``not_object`` for JSON that is not an object, or
+    two keys that fold alike.
     """
     for number, text in enumerate(lines, start=1):
         if not text.strip():
@@ -273,7 +276,11 @@ def json_objects(lines, not_object="not a JSON object", column=False):
             yield number, None, f"not JSON: {exc.msg}" + (f" (column {exc.colno})" if column else "")
             continue
         if isinstance(obj, dict):
-            yield number, obj, None
+            obj, twice = folded_keys(obj)
+            if twice is None:
+                yield number, obj, None
+            else:
+                yield number, None, f"key {twice!r} is given twice (keys are read without case)"
         else:
             yield number, None, not_object
 
@@ -282,7 +289,7 @@ def csv_records(lines):
     """The header and the records of CSV text whose first row names the columns (RFC 4180).
 
     ``lines`` is any iterable of lines (an open file, ``io.StringIO(text, newline="")``). Returns
-    ``(header, records)``: the header's names, stripped ([] for empty text), and an iterator of
+    ``(header, records)``: the header's names (:func:`header_names`; [] for empty text), and an iterator of
     ``(line number, record, problem)`` for each non-blank row, like :func:`json_objects`.
     ``record`` maps each name to its field (a row shorter than the header lacks the last names;
     callers refuse a header naming a column twice, see :func:`repeated_name`) and ``problem`` is
@@ -294,7 +301,7 @@ def csv_records(lines):
     """
     reader = csv.reader(lines)
     try:
-        header = [name.strip() for name in next(reader, None) or ()]
+        header = header_names(next(reader, None) or ())
     except csv.Error as exc:
         return [], iter([(reader.line_num, None, f"not readable CSV: {exc}")])
 
@@ -310,6 +317,26 @@ def csv_records(lines):
             yield reader.line_num, None, f"not readable CSV: {exc}"
 
     return header, records()
+
+
+def header_names(row):
+    """A CSV header's column names, stripped and case-folded: shop exports often capitalise them
+    (``ID``, ``Price``), and ``Price`` and ``price`` name one column (two that fold alike are a
+    name given twice, see :func:`repeated_name`)."""
+    return [str(name).strip().casefold() for name in row]
+
+
+def folded_keys(obj):
+    """A JSON object with its keys case-folded, as :func:`header_names` folds a CSV header, and
+    the first folded key two of its keys share (None when none do): which value to take cannot be
+    known, so callers refuse such a row."""
+    out, twice = {}, None
+    for key, value in obj.items():
+        name = str(key).casefold()
+        if name in out and twice is None:
+            twice = name
+        out[name] = value
+    return out, twice
 
 
 def shifted(row, width):

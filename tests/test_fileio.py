@@ -183,3 +183,22 @@ def test_csv_records_let_trailing_empty_cells_be_and_refuse_text_past_the_header
     _, records = csv_records(io.StringIO("a,b\n1,2,,\n3,4, \n5,6,x\n", newline=""))
     assert list(records) == [(2, {"a": "1", "b": "2"}, None), (3, {"a": "3", "b": "4"}, None),
                              (4, None, "3 fields, the header has 2")]
+
+
+def test_names_and_keys_are_read_without_case_and_a_fold_collision_is_refused():
+    # Shop exports capitalise headers ("ID", "Price"); a JSON object whose keys fold alike
+    # ("id" and "ID") cannot say which value it means: that line is a problem, the others read.
+    import io
+
+    from harmony.fileio import csv_records, header_names, json_objects, repeated_name
+
+    assert header_names([" Product ", "PARTNER", "rank", "Straße"]) == ["product", "partner", "rank", "strasse"]
+    header, records = csv_records(io.StringIO("Product,Partner\nA,B\n", newline=""))
+    assert header == ["product", "partner"] and [r for _, r, _ in records] == [{"product": "A", "partner": "B"}]
+    assert repeated_name(header_names(["id", "ID"])) == "id"
+    lines = ['{"Product": "A", "RANK": 1}', '{"id": "B", "ID": "C"}', '{"id": "D"}']
+    assert list(json_objects(lines)) == [
+        (1, {"product": "A", "rank": 1}, None),
+        (2, None, "key 'id' is given twice (keys are read without case)"),
+        (3, {"id": "D"}, None),
+    ]

@@ -44,12 +44,14 @@ def run_evaluation(db, events, rules_files, weights=(), seed=0, resamples=1000, 
 
     ``progress`` None shows a bar when stderr is a terminal. ``extra_methods(methods, palettes,
     products)``, when given, returns more methods to compare (issue 18: blend weights).
+    ``attribute`` names a catalogue column, read without case as the catalogue's names are.
 
     Raises
     ------
     HarmonyError
         When the same rules file is given twice (named), besides the errors of the steps.
     """
+    attribute = str(attribute).strip().casefold()
     with collection_paused():
         return _run(db, events, rules_files, weights, seed, resamples, attribute, progress, extra_methods)
 

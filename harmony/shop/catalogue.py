@@ -23,7 +23,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from harmony.errors import CatalogueError
-from harmony.fileio import json_objects
+from harmony.fileio import header_names, json_objects
 from harmony.shop.fetch import is_url
 
 __all__ = [
@@ -239,7 +239,7 @@ def _csv_rows(path, text):
         raise CatalogueError(f"{path}: empty catalogue (no header row)") from None
     except csv.Error as exc:
         raise CatalogueError(f"{path}:1: header: {exc}") from None
-    header = [h.strip() for h in header]
+    header = header_names(header)
     missing = [name for name in REQUIRED_FIELDS if name not in header]
     if missing:
         names = ", ".join(repr(m) for m in missing)

@@ -29,7 +29,7 @@ from operator import itemgetter
 from pathlib import Path
 
 from harmony.errors import EventsError
-from harmony.fileio import json_objects, repeated_name, shifted
+from harmony.fileio import header_names, json_objects, repeated_name, shifted
 
 __all__ = [
     "DEFAULT_EVENT_WEIGHTS",
@@ -204,7 +204,7 @@ def _csv_rows(path):
         first = next(reader, None)
         if first is None:
             raise EventsError(f"{path}: empty file, expected a header row")
-        header = [str(h).strip().casefold() for h in first]
+        header = header_names(first)
         _check_header(path, header)
         width = len(header)
         column = {name: i for i, name in enumerate(header)}
@@ -225,7 +225,6 @@ def _jsonl_rows(path):
             if problem:
                 yield number, problem
                 continue
-            obj = {str(k).casefold(): v for k, v in obj.items()}
             yield number, (*(_text(obj.get(name)) for name in _FIELDS[:-1]), obj.get("timestamp"))
 
 

@@ -36,7 +36,7 @@ from pathlib import Path
 import numpy as np
 
 from harmony.errors import HarmonyError
-from harmony.fileio import json_objects, repeated_name, shifted, spreadsheet_safe_row, write_text_whole
+from harmony.fileio import header_names, json_objects, repeated_name, shifted, spreadsheet_safe_row, write_text_whole
 from harmony.shop.catalogue import normalise_category
 from harmony.suggest.ranks import mid_ranks
 from harmony.suggest.rows import PartnerRow
@@ -159,7 +159,7 @@ def _csv_fields(path, text, problems):
     as ``(line, reason)``."""
     reader = csv.reader(io.StringIO(text, newline=""))
     try:
-        header = [name.strip() for name in next(reader, None) or ()]
+        header = header_names(next(reader, None) or ())
         if (twice := repeated_name(header)) is not None:
             raise HarmonyError(f"{path}:1: column {twice!r} appears twice")
         column = {name: i for i, name in enumerate(header)}

@@ -114,6 +114,8 @@ def test_more_problem_kinds(tmp_path):
         ("c.csv", "id,category,image\nA,Sofa,a.png\n", r"c\.csv:1: header: missing required column\(s\) 'price'"),
         ("c.csv", "", r"c\.csv: empty catalogue"),
         ("c.csv", "id,id,category,price,image\n", r"c\.csv:1: header: column 'id' appears twice"),
+        # Names are read without case, so two that differ only in case are one name twice.
+        ("c.csv", "id,ID,category,price,image\n", r"c\.csv:1: header: column 'id' appears twice"),
         ("c.txt", "id\n", r"c\.txt: unknown catalogue format '\.txt'"),
     ],
 )
@@ -173,3 +175,21 @@ def test_jsonl_names_must_be_text_not_lists_or_objects(tmp_path):
         f"{where}:2: title: must be text, not a JSON list",
     ]
     assert [p.id for p in cat.products] == ["S-3"] and cat.skipped_rows == 2
+
+
+def test_column_names_and_keys_are_read_without_case(tmp_path):
+    # Shop exports capitalise their headers ("ID", "Price"): the same products as lowercase
+    # names give. A JSON object whose keys fold alike ("id" and "ID") is a row problem.
+    for name in ("a.png", "b.png"):
+        (tmp_path / name).write_bytes(b"an image file; only its presence is checked here")
+    (tmp_path / "lower.csv").write_text("id,title,category,price,stock,image\nA,Lamp,lamp,10,2,a.png\n")
+    (tmp_path / "upper.csv").write_text(" ID ,Title,CATEGORY,Price,Stock,Image\nA,Lamp,lamp,10,2,a.png\n")
+    lower, upper = read_catalogue(tmp_path / "lower.csv"), read_catalogue(tmp_path / "upper.csv")
+    assert upper.products and upper.problems == () and upper.products == lower.products
+    (tmp_path / "c.jsonl").write_text(
+        '{"ID": "A", "Category": "lamp", "Price": 10, "Image": "a.png"}\n'
+        '{"id": "B", "ID": "C", "category": "lamp", "price": 10, "image": "b.png"}\n')
+    cat = read_catalogue(tmp_path / "c.jsonl")
+    assert [p.id for p in cat.products] == ["A"] and cat.products[0].price == 10
+    assert [(p.row, p.field, p.reason) for p in cat.problems] == [
+        (2, "row", "key 'id' is given twice (keys are read without case)")]

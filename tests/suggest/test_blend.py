@@ -143,6 +143,15 @@ def test_candidates_jsonl(tmp_path):
     assert (c.product, c.partner, c.score, c.partner_category) == ("A", "B", 0.5, "rug")
 
 
+def test_candidate_columns_and_keys_are_read_without_case(tmp_path):
+    # A recommender's export with capitalised names reads as the lowercase one.
+    (tmp_path / "c.csv").write_text("Product,PARTNER,Score,Partner_Category\nA,B,0.5,Rug\n")
+    (tmp_path / "c.jsonl").write_text('{"Product": "A", "Partner": "B", "SCORE": 0.5, "partner_category": "Rug"}\n')
+    for name in ("c.csv", "c.jsonl"):
+        (c,) = read_candidates(tmp_path / name)
+        assert (c.product, c.partner, c.score, c.partner_category) == ("A", "B", 0.5, "rug")
+
+
 def test_blends_of_several_weights_share_their_ranks_and_keep_their_numbers():
     # One BlendRanks for every weight (as blend_methods_factory makes them) gives each weight the
     # numbers of a blend of its own, asked the same queries, then other ones.
