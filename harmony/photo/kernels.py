@@ -4,13 +4,14 @@ Each kernel does the arithmetic of the numpy function it names, in the same orde
 floating-point types, so the palette is the same bit for bit with or without numba
 (``tests/photo/test_kernels.py`` holds each kernel to its numpy function, and whole palettes
 to the numpy path). The numpy functions stay the reference and the fallback:
-:func:`harmony.photo.palette.compiled_kernels` returns this module only when numba imports and
-``HARMONY_NUMBA`` is not ``0``.
+:func:`harmony.photo.palette.compiled_kernels` returns this module only once
+:func:`harmony.photo.palette.load_kernels` has loaded it (extraction jobs of at least
+``COMPILED_MIN_IMAGES`` images do), or always with ``HARMONY_NUMBA=1``; never with ``0``.
 
 The numpy steps are a few dozen calls each over arrays of a few thousand pixels, or a few dozen
 colour bins, where the cost of a call outweighs its arithmetic; one loop each does the same work
-without it. Importing numba takes about a quarter of a second, so this module is imported only
-when a palette is extracted.
+without it. Importing numba and loading the kernels from its cache takes about half a second,
+so small jobs do without them.
 """
 
 import numba
