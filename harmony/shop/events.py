@@ -196,9 +196,10 @@ _FIELDS = ("session", "user", "product", "event", "timestamp")
 
 
 def _csv_rows(path):
-    """``(line, (session, user, product, event, timestamp))`` of each non-blank row, as text
-    stripped at both ends ("" for a missing field; a column named twice is refused), or
-    ``(line, error)``."""
+    """``(line, (session, user, product, event, timestamp), short)`` of each non-blank row, as
+    text stripped at both ends ("" for a missing field; a column named twice is refused), or
+    ``(line, error, None)``; ``short`` says how a row with fewer fields than the header falls
+    short (a spreadsheet's trimmed empty cells, or a field dropped), else None."""
     with open(path, newline="", encoding="utf-8-sig") as handle:
         reader = csv.reader(handle)
         first = next(reader, None)
@@ -212,20 +213,22 @@ def _csv_rows(path):
         pick = itemgetter(*(column.get(name, width) for name in _FIELDS))
         for row in reader:
             if shifted(row, width):
-                yield reader.line_num, "more fields than the header has"
+                yield reader.line_num, "more fields than the header has", None
             elif row:
+                short = f"{len(row)} fields, the header has {width}" if len(row) < width else None
                 row += [""] * (width + 1 - len(row))
-                yield reader.line_num, tuple(map(str.strip, pick(row)))
+                yield reader.line_num, tuple(map(str.strip, pick(row))), short
 
 
 def _jsonl_rows(path):
-    """:func:`_csv_rows` of a JSONL log (keys compared without case); the timestamp as given."""
+    """:func:`_csv_rows` of a JSONL log (keys compared without case); the timestamp as given, and
+    no row falls short."""
     with open(path, encoding="utf-8-sig") as handle:
         for number, obj, problem in json_objects(handle, not_object="expected a JSON object"):
             if problem:
-                yield number, problem
+                yield number, problem, None
                 continue
-            yield number, (*(_text(obj.get(name)) for name in _FIELDS[:-1]), obj.get("timestamp"))
+            yield number, (*(_text(obj.get(name)) for name in _FIELDS[:-1]), obj.get("timestamp")), None
 
 
 def _check_header(path, header):
@@ -291,7 +294,7 @@ def read_events(path, weights=None, known_products=None):
     events, problems, unknown, skipped = [], [], Counter(), Counter()
     n_rows = ignored = 0
     try:
-        for line, row in rows:
+        for line, row, short in rows:
             n_rows += 1
             if isinstance(row, str):
                 problems.append(f"line {line}: {row}")
@@ -314,6 +317,10 @@ def read_events(path, weights=None, known_products=None):
                 problems.append(f"line {line}: {exc}")
                 continue
             if kind not in weights:
+                if short:  # a dropped field has moved the next one into the event column
+                    problems.append(f"line {line}: {short}, and its event {kind!r} is no known kind: "
+                                    "a field is missing")
+                    continue
                 skipped[kind] += 1
                 continue
             if weights[kind] <= 0:

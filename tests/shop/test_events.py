@@ -211,3 +211,19 @@ def test_trailing_empty_cells_past_the_header_are_read_and_text_there_is_refused
     path = write(tmp_path / "log.csv", "session,product,event\ns,A,view,,x\n")
     with pytest.raises(EventsError, match=r"line 2: more fields than the header has"):
         read_events(path)
+
+
+def test_a_short_row_whose_event_is_no_kind_is_a_missing_field(tmp_path):
+    # A dropped middle field moves the next one into the event column: with the row short of the
+    # header, an unknown kind there is named as a missing field, not counted as a kind. The other
+    # side: a short row of a known kind (a spreadsheet's trimmed empty timestamp) reads, and a
+    # full row of an unknown kind is counted as before.
+    header = "session,product,event,timestamp\n"
+    path = write(tmp_path / "log.csv", header + "s,A,view,2026-03-01T10:00:00Z\ns,B,2026-03-01T10:05:00Z\n")
+    with pytest.raises(EventsError, match=r"log.csv: 1 bad row: line 3: 3 fields, the header has 4, and its "
+                                          r"event '2026-03-01t10:05:00z' is no known kind: a field is missing$"):
+        read_events(path)
+    path = write(tmp_path / "log.csv", header + "s,A,view\ns,B,share,2026-03-01T10:05:00Z\n")
+    log = read_events(path)
+    assert [(e.product, e.event, e.timestamp) for e in log.events] == [("A", "view", None)]
+    assert log.skipped == (("share", 1),)
