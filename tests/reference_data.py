@@ -13,6 +13,7 @@ __all__ = [
     "EXIF_ORIENTATION_PIXELS",
     "ANSI_TRUECOLOUR_EXAMPLE",
     "SCENE_PHOTOS",
+    "sample_photo",
 ]
 
 
@@ -64,3 +65,18 @@ ANSI_TRUECOLOUR_EXAMPLE = ("#ff8000", "\x1b[48;2;255;128;0m  \x1b[0m")
 #: gold (photographs no one in this project made): scikit-image sample images whose borders are
 #: busy (people, objects, animals, landscapes); each must be recognised as a scene.
 SCENE_PHOTOS = ("astronaut", "coffee", "chelsea", "rocket")
+
+
+def sample_photo(name):
+    """gold: a real photograph no one here made, as sRGB uint8: scikit-image's sample images by
+    name (``skimage.data.<name>``) and scikit-learn's ``china.jpg`` and ``flower.jpg``
+    (``sklearn.datasets.load_sample_image``)."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        if name in ("china.jpg", "flower.jpg"):
+            from sklearn.datasets import load_sample_image
+
+            return load_sample_image(name)
+        import skimage.data
+
+        return getattr(skimage.data, name)()

@@ -7,7 +7,7 @@ import pytest
 from scipy import ndimage
 
 from harmony.photo import mask as mask_module
-from harmony.photo import clusters
+from harmony.photo import clusters, kernels
 from harmony.photo import palette as palette_module
 from harmony.photo.surface import basis, grid_basis, median_rows, ring_basis
 
@@ -164,8 +164,10 @@ def test_seeded_draws_are_the_generators_draws():
                 assert np.array_equal(draws.random(trials), rng.random(trials))
 
 
-def test_merge_close_matches_recomputing_every_distance():
-    # Reference: the closest pair by numpy.argmin over all distances, recomputed after each merge.
+@pytest.mark.parametrize("merge", [clusters.merge_close, kernels.merge_close], ids=["numpy", "compiled"])
+def test_merge_close_matches_recomputing_every_distance(merge):
+    # Reference: the closest pair by numpy.argmin over all distances, recomputed after each merge
+    # (for the numpy merge and its compiled twin alike).
     rng = np.random.default_rng(9)
     for _ in range(300):
         m = int(rng.integers(1, 20))
@@ -185,7 +187,7 @@ def test_merge_close_matches_recomputing_every_distance():
             want_c[i] = (want_m[i] * want_c[i] + want_m[j] * want_c[j]) / total
             want_m[i] = total
             del want_c[j], want_m[j]
-        got_c, got_m = clusters.merge_close(centres, masses, limit)
+        got_c, got_m = merge(centres, masses, limit)
         assert np.array_equal(got_c, np.array(want_c)) and np.array_equal(got_m, np.array(want_m))
 
 

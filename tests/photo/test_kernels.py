@@ -8,6 +8,7 @@ import sys
 
 import numpy as np
 import pytest
+from reference_data import sample_photo
 from scipy import ndimage
 
 from harmony.demo.synthetic import cutout_composite, cutout_mask, encode_jpeg, open_frame_shot, studio_shot
@@ -88,18 +89,6 @@ def test_one_kmeans_start_matches_the_numpy_start():
         assert _same(got[0], want[0]) and np.array_equal(got[1], want[1])
 
 
-def test_merging_matches_the_numpy_merge():
-    rng = np.random.default_rng(6)
-    for _ in range(300):
-        m = int(rng.integers(1, 20))
-        centres = rng.normal(size=(m, 3)) * rng.choice([1.0, 3.0])
-        masses = rng.random(m) * 10
-        limit = float(rng.choice([0.5, 2.3, 5.0]))
-        want = clusters.merge_close(centres, masses, limit)
-        got = kernels.merge_close(centres, masses, limit)
-        assert _same(got[0], want[0]) and _same(got[1], want[1])
-
-
 def test_labels_match_scipy():
     # scipy.ndimage.label with the 4-neighbour cross: the same numbers on every pixel.
     rng = np.random.default_rng(7)
@@ -152,15 +141,6 @@ def test_enclosed_regions_match_the_numpy_means():
         assert (got is None and want is None) or _same(got, want)
 
 
-def _photo(name):
-    skimage_data = pytest.importorskip("skimage.data")
-    if name.endswith(".jpg"):
-        from sklearn.datasets import load_sample_image
-
-        return load_sample_image(name)
-    return getattr(skimage_data, name)()
-
-
 def _palette_fields(pal):
     return (pal.jab.tobytes(), pal.weights.tobytes(), pal.flags, pal.scene, pal.confidence,
             pal.background_share, None if pal.background_jab is None else pal.background_jab.tobytes())
@@ -173,7 +153,7 @@ def test_whole_palettes_are_the_same_with_and_without_the_kernels():
     rng = np.random.default_rng(9)
     images = []
     for name in ("chelsea", "coffee", "astronaut", "rocket", "china.jpg", "flower.jpg"):
-        photo = _photo(name)[..., :3]
+        photo = sample_photo(name)[..., :3]
         for kind in ("ellipse", "ring"):
             images.append(encode_jpeg(cutout_composite(rng, photo, cutout_mask(photo.shape, kind))[0], quality=85))
         images.append(encode_jpeg(photo, quality=90))

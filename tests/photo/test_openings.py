@@ -6,11 +6,9 @@ or the pixels of a real photograph (scikit-image's and scikit-learn's sample ima
 exact mask. The figures quoted in comments were measured with these tests (JPEG quality 85).
 """
 
-import warnings
-
 import numpy as np
 import pytest
-from reference_data import colorchecker_srgb1
+from reference_data import colorchecker_srgb1, sample_photo
 
 from harmony import colour
 from harmony.demo.synthetic import (
@@ -139,18 +137,6 @@ def test_colorchecker_patches_on_off_white_keep_area_and_colour():
             "black 2 (1.5 D)"} <= set(kept_areas)
 
 
-def _photo(name):
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        if name in ("china.jpg", "flower.jpg"):
-            from sklearn.datasets import load_sample_image
-
-            return load_sample_image(name)
-        import skimage.data
-
-        return getattr(skimage.data, name)()
-
-
 def test_cutout_masks_have_the_areas_of_their_shapes():
     # Geometry: a disc of radius r = 0.4 x 300 covers pi r^2 pixels (to within the pixels its
     # edge crosses); the ring leaves out the disc of radius r sqrt(0.3), 30 % of that area.
@@ -173,7 +159,7 @@ def test_real_cutouts_on_a_sweep_match_the_exact_mask(name, shape):
     # describes the exact-mask pixels: its share-weighted mean colour lies within 3 ΔE of
     # theirs, the share of every palette colour matches the share of those pixels nearest to it
     # within 0.1, and no palette colour is the backdrop's. Measured: mean colour 0.2-2.6 ΔE, shares within 0.04.
-    photo = _photo(name)
+    photo = sample_photo(name)
     rng = np.random.default_rng(5)
     composite, pixels = cutout_composite(rng, photo, cutout_mask(photo.shape, shape))
     pal = extract_palette(encode_jpeg(composite, quality=85))
