@@ -462,6 +462,9 @@ def _enclosed_backdrop(labels, n, near, ringing_zone, diff, opening, bias, kerne
         found, n_near, off, n_clear, off_clear = kernels.region_offsets(labels, n, near, ringing_zone, diff)
         if not found:
             return None
+
+        def clear_offsets():
+            return off_clear
     else:
         enclosed_near = (labels != 0) & near
         pick_near = np.flatnonzero(enclosed_near)
@@ -479,11 +482,13 @@ def _enclosed_backdrop(labels, n, near, ringing_zone, diff, opening, bias, kerne
 
         n_near, off = region_means(pick_near)
         n_clear = np.bincount(flat_labels[pick_clear], minlength=n + 1)[1:]
-        off_clear = None
+
+        def clear_offsets():  # only when some region is wide
+            return region_means(pick_clear)[1]
     wide = n_clear >= ENCLOSED_CLEAR_PIXELS
     limit = opening
     if wide.any():  # judged by their own colour against the backdrop's unevenness
-        off = np.where(wide[:, None], region_means(pick_clear)[1] if off_clear is None else off_clear, off)
+        off = np.where(wide[:, None], clear_offsets(), off)
         limit = np.where(wide, bias(), opening)
     keep = np.zeros(n + 1, dtype=bool)
     keep[1:] = (n_near > 0) & (np.sqrt((off**2).sum(axis=-1)) <= limit)
