@@ -374,17 +374,18 @@ def test_real_extractor_dask_equals_local(tmp_path):
 
 
 def test_a_large_job_loads_the_compiled_kernels_and_stores_the_same_palettes(tmp_path, monkeypatch):
-    # A job of at least COMPILED_MIN_IMAGES images (here lowered to 4) loads the kernels once in
-    # this process, before the workers fork; a smaller one runs the numpy steps. Both store the
-    # same palettes, byte for byte.
+    # A job of at least COMPILED_MIN_IMAGES images (here lowered to the job's 6) loads the kernels
+    # once in this process, before the workers fork; one image fewer than the bound (7) runs
+    # the numpy steps. Both store the same palettes, byte for byte.
     from harmony.photo import palette as palette_module
 
     monkeypatch.delenv("HARMONY_NUMBA", raising=False)
     monkeypatch.setattr(palette_module, "_KERNELS", [])
     csv = _studio_shop(tmp_path)
+    monkeypatch.setattr(palette_module, "COMPILED_MIN_IMAGES", 7)
     small = run_extraction(csv, tmp_path / "numpy.db", workers=2, chunk_size=2, progress=False)
     assert palette_module._KERNELS == []
-    monkeypatch.setattr(palette_module, "COMPILED_MIN_IMAGES", 4)
+    monkeypatch.setattr(palette_module, "COMPILED_MIN_IMAGES", 6)
     large = run_extraction(csv, tmp_path / "compiled.db", workers=2, chunk_size=2, progress=False)
     assert len(palette_module._KERNELS) == 1
     assert (small.new, large.new, small.failed, large.failed) == (6, 6, 0, 0)
