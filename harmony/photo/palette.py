@@ -505,8 +505,22 @@ COMPILED_MIN_IMAGES = 1000
 _KERNELS = []  # [] not tried in this process; [harmony.photo.kernels] loaded; [None] unusable here
 
 
+_SWITCH = {"1": "1", "true": "1", "yes": "1", "on": "1", "0": "0", "false": "0", "no": "0", "off": "0", "": ""}
+_WARNED_SETTING = set()
+
+
 def _numba_setting():
-    return os.environ.get("HARMONY_NUMBA", "").strip()
+    """``HARMONY_NUMBA`` as "1" (always the kernels), "0" (never) or "" (by job size); another
+    value is warned of once and read as unset."""
+    raw = os.environ.get("HARMONY_NUMBA", "")
+    value = _SWITCH.get(raw.strip().casefold())
+    if value is None:
+        if raw not in _WARNED_SETTING:
+            _WARNED_SETTING.add(raw)
+            warn(f"HARMONY_NUMBA={raw!r} is neither 1 nor 0 (nor true/false, yes/no, on/off); "
+                 "the compiled kernels are used by job size")
+        return ""
+    return value
 
 
 def load_kernels():

@@ -184,6 +184,23 @@ def test_kernels_serve_once_loaded_always_with_1_never_with_0(monkeypatch):
     assert compiled_kernels() is kernels  # loaded above
 
 
+@pytest.mark.parametrize("raw, loaded", [("1", True), ("TRUE", True), (" on ", True), ("0", False),
+                                         ("false", False), ("Off", False)])
+def test_the_switch_reads_the_usual_spellings(monkeypatch, raw, loaded):
+    monkeypatch.setattr(palette_module, "_KERNELS", [])
+    monkeypatch.setenv("HARMONY_NUMBA", raw)
+    assert (compiled_kernels() is kernels) is loaded
+
+
+def test_an_unknown_switch_value_is_warned_of_once_and_read_as_unset(monkeypatch, capsys):
+    monkeypatch.setattr(palette_module, "_KERNELS", [])
+    monkeypatch.setattr(palette_module, "_WARNED_SETTING", set())
+    monkeypatch.setenv("HARMONY_NUMBA", "fast")
+    assert compiled_kernels() is None and compiled_kernels() is None  # by job size: not loaded
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "HARMONY_NUMBA='fast' is neither 1 nor 0" in err
+
+
 def test_loading_runs_every_kernel_once():
     # The warm-up shot takes every kernel, so workers forked after loading compile nothing: in a
     # fresh process, loading leaves each kernel with its compiled code.
