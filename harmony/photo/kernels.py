@@ -156,15 +156,19 @@ def unmix(px, back, centres):
 
 
 @numba.njit(inline="always")
-def _sq_dist(planes, p, c0, c1, c2):
-    """One squared distance as :func:`harmony.photo.clusters.sq_dist_planes` adds it: J', b', a'."""
-    d0 = planes[0, p] - c0
-    d2 = planes[2, p] - c2
-    d1 = planes[1, p] - c1
+def _sq3(d0, d1, d2):
+    """A squared distance from its J', a', b' differences, added as
+    :func:`harmony.photo.clusters.sq_dist_planes` adds them: J', b', then a'."""
     out = d0 * d0
     out += d2 * d2
     out += d1 * d1
     return out
+
+
+@numba.njit(inline="always")
+def _sq_dist(planes, p, c0, c1, c2):
+    """Squared distance of point ``p`` of ``planes`` (3, n) to the colour (c0, c1, c2)."""
+    return _sq3(planes[0, p] - c0, planes[1, p] - c1, planes[2, p] - c2)
 
 
 @numba.njit(inline="always")
@@ -384,14 +388,8 @@ def merge_close(centres, masses, limit):
 
 @numba.njit(inline="always")
 def _sq_dist_points(points, a, b):
-    """Squared distance of two rows of ``points`` (m, 3), added J', b', a'."""
-    d0 = points[a, 0] - points[b, 0]
-    d2 = points[a, 2] - points[b, 2]
-    d1 = points[a, 1] - points[b, 1]
-    out = d0 * d0
-    out += d2 * d2
-    out += d1 * d1
-    return out
+    """Squared distance of rows ``a`` and ``b`` of ``points`` (m, 3)."""
+    return _sq3(points[a, 0] - points[b, 0], points[a, 1] - points[b, 1], points[a, 2] - points[b, 2])
 
 
 @numba.njit(inline="always")
